@@ -1,0 +1,32 @@
+# One runner for people and CI. Every target installs what it needs into .venv/.
+PYTHON ?= python3
+VENV := .venv
+BIN := $(VENV)/bin
+STAMP := $(VENV)/.installed
+
+.PHONY: demo test bench lint clean
+
+$(BIN)/python:
+	$(PYTHON) -m venv $(VENV)
+	$(BIN)/python -m pip install --quiet --upgrade pip
+
+$(STAMP): pyproject.toml | $(BIN)/python
+	$(BIN)/python -m pip install --quiet -e '.[test,dev,postgres]'
+	touch $(STAMP)
+
+demo: $(STAMP)
+	$(BIN)/python examples/demo.py
+
+test: $(STAMP)
+	$(BIN)/python -m pytest -q
+
+bench: $(STAMP)
+	$(BIN)/python benchmarks/run_all.py
+
+lint: $(STAMP)
+	$(BIN)/ruff check jobkeeper tests benchmarks examples
+	$(BIN)/ruff format --check jobkeeper tests benchmarks examples
+	$(BIN)/mypy
+
+clean:
+	rm -rf $(VENV) .pytest_cache .mypy_cache .ruff_cache
