@@ -1,0 +1,211 @@
+"""DSSE v1 envelopes (secure-systems-lab/dsse protocol.md and envelope.md, v1.0.2).
+
+The signature covers PAE(payloadType, body): the exact body bytes plus their type, so no
+canonicalisation is needed to verify and the type cannot be swapped. ``keyid`` is an
+unauthenticated hint: it may order the keys tried, never decide which key is trusted.
+"""
+
+from __future__ import annotations
+
+import base64
+import binascii
+import json
+import re
+from collections.abc import Iterable, Mapping
+from dataclasses import dataclass
+from typing import Any
+
+from cryptography.exceptions import InvalidSignature
+from cryptography.hazmat.primitives.asymmetric.ed25519 import Ed25519PrivateKey, Ed25519PublicKey
+
+from jobkeeper.exceptions import VerificationError
+from jobkeeper.hashing import canonical_json
+from jobkeeper.provenance.keys import fingerprint, load_public_key, public_key_bytes
+
+PAYLOAD_TYPE = "application/vnd.in-toto+json"
+
+_STD_B64 = re.compile(r"[A-Za-z0-9+/]*={0,2}")
+_URL_B64 = re.compile(r"[A-Za-z0-9\-_]*={0,2}")
+
+
+def pae(payload_type: str, body: bytes) -> bytes:
+    """DSSE v1 pre-authentication encoding; lengths are byte lengths in ASCII decimal."""
+    type_bytes = payload_type.encode("utf-8")
+    return b"DSSEv1 %d %b %d %b" % (len(type_bytes), type_bytes, len(body), body)
+
+
+def b64decode_strict(text: str, what: str) -> bytes:
+    """Decode standard or URL-safe base64 (DSSE requires both), padded and canonical.
+
+    Canonical means re-encoding gives the same text back: otherwise unused trailing bits
+    could be flipped without changing the decoded bytes, and an edit would go unnoticed.
+    """
+    if not isinstance(text, str):
+        raise VerificationError(f"{what} must be a base64 string")
+    if _STD_B64.fullmatch(text):
+        alt = False
+    elif _URL_B64.fullmatch(text):
+        alt = True
+    else:
+        raise VerificationError(f"{what} is not base64 (standard or URL-safe)")
+    try:
+        data = base64.b64decode(text, altchars=b"-_" if alt else None, validate=True)
+    except (binascii.Error, ValueError):
+        raise VerificationError(f"{what} is not valid base64 (bad length or padding)") from None
+    again = base64.b64encode(data, altchars=b"-_" if alt else None).decode("ascii")
+    if again != text:
+        raise VerificationError(f"{what} is not canonical base64 (stray bits or padding)")
+    return data
+
+
+def _reject_constant(name: str) -> Any:
+    raise VerificationError(f"JSON holds {name}, which is not JSON")
+
+
+def _unique_object(pairs: list[tuple[str, Any]]) -> dict[str, Any]:
+    obj: dict[str, Any] = {}
+    for key, value in pairs:
+        if key in obj:
+            raise VerificationError(f"JSON object has the member {key!r} twice")
+        obj[key] = value
+    return obj
+
+
+def strict_json_loads(data: bytes | str, what: str) -> Any:
+    """json.loads that refuses duplicate members, NaN/Infinity and bad UTF-8.
+
+    Python keeps the last duplicate silently; two parsers disagreeing on which member
+    counts is a classic signature-bypass, so duplicates are an error.
+    """
+    try:
+        text = data.decode("utf-8") if isinstance(data, bytes) else data
+        return json.loads(text, object_pairs_hook=_unique_object, parse_constant=_reject_constant)
+    except UnicodeDecodeError:
+        raise VerificationError(f"{what} is not UTF-8") from None
+    except json.JSONDecodeError as exc:
+        raise VerificationError(f"{what} is not valid JSON: {exc.msg} at {exc.pos}") from None
+    except RecursionError:
+        raise VerificationError(f"{what} is nested too deeply") from None
+
+
+def sign_envelope(body: bytes, payload_type: str, key: Ed25519PrivateKey) -> dict[str, Any]:
+    """A DSSE envelope over ``body`` signed with ``key`` (keyid = key fingerprint)."""
+    signature = key.sign(pae(payload_type, body))
+    return {
+        "payload": base64.b64encode(body).decode("ascii"),
+        "payloadType": payload_type,
+        "signatures": [
+            {"keyid": fingerprint(key), "sig": base64.b64encode(signature).decode("ascii")}
+        ],
+    }
+
+
+def envelope_bytes(envelope: Mapping[str, Any]) -> bytes:
+    """The stored form of an envelope: RFC 8785 canonical JSON. This is the log leaf."""
+    return canonical_json(dict(envelope))
+
+
+@dataclass(frozen=True)
+class VerifiedEnvelope:
+    """What a successful verification established."""
+
+    payload: bytes  # the very bytes that were verified; parse these, never re-read
+    payload_type: str
+    signers: tuple[str, ...]  # fingerprints of the trusted keys whose signature held
+
+
+TrustedKeys = Mapping[str, bytes] | Iterable[bytes | Ed25519PublicKey]
+
+
+def _key_table(keys: TrustedKeys) -> dict[str, Ed25519PublicKey]:
+    # Fingerprints are recomputed from the keys, so a mislabelled mapping cannot mislead.
+    values = keys.values() if isinstance(keys, Mapping) else keys
+    table: dict[str, Ed25519PublicKey] = {}
+    for value in values:
+        pub = load_public_key(value) if isinstance(value, bytes) else value
+        table[fingerprint(public_key_bytes(pub))] = pub
+    return table
+
+
+def _as_envelope(envelope: Mapping[str, Any] | bytes | str) -> Mapping[str, Any]:
+    if isinstance(envelope, bytes | str):
+        envelope = strict_json_loads(envelope, "envelope")
+    if not isinstance(envelope, Mapping):
+        raise VerificationError("envelope is not a JSON object")
+    return envelope
+
+
+def verify_envelope_detailed(
+    envelope: Mapping[str, Any] | bytes | str,
+    trusted_public_keys: TrustedKeys,
+    *,
+    payload_types: Iterable[str] = (PAYLOAD_TYPE,),
+    threshold: int = 1,
+) -> VerifiedEnvelope:
+    """Verify a DSSE envelope against keys the *verifier* trusts.
+
+    Succeeds when at least ``threshold`` distinct trusted keys have a valid signature over
+    PAE(payloadType, payload) and the payloadType is one of ``payload_types``. Signatures
+    by unknown keys are ignored (each DSSE signature stands alone). Raises
+    VerificationError with the precise reason otherwise.
+    """
+    env = _as_envelope(envelope)
+    for name in ("payload", "payloadType", "signatures"):
+        if name not in env:
+            raise VerificationError(f"envelope lacks the required field {name!r}")
+    payload_type = env["payloadType"]
+    if not isinstance(payload_type, str):
+        raise VerificationError("envelope payloadType is not a string")
+    payload = b64decode_strict(env["payload"], "envelope payload")
+    signatures = env["signatures"]
+    if not isinstance(signatures, list) or not signatures:
+        raise VerificationError("envelope has no signatures")
+    decoded: list[tuple[str, bytes]] = []
+    for i, entry in enumerate(signatures):
+        if not isinstance(entry, Mapping) or "sig" not in entry:
+            raise VerificationError(f"envelope signature {i} lacks 'sig'")
+        keyid = entry.get("keyid", "")
+        if not isinstance(keyid, str):
+            raise VerificationError(f"envelope signature {i}: keyid is not a string")
+        decoded.append((keyid, b64decode_strict(entry["sig"], f"envelope signature {i}")))
+    if threshold < 1:
+        raise ValueError("threshold must be at least 1")
+    keys = _key_table(trusted_public_keys)
+    if not keys:
+        raise VerificationError("no trusted public keys were given")
+    message = pae(payload_type, payload)
+    signers: list[str] = []
+    for keyid, sig in decoded:
+        # The hint only orders the attempts; every trusted key may still be tried.
+        order = [keyid] if keyid in keys else []
+        for fp in order + [fp for fp in keys if fp != keyid]:
+            if fp in signers or len(sig) != 64:
+                continue
+            try:
+                keys[fp].verify(sig, message)
+            except InvalidSignature:
+                continue
+            signers.append(fp)
+            break
+    if len(signers) < threshold:
+        hints = ", ".join(k[:16] or "(none)" for k, _ in decoded)
+        raise VerificationError(
+            f"no valid signature by a trusted key ({len(signers)} of {threshold} needed; "
+            f"{len(decoded)} signature(s), keyid hints: {hints})"
+        )
+    allowed = set(payload_types)
+    if payload_type not in allowed:
+        raise VerificationError(f"unsupported payloadType {payload_type!r}")
+    return VerifiedEnvelope(payload, payload_type, tuple(signers))
+
+
+def verify_envelope(
+    envelope: Mapping[str, Any] | bytes | str,
+    trusted_public_keys: TrustedKeys,
+    *,
+    payload_types: Iterable[str] = (PAYLOAD_TYPE,),
+) -> bytes:
+    """Verify a DSSE envelope and return the verified payload bytes (see the detailed form)."""
+    return verify_envelope_detailed(
+        envelope, trusted_public_keys, payload_types=payload_types
+    ).payload

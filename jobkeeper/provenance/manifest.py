@@ -1,0 +1,269 @@
+"""Run manifests: in-toto Statement v1 with jobkeeper's own predicate type.
+
+The subject is the counts document (``counts.json``) by its SHA-256: the RFC 8785
+canonical JSON of the counts object. The signed bytes are the canonical JSON of the
+Statement, produced once here and never re-serialised afterwards.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import os
+import re
+import subprocess
+from collections.abc import Mapping
+from typing import Any, Literal
+
+from pydantic import BaseModel, ConfigDict, Field, field_validator
+from pydantic.alias_generators import to_camel
+
+from jobkeeper.exceptions import ProvenanceError, VerificationError
+from jobkeeper.hashing import canonical_json, sha256_tag
+from jobkeeper.provenance.dsse import strict_json_loads
+
+STATEMENT_TYPE = "https://in-toto.io/Statement/v1"
+# A namespace we control; in-toto asks only for a URI with the major version at its end.
+PREDICATE_TYPE = "https://jobkeeper.dev/attestation/run/v1"
+COUNTS_NAME = "counts.json"
+MAX_SAFE_INT = 2**53 - 1
+
+_HEX64 = re.compile(r"[0-9a-f]{64}")
+_RFC3339_Z = re.compile(r"\d{4}-\d{2}-\d{2}T\d{2}:\d{2}:\d{2}(\.\d{1,9})?Z")
+
+
+# ---------------------------------------------------------------------------------------
+# Predicate schema (lowerCamelCase on the wire, per the in-toto predicate guidelines)
+
+
+class _Model(BaseModel):
+    # Unknown fields are ignored, not refused: a v1 reader must accept later minor
+    # versions (in-toto's monotonic rule); our writers only emit known fields.
+    model_config = ConfigDict(
+        alias_generator=to_camel, populate_by_name=True, extra="ignore", frozen=True
+    )
+
+
+def _check_timestamp(value: str | None) -> str | None:
+    if value is not None and not _RFC3339_Z.fullmatch(value):
+        raise ValueError(f"{value!r} is not an RFC 3339 UTC timestamp ending in 'Z'")
+    return value
+
+
+class CircuitRecord(_Model):
+    canonical_text: str
+    hash: str
+    source_hash: str | None = None
+
+
+class BackendRecord(_Model):
+    name: str
+    kind: str
+    version: str
+    config_hash: str | None = None
+    calibration: dict[str, Any] | None = None
+
+
+class SoftwareRecord(_Model):
+    jobkeeper: str
+    python: str
+    numpy: str | None = None
+    platform: str
+
+
+class CodeVersion(_Model):
+    commit: str
+    dirty: bool
+    diff_hash: str
+
+
+class CodeVersionAbsent(_Model):
+    absent: Literal[True] = True
+
+
+class Timestamps(_Model):
+    submitted_on: str
+    started_on: str | None = None
+    finished_on: str | None = None
+
+    _ts = field_validator("submitted_on", "started_on", "finished_on")(_check_timestamp)
+
+
+class Attempt(_Model):
+    number: int
+    started_on: str
+    finished_on: str | None = None
+    outcome: str  # "done", "transient", "permanent", "cancelled", "lease-lost", ...
+    error_class: str | None = None
+    message: str | None = None
+
+    _ts = field_validator("started_on", "finished_on")(_check_timestamp)
+
+
+class RunPredicate(_Model):
+    """The predicate of ``https://jobkeeper.dev/attestation/run/v1``."""
+
+    job_key: str
+    circuit: CircuitRecord
+    parameters: dict[str, Any] = Field(default_factory=dict)
+    shots: int = Field(ge=0, le=MAX_SAFE_INT)
+    # A string: 64-bit seeds do not fit RFC 8785 numbers (|n| ≤ 2^53−1).
+    seed: str | None = None
+    backend: BackendRecord
+    software: SoftwareRecord
+    code_version: CodeVersion | CodeVersionAbsent
+    timestamps: Timestamps
+    attempts: list[Attempt] = Field(default_factory=list)
+    counts: dict[str, int]
+
+    @field_validator("seed")
+    @classmethod
+    def _seed_is_decimal(cls, value: str | None) -> str | None:
+        if value is not None and not re.fullmatch(r"-?(0|[1-9][0-9]*)", value):
+            raise ValueError("seed must be a decimal integer written as a string")
+        return value
+
+    def to_json(self) -> dict[str, Any]:
+        """The predicate as a JSON-ready dict with wire (camelCase) names."""
+        return self.model_dump(mode="json", by_alias=True)
+
+
+# ---------------------------------------------------------------------------------------
+# Statement
+
+
+def _check_counts(counts: Mapping[str, int]) -> dict[str, int]:
+    if not isinstance(counts, Mapping):
+        raise ProvenanceError("counts must be a mapping of bit string to count")
+    clean: dict[str, int] = {}
+    for key, value in counts.items():
+        if not isinstance(key, str):
+            raise ProvenanceError(f"counts key {key!r} is not a string")
+        if isinstance(value, bool) or not isinstance(value, int) or not 0 <= value <= MAX_SAFE_INT:
+            raise ProvenanceError(f"count of {key!r} is not an integer in 0..2^53−1: {value!r}")
+        clean[key] = value
+    return clean
+
+
+def counts_document(counts: Mapping[str, int]) -> bytes:
+    """The counts document: RFC 8785 canonical JSON of the counts object."""
+    return canonical_json(_check_counts(counts))
+
+
+def counts_digest(counts: Mapping[str, int]) -> str:
+    """Lowercase hex SHA-256 of the counts document (the subject digest)."""
+    return hashlib.sha256(counts_document(counts)).hexdigest()
+
+
+def build_statement(
+    counts: Mapping[str, int], predicate: Mapping[str, Any] | RunPredicate
+) -> dict[str, Any]:
+    """An in-toto Statement v1 whose subject is the counts document.
+
+    ``predicate`` may be a RunPredicate or a plain JSON-ready mapping. If it carries
+    ``counts``, they must equal ``counts`` (ProvenanceError otherwise), so the subject and
+    the raw counts in the predicate can never tell different stories.
+    """
+    pred = predicate.to_json() if isinstance(predicate, RunPredicate) else dict(predicate)
+    if "counts" in pred and pred["counts"] != dict(counts):
+        raise ProvenanceError("predicate counts differ from the counts being attested")
+    return {
+        "_type": STATEMENT_TYPE,
+        "subject": [{"name": COUNTS_NAME, "digest": {"sha256": counts_digest(counts)}}],
+        "predicateType": PREDICATE_TYPE,
+        "predicate": pred,
+    }
+
+
+def statement_bytes(statement: Mapping[str, Any]) -> bytes:
+    """The signed bytes of a Statement: RFC 8785 canonical JSON. ProvenanceError if the
+    statement holds something JSON cannot carry exactly (NaN, huge integers, ...)."""
+    try:
+        return canonical_json(dict(statement))
+    except Exception as exc:  # rfc8785 raises its own error types and TypeError
+        raise ProvenanceError(f"statement cannot be canonicalised: {exc}") from exc
+
+
+def parse_statement(
+    payload: bytes, *, predicate_types: tuple[str, ...] = (PREDICATE_TYPE,)
+) -> dict[str, Any]:
+    """Parse and check verified payload bytes as a Statement; VerificationError names the field."""
+    data = strict_json_loads(payload, "statement")
+    if not isinstance(data, dict):
+        raise VerificationError("statement is not a JSON object")
+    if data.get("_type") != STATEMENT_TYPE:
+        raise VerificationError(f"statement _type is {data.get('_type')!r}, not {STATEMENT_TYPE!r}")
+    subject = data.get("subject")
+    if not isinstance(subject, list) or not subject:
+        raise VerificationError("statement subject is missing or empty")
+    for i, item in enumerate(subject):
+        digest = item.get("digest") if isinstance(item, dict) else None
+        if not isinstance(digest, dict) or not digest:
+            raise VerificationError(f"statement subject[{i}] has no digest")
+        if "sha256" in digest and not (
+            isinstance(digest["sha256"], str) and _HEX64.fullmatch(digest["sha256"])
+        ):
+            raise VerificationError(
+                f"statement subject[{i}].digest.sha256 is not 64 lowercase hex digits"
+            )
+    if data.get("predicateType") not in predicate_types:
+        raise VerificationError(
+            f"statement predicateType {data.get('predicateType')!r} is not supported"
+        )
+    if not isinstance(data.get("predicate"), dict):
+        raise VerificationError("statement predicate is missing or not an object")
+    return data
+
+
+def verify_subject(envelope_payload: bytes, counts: Mapping[str, int]) -> None:
+    """Check that a verified Statement's counts.json subject digest equals the digest of
+    ``counts``. Raises VerificationError on any mismatch or malformed statement."""
+    check_subject(parse_statement(envelope_payload), counts)
+
+
+def check_subject(statement: Mapping[str, Any], counts: Mapping[str, int]) -> None:
+    """verify_subject for an already parsed (``parse_statement``) Statement."""
+    try:
+        want = counts_digest(counts)
+    except ProvenanceError as exc:
+        raise VerificationError(f"stored counts are malformed: {exc}") from exc
+    named = [s for s in statement["subject"] if s.get("name") == COUNTS_NAME]
+    if not named:
+        raise VerificationError(f"statement has no {COUNTS_NAME!r} subject")
+    got = named[0]["digest"].get("sha256")
+    if got != want:
+        raise VerificationError(
+            f"counts digest mismatch: statement says sha256:{got}, counts give sha256:{want}"
+        )
+
+
+# ---------------------------------------------------------------------------------------
+# The submitter's code version
+
+
+def git_code_version(path: str | os.PathLike[str], *, timeout: float = 5.0) -> dict[str, Any]:
+    """Commit, dirty flag and ``sha256:`` of ``git diff HEAD`` for the checkout at ``path``.
+
+    Returns ``{"absent": True}`` outside a checkout, without git, on a repository with no
+    commit, or when git is slow: recording the code version must never stop a submission.
+    ``dirty`` also counts untracked files; ``diffHash`` covers tracked changes only.
+    """
+    env = {**os.environ, "GIT_OPTIONAL_LOCKS": "0", "LC_ALL": "C", "GIT_PAGER": "cat"}
+
+    def git(*args: str) -> bytes:
+        done = subprocess.run(
+            ["git", "-C", os.fspath(path), *args],
+            capture_output=True,
+            timeout=timeout,
+            env=env,
+            check=True,
+            stdin=subprocess.DEVNULL,
+        )
+        return done.stdout
+
+    try:
+        commit = git("rev-parse", "--verify", "HEAD").decode("ascii").strip()
+        status = git("status", "--porcelain")
+        diff = git("diff", "HEAD", "--binary", "--no-ext-diff", "--no-color")
+    except (OSError, subprocess.SubprocessError, UnicodeDecodeError, ValueError):
+        return {"absent": True}
+    return {"commit": commit, "dirty": bool(status.strip()), "diffHash": sha256_tag(diff)}
