@@ -1,0 +1,105 @@
+"""The job state machine's policies: leases, heartbeats, retries and back-off.
+
+States (DESIGN §3)::
+
+    queued ──claim──▶ running ──start (remote)──▶ waiting ──claim (poll due)──▶ running
+      ▲                 │  │                         ▲                             │
+      └── transient ────┘  └──▶ done | failed | cancelled   └── still waiting ─────┘
+
+``running`` means a worker holds the lease; ``waiting`` means a device accepted the job and
+we poll it: a row with a next-poll time, not a held worker slot. A transient failure goes
+back to ``queued`` (``waiting`` when a remote handle was recorded) with ``not_before`` set
+by full-jitter exponential back-off; a delay the backend asks for wins. Polls that find the
+job still waiting use no attempt. The transactions themselves live in the store.
+"""
+
+from __future__ import annotations
+
+import random
+
+from pydantic import BaseModel, ConfigDict, Field
+
+from jobkeeper.store import (
+    CANCELLED,
+    DONE,
+    FAILED,
+    LIVE_STATES,
+    QUEUED,
+    RUNNING,
+    STATES,
+    TERMINAL_STATES,
+    WAITING,
+)
+
+__all__ = [
+    "CANCELLED",
+    "DEFAULT_LEASE",
+    "DEFAULT_POLL",
+    "DEFAULT_RETRY",
+    "DONE",
+    "FAILED",
+    "LIVE_STATES",
+    "QUEUED",
+    "RUNNING",
+    "STATES",
+    "TERMINAL_STATES",
+    "WAITING",
+    "LeasePolicy",
+    "PollPolicy",
+    "RetryPolicy",
+]
+
+#: A server's Retry-After beyond this is clamped (and the clamp is recorded).
+MAX_BACKEND_DELAY = 3600.0
+
+
+class RetryPolicy(BaseModel):
+    """Full-jitter exponential back-off: delay = uniform(0, min(cap, base · 2^attempt))."""
+
+    model_config = ConfigDict(frozen=True)
+
+    max_attempts: int = Field(default=10, ge=1)
+    base: float = Field(default=2.0, gt=0)
+    cap: float = Field(default=900.0, gt=0)
+
+    def delay(
+        self, attempt: int, *, backend_hint: float | None = None, rng: random.Random | None = None
+    ) -> float:
+        """Seconds to wait before attempt ``attempt + 1`` (``attempt`` counts from 1)."""
+        draw = (rng or random).uniform(0.0, min(self.cap, self.base * 2.0 ** max(attempt - 1, 0)))
+        if backend_hint is not None and backend_hint > 0:
+            # The device knows its own load: its hint wins over our guess.
+            return min(max(backend_hint, 0.0), MAX_BACKEND_DELAY)
+        return draw
+
+
+class LeasePolicy(BaseModel):
+    """Heartbeat 10 s, lease 60 s, sweep 15 s: a dead worker's jobs are back in the queue
+    within about heartbeat + lease + sweep ≈ 85 s, and a live one never loses its lease."""
+
+    model_config = ConfigDict(frozen=True)
+
+    lease: float = Field(default=60.0, gt=0)
+    heartbeat: float = Field(default=10.0, gt=0)
+    sweep: float = Field(default=15.0, gt=0)
+
+
+class PollPolicy(BaseModel):
+    """Adaptive polling of waiting jobs: start at ``first`` seconds, grow by ``factor``
+    each time the job is still waiting, up to ``cap``; a device's own hint wins."""
+
+    model_config = ConfigDict(frozen=True)
+
+    first: float = Field(default=2.0, gt=0)
+    factor: float = Field(default=1.5, ge=1.0)
+    cap: float = Field(default=60.0, gt=0)
+
+    def next_delay(self, polls_so_far: int, *, hint: float | None = None) -> float:
+        if hint is not None and hint >= 0:
+            return min(hint, MAX_BACKEND_DELAY)
+        return min(self.cap, self.first * self.factor**polls_so_far)
+
+
+DEFAULT_RETRY = RetryPolicy()
+DEFAULT_LEASE = LeasePolicy()
+DEFAULT_POLL = PollPolicy()

@@ -1,0 +1,310 @@
+"""The archive: the :class:`Store` protocol, its records, and :func:`open_store`.
+
+Two implementations share one protocol and one test suite: SQLite (``sqlite.py``, the
+embedded default, one file in the keep directory) and PostgreSQL (``postgres.py``, given
+as a ``postgresql://`` URL, for several workers on several machines).
+
+Rules every implementation keeps (DESIGN §4, notes on queue reliability):
+
+- every state change is one transaction, and nothing is ever deleted;
+- leases come from the database's clock, never a worker's;
+- every write by a worker after its claim is a compare-and-set on (job id, lease token);
+  a write that finds another token raises :class:`~jobkeeper.exceptions.LeaseLost` and
+  changes nothing;
+- a job's key is unique among live jobs (not failed or cancelled), enforced by a unique
+  index and ``INSERT … ON CONFLICT``, so racing submitters of one job get one job;
+- a result is archived at most once (the results table's primary key is the job id), in
+  the same transaction as the job's move to ``done`` and its log entry.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, Protocol
+
+# Job states (DESIGN §3).
+QUEUED = "queued"
+RUNNING = "running"
+WAITING = "waiting"
+DONE = "done"
+FAILED = "failed"
+CANCELLED = "cancelled"
+STATES = (QUEUED, RUNNING, WAITING, DONE, FAILED, CANCELLED)
+LIVE_STATES = (QUEUED, RUNNING, WAITING)
+TERMINAL_STATES = (DONE, FAILED, CANCELLED)
+
+
+@dataclass(frozen=True)
+class NewJob:
+    """A job to enqueue. ``spec`` is the JSON-ready description the worker needs to run it
+    and the manifest needs to describe it (canonical circuit text, hashes, options, ...)."""
+
+    id: str
+    job_key: str
+    backend: str
+    shots: int
+    seed: str | None
+    repeat: int
+    label: str | None
+    spec: Mapping[str, Any]
+    max_attempts: int
+    cost: float | None = None
+
+
+@dataclass(frozen=True)
+class JobRecord:
+    """One row of the jobs table. Times are seconds since the epoch, database clock."""
+
+    id: str
+    job_key: str
+    state: str
+    backend: str
+    shots: int
+    seed: str | None
+    repeat: int
+    label: str | None
+    spec: Mapping[str, Any]
+    created_at: float
+    updated_at: float
+    not_before: float
+    attempts: int
+    max_attempts: int
+    lease_owner: str | None
+    lease_token: int
+    lease_expires: float | None
+    handle: str | None
+    started_at: float | None
+    finished_at: float | None
+    error: str | None
+    cancel_requested: bool
+    cost: float | None
+
+
+@dataclass(frozen=True)
+class Claim:
+    """A job a worker now holds: ``token`` fences every later write. ``was`` is the state
+    the job was claimed from (``queued`` to start it, ``waiting`` to poll it)."""
+
+    job: JobRecord
+    token: int
+    was: str
+
+
+@dataclass(frozen=True)
+class Attempt:
+    """One failed try: when, what kind of error, what it said, and when to try again."""
+
+    job_id: str
+    number: int
+    at: float
+    error_class: str
+    message: str
+    retry_at: float | None = None
+
+
+@dataclass(frozen=True)
+class StoredResult:
+    job_id: str
+    counts: Mapping[str, int] | None
+    probabilities: Mapping[str, float] | None
+    metadata: Mapping[str, Any]
+    created_at: float
+
+
+@dataclass(frozen=True)
+class LogEntry:
+    """One entry of the Merkle log: a signed envelope (canonical JSON bytes)."""
+
+    index: int
+    job_id: str
+    envelope: bytes
+    leaf_hash: bytes
+    signer: str
+    created_at: float
+
+
+@dataclass(frozen=True)
+class StoredCheckpoint:
+    size: int
+    root: bytes
+    note: str
+    created_at: float
+
+
+@dataclass(frozen=True)
+class Completion:
+    """A finished job, ready to archive: the result and its signed envelope."""
+
+    job_id: str
+    token: int
+    result_counts: Mapping[str, int] | None
+    result_probabilities: Mapping[str, float] | None
+    metadata: Mapping[str, Any]
+    envelope: bytes
+    signer: str
+
+
+class LogAppender(Protocol):
+    """Provenance hook the store calls inside a finishing transaction: given the log's saved
+    state (None for an empty log), its size and the new envelopes, it returns the leaf
+    hashes, the new state and the signed checkpoint note for the new size and root."""
+
+    def __call__(
+        self, state: bytes | None, size: int, envelopes: Sequence[bytes]
+    ) -> tuple[list[bytes], bytes, bytes, str]:
+        """Return (leaf hashes, new state, new root, checkpoint note)."""
+        ...
+
+
+class Store(Protocol):
+    """The archive and the queue's durable state. See the module docstring for the rules."""
+
+    location: str
+
+    def now(self) -> float:
+        """The database clock, seconds since the epoch."""
+        ...
+
+    def enqueue(self, jobs: Sequence[NewJob]) -> list[tuple[JobRecord, bool]]:
+        """Insert jobs in one transaction. For each: (the job, True) when created, or (the
+        live job with the same key, False) when it already existed (deduplicated)."""
+        ...
+
+    def claim(
+        self,
+        owner: str,
+        *,
+        limit: int,
+        lease_seconds: float,
+        backends: Sequence[str] | None = None,
+        ids: Sequence[str] | None = None,
+    ) -> list[Claim]:
+        """Claim up to ``limit`` due jobs (queued to start, waiting to poll), oldest first,
+        in one short transaction; optionally only jobs of the named backends, or only the
+        jobs with the given ids."""
+        ...
+
+    def renew(self, owner: str, leases: Sequence[tuple[str, int]], lease_seconds: float) -> set[str]:
+        """Extend leases still held; return the ids whose lease this owner still holds."""
+        ...
+
+    def record_handle(self, job_id: str, token: int, handle: str, poll_after: float) -> None:
+        """A remote device accepted the job: store the handle, move to ``waiting``, release
+        the lease (a waiting job is a row with a next-poll time, not a held slot)."""
+        ...
+
+    def snooze(self, job_id: str, token: int, poll_after: float) -> None:
+        """Still waiting: poll again no sooner than ``poll_after`` seconds from now. No
+        attempt is used up."""
+        ...
+
+    def retry(self, job_id: str, token: int, error_class: str, message: str, delay: float) -> str:
+        """Record a failed attempt; back to ``queued`` (or ``waiting`` when a handle is
+        recorded) after ``delay`` seconds, or ``failed`` when out of attempts. Returns the
+        new state."""
+        ...
+
+    def fail(self, job_id: str, token: int, error_class: str, message: str) -> None:
+        """Record the attempt and end the job ``failed``."""
+        ...
+
+    def finish(
+        self, completions: Sequence[Completion], appender: LogAppender
+    ) -> list[bool]:
+        """Archive results, append their envelopes to the log and sign a checkpoint, all
+        in one transaction. Each completion is fenced on its token: one whose lease was
+        lost is skipped (False) and archives nothing."""
+        ...
+
+    def release(self, owner: str, leases: Sequence[tuple[str, int]]) -> None:
+        """Give leases back at shutdown, without using up an attempt."""
+        ...
+
+    def requeue_expired(self) -> int:
+        """Jobs whose lease expired go back to ``queued`` (or ``waiting`` when a handle was
+        recorded). One conditional update; returns how many."""
+        ...
+
+    def request_cancel(self, job_id: str) -> JobRecord:
+        """Cancel a queued job at once; ask the worker to cancel a running or waiting one."""
+        ...
+
+    def mark_cancelled(self, job_id: str, token: int) -> None: ...
+
+    def get(self, id_or_prefix: str) -> JobRecord:
+        """A job by id or unambiguous prefix (JobNotFound, AmbiguousJobId)."""
+        ...
+
+    def get_many(self, ids: Sequence[str]) -> list[JobRecord]: ...
+
+    def list_jobs(
+        self, *, label: str | None = None, state: str | None = None, limit: int | None = None
+    ) -> list[JobRecord]: ...
+
+    def counts_by_state(self) -> dict[str, int]: ...
+
+    def attempts(self, job_id: str) -> list[Attempt]: ...
+
+    def result(self, job_id: str) -> StoredResult | None: ...
+
+    def log_entry_for(self, job_id: str) -> LogEntry | None: ...
+
+    def log_entries(self, start: int = 0, end: int | None = None) -> list[LogEntry]: ...
+
+    def checkpoints(self) -> list[StoredCheckpoint]: ...
+
+    def register_key(self, fingerprint: str, public_key_b64: str) -> None:
+        """List a signing key's public half; the log names it as signer of its entries."""
+        ...
+
+    def public_keys(self) -> dict[str, str]:
+        """Every listed public key: fingerprint → base64 of the raw 32-byte key."""
+        ...
+
+    def spent(self, label: str | None = None) -> float:
+        """Total estimated cost of live and done jobs (of one label, or all)."""
+        ...
+
+    def get_meta(self, key: str) -> str | None: ...
+
+    def set_meta(self, key: str, value: str) -> None: ...
+
+    def close(self) -> None: ...
+
+
+def open_store(location: str | Path, *, create: bool = True) -> Store:
+    """Open the store at a ``postgresql://`` URL or a SQLite file path."""
+    text = str(location)
+    if text.startswith(("postgresql://", "postgres://")):
+        from jobkeeper.store.postgres import PostgresStore
+
+        return PostgresStore(text, create=create)
+    from jobkeeper.store.sqlite import SqliteStore
+
+    return SqliteStore(Path(text), create=create)
+
+
+__all__ = [
+    "CANCELLED",
+    "DONE",
+    "FAILED",
+    "LIVE_STATES",
+    "QUEUED",
+    "RUNNING",
+    "STATES",
+    "TERMINAL_STATES",
+    "WAITING",
+    "Attempt",
+    "Claim",
+    "Completion",
+    "JobRecord",
+    "LogAppender",
+    "LogEntry",
+    "NewJob",
+    "Store",
+    "StoredCheckpoint",
+    "StoredResult",
+    "open_store",
+]

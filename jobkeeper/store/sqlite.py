@@ -1,0 +1,466 @@
+"""The SQLite store: the embedded default, one database file in the keep directory.
+
+Durability: WAL with ``synchronous=FULL``, so a committed result survives power loss (the
+WAL is synced at every commit; ``NORMAL`` would only survive a crash of the process).
+Every write transaction starts with ``BEGIN IMMEDIATE``: a deferred transaction that
+later writes fails with "database is locked" at once, whatever the busy timeout.
+
+Locking fairness: SQLite's own busy handler sleeps in growing steps, and a writer that
+keeps coming back can starve another for seconds. We keep SQLite's handler short and
+retry ourselves with small random sleeps, so waiting writers get their turn at random.
+"""
+
+from __future__ import annotations
+
+import json
+import random
+import sqlite3
+import threading
+import time
+from collections.abc import Iterator, Mapping, Sequence
+from contextlib import contextmanager
+from pathlib import Path
+from typing import Any
+
+import sqlite_utils
+
+from jobkeeper.exceptions import (
+    AmbiguousJobId,
+    ConfigError,
+    JobNotFound,
+    LeaseLost,
+    StoreUnavailable,
+)
+from jobkeeper.store import (
+    Attempt,
+    Claim,
+    Completion,
+    JobRecord,
+    LogAppender,
+    LogEntry,
+    NewJob,
+    StoredCheckpoint,
+    StoredResult,
+)
+from jobkeeper.store import _sql as sql
+
+NOW = "((julianday('now') - 2440587.5) * 86400.0)"
+BUSY_DEADLINE_SECONDS = 60.0
+
+
+def _q(statement: str, **extra: str) -> str:
+    return statement.replace("{now}", NOW).format(**extra) if extra else statement.replace(
+        "{now}", NOW
+    )
+
+
+def _record(row: Sequence[Any]) -> JobRecord:
+    (id_, key, state, backend, shots, seed, repeat, label, spec, created, updated, not_before,
+     attempts, max_attempts, owner, token, expires, handle, started, finished, error,
+     cancel, cost) = row
+    return JobRecord(
+        id=id_, job_key=key, state=state, backend=backend, shots=shots, seed=seed,
+        repeat=repeat, label=label, spec=json.loads(spec), created_at=created,
+        updated_at=updated, not_before=not_before, attempts=attempts,
+        max_attempts=max_attempts, lease_owner=owner, lease_token=token,
+        lease_expires=expires, handle=handle, started_at=started, finished_at=finished,
+        error=error, cancel_requested=bool(cancel), cost=cost,
+    )  # fmt: skip
+
+
+class SqliteStore:
+    """The archive in one SQLite file. Safe for several processes on one machine (not on a
+    network file system); one connection per store object, used by one thread at a time."""
+
+    def __init__(self, path: Path, *, create: bool = True) -> None:
+        self.path = Path(path)
+        self.location = str(self.path)
+        if not self.path.exists() and not create:
+            raise StoreUnavailable(f"no archive at {self.path} (run 'jobkeeper init' first)")
+        try:
+            self.path.parent.mkdir(parents=True, exist_ok=True)
+            conn = sqlite3.connect(
+                self.path, timeout=0.05, isolation_level=None, check_same_thread=False
+            )
+            conn.execute("PRAGMA journal_mode=WAL")
+            conn.execute("PRAGMA synchronous=FULL")
+            conn.execute("PRAGMA foreign_keys=ON")
+        except (OSError, sqlite3.Error) as exc:
+            raise StoreUnavailable(f"cannot open the archive at {self.path}: {exc}") from exc
+        self._conn = conn
+        self._db = sqlite_utils.Database(conn)
+        self._lock = threading.RLock()
+        self._migrate()
+
+    # -- plumbing -----------------------------------------------------------------------
+
+    @contextmanager
+    def _write(self) -> Iterator[sqlite3.Connection]:
+        """One write transaction, opened with BEGIN IMMEDIATE, retried on a busy database
+        with short random sleeps until a deadline."""
+        deadline = time.monotonic() + BUSY_DEADLINE_SECONDS
+        with self._lock:
+            while True:
+                try:
+                    self._conn.execute("BEGIN IMMEDIATE")
+                    break
+                except sqlite3.OperationalError as exc:
+                    if "locked" not in str(exc) and "busy" not in str(exc):
+                        raise StoreUnavailable(f"archive error: {exc}") from exc
+                    if time.monotonic() > deadline:
+                        raise StoreUnavailable(
+                            f"the archive at {self.path} stayed locked for "
+                            f"{BUSY_DEADLINE_SECONDS:.0f} s"
+                        ) from exc
+                    time.sleep(random.uniform(0.0005, 0.004))
+            try:
+                yield self._conn
+            except BaseException:
+                self._conn.execute("ROLLBACK")
+                raise
+            else:
+                self._commit()
+
+    def _commit(self) -> None:
+        deadline = time.monotonic() + BUSY_DEADLINE_SECONDS
+        while True:
+            try:
+                self._conn.execute("COMMIT")
+                return
+            except sqlite3.OperationalError as exc:
+                if "locked" not in str(exc) and "busy" not in str(exc):
+                    self._conn.execute("ROLLBACK")
+                    raise StoreUnavailable(f"archive error: {exc}") from exc
+                if time.monotonic() > deadline:
+                    self._conn.execute("ROLLBACK")
+                    raise StoreUnavailable(f"the archive at {self.path} stayed locked") from exc
+                time.sleep(random.uniform(0.0005, 0.004))
+
+    def _read(self, statement: str, params: Sequence[Any] = ()) -> list[Any]:
+        deadline = time.monotonic() + BUSY_DEADLINE_SECONDS
+        with self._lock:
+            while True:
+                try:
+                    return self._conn.execute(_q(statement), params).fetchall()
+                except sqlite3.OperationalError as exc:
+                    if "locked" not in str(exc) or time.monotonic() > deadline:
+                        raise StoreUnavailable(f"archive error: {exc}") from exc
+                    time.sleep(random.uniform(0.0005, 0.004))
+
+    def _migrate(self) -> None:
+        try:
+            with self._write() as conn:
+                conn.execute("CREATE TABLE IF NOT EXISTS meta (key TEXT PRIMARY KEY, value TEXT)")
+                row = conn.execute("SELECT value FROM meta WHERE key = 'schema_version'").fetchone()
+                version = int(row[0]) if row else 0
+                if version > sql.SCHEMA_VERSION:
+                    raise ConfigError(
+                        f"the archive at {self.path} has schema version {version}, newer than "
+                        f"this jobkeeper understands ({sql.SCHEMA_VERSION}); upgrade jobkeeper"
+                    )
+                for step in sql.MIGRATIONS[version:]:
+                    for statement in step:
+                        conn.execute(statement.replace("BYTEA", "BLOB"))
+                conn.execute(
+                    "INSERT INTO meta (key, value) VALUES ('schema_version', ?) "
+                    "ON CONFLICT (key) DO UPDATE SET value = excluded.value",
+                    (str(sql.SCHEMA_VERSION),),
+                )
+        except sqlite3.Error as exc:
+            raise StoreUnavailable(f"cannot prepare the archive at {self.path}: {exc}") from exc
+
+    # -- queue ----------------------------------------------------------------------------
+
+    def now(self) -> float:
+        return float(self._read(f"SELECT {NOW}")[0][0])
+
+    def enqueue(self, jobs: Sequence[NewJob]) -> list[tuple[JobRecord, bool]]:
+        out: list[tuple[JobRecord, bool]] = []
+        with self._write() as conn:
+            for job in jobs:
+                row = conn.execute(
+                    _q(sql.INSERT_JOB),
+                    (job.id, job.job_key, job.backend, job.shots, job.seed, job.repeat,
+                     job.label, json.dumps(dict(job.spec), sort_keys=True), job.max_attempts,
+                     job.cost),
+                ).fetchone()  # fmt: skip
+                if row is not None:
+                    out.append((_record(row), True))
+                    continue
+                existing = conn.execute(sql.SELECT_LIVE_BY_KEY, (job.job_key,)).fetchone()
+                out.append((_record(existing), False))
+        return out
+
+    def claim(
+        self,
+        owner: str,
+        *,
+        limit: int,
+        lease_seconds: float,
+        backends: Sequence[str] | None = None,
+        ids: Sequence[str] | None = None,
+    ) -> list[Claim]:
+        if limit <= 0:
+            return []
+        params: list[Any] = [owner, lease_seconds]
+        backend_filter = ""
+        for column, values in (("backend", backends), ("id", ids)):
+            if values is None:
+                continue
+            if not values:
+                return []
+            backend_filter += f" AND {column} IN ({', '.join('?' for _ in values)})"
+            params.extend(values)
+        params.append(limit)
+        statement = _q(sql.CLAIM, backend_filter=backend_filter, lock="")
+        with self._write() as conn:
+            rows = conn.execute(statement, params).fetchall()
+        claims = [_record(row) for row in rows]
+        claims.sort(key=lambda job: job.not_before)
+        return [
+            Claim(job=job, token=job.lease_token, was="waiting" if job.handle else "queued")
+            for job in claims
+        ]
+
+    def renew(self, owner: str, leases: Sequence[tuple[str, int]], lease_seconds: float) -> set[str]:
+        held: set[str] = set()
+        with self._write() as conn:
+            for job_id, token in leases:
+                cur = conn.execute(_q(sql.RENEW), (lease_seconds, job_id, token, owner))
+                if cur.rowcount == 1:
+                    held.add(job_id)
+        return held
+
+    def _fenced(self, statement: str, params: Sequence[Any], job_id: str) -> None:
+        with self._write() as conn:
+            if conn.execute(_q(statement), params).rowcount != 1:
+                raise LeaseLost(f"job {job_id}: lease lost, another worker holds it now")
+
+    def record_handle(self, job_id: str, token: int, handle: str, poll_after: float) -> None:
+        self._fenced(sql.RECORD_HANDLE, (handle, poll_after, job_id, token), job_id)
+
+    def snooze(self, job_id: str, token: int, poll_after: float) -> None:
+        self._fenced(sql.SNOOZE, (poll_after, job_id, token), job_id)
+
+    def retry(self, job_id: str, token: int, error_class: str, message: str, delay: float) -> str:
+        with self._write() as conn:
+            inserted = conn.execute(
+                _q(sql.INSERT_ATTEMPT), (error_class, message, delay, job_id, token)
+            ).rowcount
+            row = conn.execute(_q(sql.RETRY), (message, delay, job_id, token)).fetchone()
+            if inserted != 1 or row is None:
+                raise LeaseLost(f"job {job_id}: lease lost, another worker holds it now")
+            return str(row[0])
+
+    def fail(self, job_id: str, token: int, error_class: str, message: str) -> None:
+        with self._write() as conn:
+            inserted = conn.execute(
+                _q(sql.INSERT_ATTEMPT), (error_class, message, None, job_id, token)
+            ).rowcount
+            if inserted != 1 or conn.execute(_q(sql.FAIL), (message, job_id, token)).rowcount != 1:
+                raise LeaseLost(f"job {job_id}: lease lost, another worker holds it now")
+
+    def finish(self, completions: Sequence[Completion], appender: LogAppender) -> list[bool]:
+        done: list[bool] = []
+        with self._write() as conn:
+            accepted: list[Completion] = []
+            for item in completions:
+                ok = conn.execute(_q(sql.FINISH), (item.job_id, item.token)).rowcount == 1
+                done.append(ok)
+                if not ok:
+                    continue
+                conn.execute(
+                    _q(sql.INSERT_RESULT),
+                    (item.job_id,
+                     None if item.result_counts is None else json.dumps(dict(item.result_counts)),
+                     None if item.result_probabilities is None
+                     else json.dumps(dict(item.result_probabilities)),
+                     json.dumps(dict(item.metadata), sort_keys=True)),
+                )  # fmt: skip
+                accepted.append(item)
+            if accepted:
+                self._append_log(conn, accepted, appender)
+        return done
+
+    def _append_log(
+        self, conn: sqlite3.Connection, items: Sequence[Completion], appender: LogAppender
+    ) -> None:
+        row = conn.execute("SELECT size, state FROM log_state WHERE id = 1").fetchone()
+        size, state = (int(row[0]), bytes(row[1])) if row else (0, None)
+        leaves, new_state, root, note = appender(state, size, [c.envelope for c in items])
+        for offset, (item, leaf) in enumerate(zip(items, leaves, strict=True)):
+            conn.execute(
+                _q(sql.INSERT_LOG_ENTRY),
+                (size + offset, item.job_id, item.envelope, leaf, item.signer),
+            )
+        new_size = size + len(items)
+        conn.execute(
+            "INSERT INTO log_state (id, size, state) VALUES (1, ?, ?) "
+            "ON CONFLICT (id) DO UPDATE SET size = excluded.size, state = excluded.state",
+            (new_size, new_state),
+        )
+        conn.execute(
+            _q("INSERT INTO checkpoints (size, root, note, created_at) VALUES (?, ?, ?, {now})"),
+            (new_size, root, note),
+        )
+
+    def release(self, owner: str, leases: Sequence[tuple[str, int]]) -> None:
+        with self._write() as conn:
+            for job_id, token in leases:
+                conn.execute(_q(sql.RELEASE), (job_id, token, owner))
+
+    def requeue_expired(self) -> int:
+        with self._write() as conn:
+            return int(conn.execute(_q(sql.REQUEUE_EXPIRED)).rowcount)
+
+    def request_cancel(self, job_id: str) -> JobRecord:
+        with self._write() as conn:
+            if conn.execute(_q(sql.CANCEL_QUEUED), (job_id,)).rowcount == 0:
+                conn.execute(_q(sql.REQUEST_CANCEL), (job_id,))
+        return self.get(job_id)
+
+    def mark_cancelled(self, job_id: str, token: int) -> None:
+        self._fenced(sql.MARK_CANCELLED, (job_id, token), job_id)
+
+    # -- reading --------------------------------------------------------------------------
+
+    def get(self, id_or_prefix: str) -> JobRecord:
+        text = id_or_prefix.strip().lower()
+        if not text or any(ch not in "0123456789abcdef" for ch in text):
+            raise JobNotFound(f"no job {id_or_prefix!r}: a job id is hexadecimal")
+        rows = self._read(
+            f"SELECT {sql.JOB_COLUMNS} FROM jobs WHERE id >= ? AND id < ? ORDER BY id LIMIT 2",
+            (text, text + "g"),
+        )
+        if not rows:
+            raise JobNotFound(f"no job matches {id_or_prefix!r}")
+        if len(rows) > 1 and rows[0][0] != text:
+            raise AmbiguousJobId(
+                f"{id_or_prefix!r} matches several jobs; give more characters of the id"
+            )
+        return _record(rows[0])
+
+    def get_many(self, ids: Sequence[str]) -> list[JobRecord]:
+        out: list[JobRecord] = []
+        for start in range(0, len(ids), 500):
+            chunk = list(ids[start : start + 500])
+            marks = ", ".join("?" for _ in chunk)
+            rows = self._read(f"SELECT {sql.JOB_COLUMNS} FROM jobs WHERE id IN ({marks})", chunk)
+            out.extend(_record(row) for row in rows)
+        order = {job_id: i for i, job_id in enumerate(ids)}
+        out.sort(key=lambda job: order[job.id])
+        return out
+
+    def list_jobs(
+        self, *, label: str | None = None, state: str | None = None, limit: int | None = None
+    ) -> list[JobRecord]:
+        where, params = [], []
+        if label is not None:
+            where.append("label = ?")
+            params.append(label)
+        if state is not None:
+            where.append("state = ?")
+            params.append(state)
+        clause = f"WHERE {' AND '.join(where)}" if where else ""
+        tail = f"LIMIT {int(limit)}" if limit else ""
+        rows = self._read(
+            f"SELECT {sql.JOB_COLUMNS} FROM jobs {clause} ORDER BY created_at, id {tail}", params
+        )
+        return [_record(row) for row in rows]
+
+    def counts_by_state(self) -> dict[str, int]:
+        return {row[0]: int(row[1]) for row in self._read(
+            "SELECT state, COUNT(*) FROM jobs GROUP BY state")}  # fmt: skip
+
+    def attempts(self, job_id: str) -> list[Attempt]:
+        rows = self._read(
+            "SELECT job_id, number, at, error_class, message, retry_at FROM attempts "
+            "WHERE job_id = ? ORDER BY number",
+            (job_id,),
+        )
+        return [Attempt(*row) for row in rows]
+
+    def result(self, job_id: str) -> StoredResult | None:
+        rows = self._read(
+            "SELECT job_id, counts, probabilities, metadata, created_at FROM results "
+            "WHERE job_id = ?",
+            (job_id,),
+        )
+        if not rows:
+            return None
+        job, counts, probabilities, metadata, created = rows[0]
+        return StoredResult(
+            job_id=job,
+            counts=None if counts is None else json.loads(counts),
+            probabilities=None if probabilities is None else json.loads(probabilities),
+            metadata=json.loads(metadata),
+            created_at=created,
+        )
+
+    def log_entry_for(self, job_id: str) -> LogEntry | None:
+        rows = self._read(
+            "SELECT idx, job_id, envelope, leaf_hash, signer, created_at FROM log_entries "
+            "WHERE job_id = ?",
+            (job_id,),
+        )
+        return _entry(rows[0]) if rows else None
+
+    def log_entries(self, start: int = 0, end: int | None = None) -> list[LogEntry]:
+        rows = self._read(
+            "SELECT idx, job_id, envelope, leaf_hash, signer, created_at FROM log_entries "
+            "WHERE idx >= ? AND idx < ? ORDER BY idx",
+            (start, end if end is not None else 2**62),
+        )
+        return [_entry(row) for row in rows]
+
+    def checkpoints(self) -> list[StoredCheckpoint]:
+        rows = self._read("SELECT size, root, note, created_at FROM checkpoints ORDER BY size")
+        return [StoredCheckpoint(int(s), bytes(r), n, c) for s, r, n, c in rows]
+
+    def register_key(self, fingerprint: str, public_key_b64: str) -> None:
+        with self._write() as conn:
+            conn.execute(
+                _q("INSERT INTO public_keys (fingerprint, public_key, created_at) "
+                   "VALUES (?, ?, {now}) ON CONFLICT (fingerprint) DO NOTHING"),
+                (fingerprint, public_key_b64),
+            )  # fmt: skip
+
+    def public_keys(self) -> dict[str, str]:
+        rows = self._read("SELECT fingerprint, public_key FROM public_keys ORDER BY created_at")
+        return {fp: key for fp, key in rows}
+
+    def spent(self, label: str | None = None) -> float:
+        clause, params = "WHERE state IN ('queued', 'running', 'waiting', 'done')", []
+        if label is not None:
+            clause += " AND label = ?"
+            params.append(label)
+        return float(self._read(f"SELECT COALESCE(SUM(cost), 0) FROM jobs {clause}", params)[0][0])
+
+    def get_meta(self, key: str) -> str | None:
+        rows = self._read("SELECT value FROM meta WHERE key = ?", (key,))
+        return str(rows[0][0]) if rows else None
+
+    def set_meta(self, key: str, value: str) -> None:
+        with self._write() as conn:
+            conn.execute(
+                "INSERT INTO meta (key, value) VALUES (?, ?) "
+                "ON CONFLICT (key) DO UPDATE SET value = excluded.value",
+                (key, value),
+            )
+
+    def close(self) -> None:
+        with self._lock:
+            self._conn.close()
+
+    def __enter__(self) -> SqliteStore:
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.close()
+
+
+def _entry(row: Sequence[Any]) -> LogEntry:
+    idx, job_id, envelope, leaf, signer, created = row
+    return LogEntry(int(idx), job_id, bytes(envelope), bytes(leaf), signer, created)
+
+
