@@ -1,0 +1,5 @@
+import sys
+
+from jobkeeper.cli import main
+
+sys.exit(main())

@@ -1,0 +1,87 @@
+"""Plain-text and JSON rendering for the command line (no logic, no I/O beyond strings)."""
+
+from __future__ import annotations
+
+import datetime as dt
+from collections.abc import Mapping
+from typing import Any
+
+from jobkeeper.store import JobRecord
+
+BAR_WIDTH = 40
+SMALL_SHOTS = 100
+
+
+def when(seconds: float | None) -> str:
+    if seconds is None:
+        return "-"
+    return dt.datetime.fromtimestamp(seconds, tz=dt.UTC).strftime("%Y-%m-%d %H:%M:%S UTC")
+
+
+def when_iso(seconds: float | None) -> str | None:
+    if seconds is None:
+        return None
+    return dt.datetime.fromtimestamp(seconds, tz=dt.UTC).isoformat().replace("+00:00", "Z")
+
+
+def job_json(job: JobRecord) -> dict[str, Any]:
+    spec = job.spec
+    return {
+        "id": job.id,
+        "job_key": job.job_key,
+        "state": job.state,
+        "backend": job.backend,
+        "shots": job.shots,
+        "seed": job.seed,
+        "repeat": job.repeat,
+        "label": job.label,
+        "circuit_hash": spec.get("circuitHash"),
+        "source": spec.get("sourceName"),
+        "created_at": when_iso(job.created_at),
+        "started_at": when_iso(job.started_at),
+        "finished_at": when_iso(job.finished_at),
+        "attempts": job.attempts,
+        "error": job.error,
+        "cost": job.cost,
+        "remote_handle": job.handle,
+    }
+
+
+def bar_chart(values: Mapping[str, float], *, total: float | None = None, limit: int = 32) -> str:
+    """A horizontal bar chart of counts or probabilities, largest first."""
+    if not values:
+        return "(no outcomes)"
+    total = total if total is not None else float(sum(values.values())) or 1.0
+    items = sorted(values.items(), key=lambda kv: (-kv[1], kv[0]))
+    shown = items[:limit]
+    width = max(len(key) for key, _ in shown)
+    peak = max(value for _, value in shown) or 1.0
+    lines = []
+    for key, value in shown:
+        bar = "█" * max(1, round(BAR_WIDTH * value / peak)) if value > 0 else ""
+        number = f"{value:>8d}" if isinstance(value, int) else f"{value:8.6f}"
+        lines.append(f"  {key:<{width}}  {number}  {100.0 * value / total:6.2f}%  {bar}")
+    if len(items) > limit:
+        rest = sum(value for _, value in items[limit:])
+        lines.append(f"  … {len(items) - limit} more outcomes ({100.0 * rest / total:.2f}%)")
+    return "\n".join(lines)
+
+
+def shots_warning(shots: int) -> str | None:
+    if shots < SMALL_SHOTS:
+        return (
+            f"note: {shots} shots is a small sample; frequencies can be far from the "
+            "probabilities (the standard error of a frequency near 0.5 is "
+            f"about {0.5 / shots**0.5:.2f})"
+        )
+    return None
+
+
+def table(rows: list[list[str]], headers: list[str]) -> str:
+    widths = [len(h) for h in headers]
+    for row in rows:
+        widths = [max(w, len(cell)) for w, cell in zip(widths, row, strict=True)]
+    lines = ["  ".join(h.ljust(w) for h, w in zip(headers, widths, strict=True)).rstrip()]
+    for row in rows:
+        lines.append("  ".join(c.ljust(w) for c, w in zip(row, widths, strict=True)).rstrip())
+    return "\n".join(lines)

@@ -1,0 +1,90 @@
+"""The keep directory and its ``config.toml``.
+
+A keep holds everything of one archive: ``archive.db`` (the SQLite store, unless the
+config or ``--store`` names a PostgreSQL URL), ``config.toml`` (backends, budgets,
+defaults) and ``keys/`` (the signing keys). The command line finds it with ``--keep`` or
+``JOBKEEPER_KEEP`` (default ``./.jobkeeper``); the library is always told the path.
+"""
+
+from __future__ import annotations
+
+import tomllib
+from pathlib import Path
+from typing import Any
+
+from pydantic import BaseModel, ConfigDict, Field, ValidationError
+
+from jobkeeper.exceptions import ConfigError
+
+DEFAULT_KEEP = Path(".jobkeeper")
+CONFIG_NAME = "config.toml"
+ARCHIVE_NAME = "archive.db"
+KEYS_DIR = "keys"
+
+CONFIG_TEMPLATE = """\
+# jobkeeper keep configuration. Every key is optional.
+
+[defaults]
+shots = 1024
+max_attempts = 10
+
+# Spending caps, in the currency of the backends' pricing. 'submit' refuses a job that
+# would pass one (unless --over-budget) and says how much is left.
+# [budget]
+# total = 100.0
+# [budget.labels]
+# my-label = 20.0
+
+# Backends beyond the built-in 'statevector'. Examples:
+# [backends.noisy]
+# adapter = "densitymatrix"
+# depolarizing_1q = 0.001
+# depolarizing_2q = 0.01
+# readout_error = 0.02
+#
+# [backends.rehearsal]
+# adapter = "rest"
+# profile = "loopback"
+# url = "http://127.0.0.1:8765"
+# token_env = "JOBKEEPER_LOOPBACK_TOKEN"
+"""
+
+
+class Defaults(BaseModel):
+    model_config = ConfigDict(extra="forbid")
+
+    shots: int = Field(default=1024, ge=1)
+    max_attempts: int = Field(default=10, ge=1)
+    backend: str = "statevector"
+
+
+class Budget(BaseModel):
+    model_config = ConfigDict(extra="forbid")
+
+    total: float | None = Field(default=None, ge=0)
+    labels: dict[str, float] = Field(default_factory=dict)
+
+
+class KeepConfig(BaseModel):
+    model_config = ConfigDict(extra="forbid")
+
+    store: str | None = None
+    defaults: Defaults = Field(default_factory=Defaults)
+    budget: Budget = Field(default_factory=Budget)
+    backends: dict[str, dict[str, Any]] = Field(default_factory=dict)
+
+
+def load_config(keep: Path) -> KeepConfig:
+    path = keep / CONFIG_NAME
+    if not path.exists():
+        return KeepConfig()
+    try:
+        data = tomllib.loads(path.read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError, tomllib.TOMLDecodeError) as exc:
+        raise ConfigError(f"{path}: cannot read the configuration: {exc}") from exc
+    try:
+        return KeepConfig.model_validate(data)
+    except ValidationError as exc:
+        first = exc.errors()[0]
+        where = ".".join(str(part) for part in first["loc"])
+        raise ConfigError(f"{path}: {where}: {first['msg']}") from exc

@@ -1,0 +1,93 @@
+"""What ``jobkeeper show`` says about one job: what ran, where, when, from which code,
+its attempts, its result and whether its provenance verifies."""
+
+from __future__ import annotations
+
+import json
+from dataclasses import dataclass
+from typing import TYPE_CHECKING, Any
+
+from jobkeeper._render import bar_chart, job_json, shots_warning, when
+
+if TYPE_CHECKING:
+    from jobkeeper.keeper import Job, Keeper
+
+
+@dataclass
+class JobDetails:
+    data: dict[str, Any]
+    text: str
+
+
+def describe_job(keeper: Keeper, job: Job) -> JobDetails:
+    from jobkeeper.verification import verify_jobs
+
+    record = job.record
+    data = job_json(record)
+    data["circuit"] = record.spec.get("circuit")
+    data["source_hash"] = record.spec.get("sourceHash")
+    data["code_version"] = record.spec.get("codeVersion")
+    data["options"] = record.spec.get("options", {})
+    data["attempt_history"] = [
+        {"number": a.number, "at": when(a.at), "error_class": a.error_class, "message": a.message}
+        for a in job.attempts
+    ]
+    result = job.result
+    if result is not None:
+        data["counts"] = None if result.counts is None else dict(result.counts)
+        data["probabilities"] = (
+            None if result.probabilities is None else dict(result.probabilities)
+        )
+        data["result_metadata"] = dict(result.metadata)
+    entry = job.log_entry
+    if entry is not None:
+        data["envelope"] = json.loads(entry.envelope)
+        data["log_index"] = entry.index
+        data["signer"] = entry.signer
+        report = verify_jobs(keeper, [record.id])
+        data["verification"] = {"ok": report.ok, "problems": list(report.problems)}
+    return JobDetails(data=data, text=_text(data))
+
+
+def _text(d: dict[str, Any]) -> str:
+    lines = [
+        f"job {d['id']}",
+        f"  state      {d['state']}" + (f" ({d['error']})" if d.get("error") else ""),
+        f"  backend    {d['backend']}",
+        f"  shots      {d['shots']}   seed {d.get('result_metadata', {}).get('seed', d['seed'])}"
+        f"   repeat {d['repeat']}",
+        f"  label      {d['label'] or '-'}",
+        f"  source     {d['source'] or '-'}  ({d['source_hash'] or 'no source hash'})",
+        f"  circuit    {d['circuit_hash']}",
+        f"  job key    {d['job_key']}",
+        f"  submitted  {d['created_at']}",
+        f"  started    {d['started_at'] or '-'}",
+        f"  finished   {d['finished_at'] or '-'}",
+    ]
+    code = d.get("code_version") or {}
+    if code.get("commit"):
+        dirty = " (uncommitted changes)" if code.get("dirty") else ""
+        lines.append(f"  code       git {code['commit']}{dirty}")
+    else:
+        lines.append("  code       not submitted from a git checkout")
+    if d["attempt_history"]:
+        lines.append("  attempts:")
+        for a in d["attempt_history"]:
+            lines.append(f"    {a['number']}. {a['at']}  {a['error_class']}: {a['message']}")
+    if d.get("probabilities") is not None:
+        lines.append("  exact probabilities:")
+        lines.append(bar_chart(d["probabilities"], total=1.0))
+    elif d.get("counts") is not None:
+        lines.append("  counts:")
+        lines.append(bar_chart(d["counts"]))
+        warning = shots_warning(int(d["shots"]))
+        if warning:
+            lines.append("  " + warning)
+    if "verification" in d:
+        v = d["verification"]
+        status = "verified" if v["ok"] else "VERIFICATION FAILED"
+        lines.append(f"  provenance {status}: log entry {d['log_index']}, signed by {d['signer'][:16]}…")
+        lines += [f"    - {p}" for p in v["problems"]]
+    elif d["state"] == "done":
+        lines.append("  provenance MISSING: no log entry for this done job")
+    return "\n".join(lines)

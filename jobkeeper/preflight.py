@@ -1,0 +1,127 @@
+"""Pre-flight: will a circuit run on a backend, what will it cost, and is there any hope
+of signal? (``jobkeeper check``.)"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import TYPE_CHECKING, Any
+
+from jobkeeper.circuit import CircuitMetrics, circuit_hash, load_qasm, metrics
+from jobkeeper.circuit.ir import NON_GATE_OPERATIONS
+
+if TYPE_CHECKING:
+    from jobkeeper.keeper import Keeper
+
+#: Below this estimated probability of an error-free run, results are mostly noise.
+NOISE_WARNING = 0.01
+
+
+@dataclass
+class PreflightReport:
+    file: str
+    circuit_hash: str
+    backend: str
+    metrics: CircuitMetrics
+    fits: bool
+    problems: list[str] = field(default_factory=list)
+    warnings: list[str] = field(default_factory=list)
+    success_probability: float | None = None
+    log10_success_probability: float | None = None
+    cost: float | None = None
+    currency: str | None = None
+    shots: int = 0
+
+    def to_json(self) -> dict[str, Any]:
+        return {
+            "file": self.file,
+            "circuit_hash": self.circuit_hash,
+            "backend": self.backend,
+            "fits": self.fits,
+            "problems": self.problems,
+            "metrics": self.metrics.to_json(),
+            "success_probability": self.success_probability,
+            "log10_success_probability": self.log10_success_probability,
+            "shots": self.shots,
+            "cost": self.cost,
+            "currency": self.currency,
+            "warnings": self.warnings,
+        }
+
+    def summary(self) -> str:
+        m = self.metrics
+        lines = [
+            f"{self.file}: {self.circuit_hash}",
+            f"  qubits {m.num_qubits} (used {m.qubits_used}), bits {m.num_clbits}, "
+            f"depth {m.depth}, two-qubit operations {m.two_qubit_ops}",
+            "  operations: " + ", ".join(f"{k} {v}" for k, v in sorted(m.op_counts.items())),
+            f"  measurements all terminal: {'yes' if m.terminal_measurements else 'no'}",
+            f"  backend {self.backend}: " + ("fits" if self.fits else "does NOT fit"),
+        ]
+        lines += [f"    - {p}" for p in self.problems]
+        if self.success_probability is not None:
+            lines.append(f"  estimated probability of an error-free run: {_prob(self)}")
+        if self.cost is not None:
+            lines.append(f"  estimated cost for {self.shots} shots: {self.cost:.4g} {self.currency}")
+        lines += [f"  WARNING: {w}" for w in self.warnings]
+        return "\n".join(lines)
+
+
+def _prob(report: PreflightReport) -> str:
+    p = report.success_probability
+    if p is None:
+        return "-"
+    if p > 0:
+        return f"{p:.4g}"
+    return f"10^{report.log10_success_probability:.1f}"
+
+
+def preflight(
+    keeper: Keeper, file: Path, *, backend: str | None = None, shots: int | None = None
+) -> PreflightReport:
+    circuit = load_qasm(file)
+    name = backend or keeper.config.defaults.backend
+    the_backend = keeper.backend(name)
+    info = the_backend.info
+    m = metrics(circuit)
+    shots = shots or keeper.config.defaults.shots
+    report = PreflightReport(
+        file=str(file), circuit_hash=circuit_hash(circuit), backend=name, metrics=m,
+        fits=True, shots=shots,
+    )  # fmt: skip
+    if circuit.num_qubits > info.max_qubits:
+        report.problems.append(
+            f"{circuit.num_qubits} qubits, but {name} allows at most {info.max_qubits}"
+        )
+    if info.native_operations is not None:
+        foreign = sorted(
+            set(m.op_counts) - set(info.native_operations) - set(NON_GATE_OPERATIONS)
+        )
+        if foreign:
+            report.problems.append(f"operations {name} does not support: {', '.join(foreign)}")
+    if circuit.opaque:
+        used = sorted(set(m.op_counts) & set(circuit.opaque))
+        if used:
+            report.problems.append(f"opaque gates cannot run here: {', '.join(used)}")
+    if m.has_mid_circuit_measurement and not info.mid_circuit_measurement:
+        report.problems.append(f"{name} does not support measurement in the middle of a circuit")
+    if shots > info.max_shots:
+        report.problems.append(f"{shots} shots, but {name} allows at most {info.max_shots}")
+    report.fits = not report.problems
+    estimate = getattr(the_backend, "success_probability", None)
+    if callable(estimate):
+        log10_p = float(estimate(circuit))
+        report.log10_success_probability = log10_p
+        report.success_probability = 10.0**log10_p if log10_p > -300 else 0.0
+        if log10_p < math.log10(NOISE_WARNING):
+            report.warnings.append(
+                "estimated probability of an error-free run is below 1%: "
+                "results will be mostly noise"
+            )
+    if info.pricing is not None:
+        report.cost = info.pricing.cost(shots)
+        report.currency = info.pricing.currency
+    if shots < 100:
+        report.warnings.append(f"{shots} shots is a small sample: only large effects will show")
+    return report

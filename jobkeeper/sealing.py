@@ -1,0 +1,170 @@
+"""Sealing a finished job: manifest → DSSE envelope → log entry → signed checkpoint.
+
+The worker calls :meth:`Sealer.seal` outside any transaction (signing is the slow part)
+and hands :meth:`Sealer.appender` to the store, which calls it inside the finishing
+transaction to extend the Merkle log and sign the new checkpoint. The log's saved state
+is its compact range: the roots of the perfect subtrees that make up the tree (at most
+one per bit of the size), so an append costs O(log n) hashes however long the log is.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import platform
+import sys
+from collections.abc import Mapping, Sequence
+from typing import Any
+
+import numpy as np
+from cryptography.hazmat.primitives.asymmetric.ed25519 import Ed25519PrivateKey
+
+from jobkeeper import __version__
+from jobkeeper.backend import BackendInfo, Result
+from jobkeeper.provenance.checkpoint import format_checkpoint, sign_note
+from jobkeeper.provenance.dsse import PAYLOAD_TYPE, envelope_bytes, sign_envelope
+from jobkeeper.provenance.keys import fingerprint
+from jobkeeper.provenance.manifest import build_statement, statement_bytes
+from jobkeeper.provenance.merkle import leaf_hash, node_hash
+from jobkeeper.store import Attempt, Claim, Completion
+
+HASH_SIZE = 32
+
+
+def rfc3339(seconds: float | None) -> str | None:
+    if seconds is None:
+        return None
+    moment = dt.datetime.fromtimestamp(seconds, tz=dt.UTC)
+    return moment.strftime("%Y-%m-%dT%H:%M:%S.%f")[:-3] + "Z"
+
+
+def software_versions() -> dict[str, str]:
+    return {
+        "jobkeeper": __version__,
+        "python": platform.python_version(),
+        "numpy": np.__version__,
+        "platform": f"{sys.platform}-{platform.machine()}",
+    }
+
+
+# -- the compact range -------------------------------------------------------------------
+
+
+def _unpack(state: bytes | None) -> list[tuple[int, bytes]]:
+    if not state:
+        return []
+    step = 1 + HASH_SIZE
+    return [(state[i], state[i + 1 : i + step]) for i in range(0, len(state), step)]
+
+
+def _pack(frontier: Sequence[tuple[int, bytes]]) -> bytes:
+    return b"".join(bytes([height]) + digest for height, digest in frontier)
+
+
+def frontier_append(frontier: list[tuple[int, bytes]], leaf: bytes) -> None:
+    frontier.append((0, leaf))
+    while len(frontier) > 1 and frontier[-1][0] == frontier[-2][0]:
+        (height, right), (_, left) = frontier.pop(), frontier.pop()
+        frontier.append((height + 1, node_hash(left, right)))
+
+
+def frontier_root(frontier: Sequence[tuple[int, bytes]]) -> bytes:
+    """RFC 9162 MTH: the perfect subtrees of the size's binary decomposition, folded from
+    the right (a lone right subtree is promoted, never duplicated)."""
+    if not frontier:
+        import hashlib
+
+        return hashlib.sha256(b"").digest()
+    root = frontier[-1][1]
+    for _, digest in reversed(frontier[:-1]):
+        root = node_hash(digest, root)
+    return root
+
+
+class Sealer:
+    """Signs manifests and checkpoints with one keep's active key."""
+
+    def __init__(self, key: Ed25519PrivateKey, *, origin: str) -> None:
+        self.key = key
+        self.fingerprint = fingerprint(key)
+        self.origin = origin
+
+    def predicate(
+        self, claim: Claim, result: Result, info: BackendInfo, attempts: Sequence[Attempt]
+    ) -> dict[str, Any]:
+        job = claim.job
+        spec = job.spec
+        parameters: dict[str, Any] = {
+            "repeat": job.repeat,
+            "exact": bool(spec.get("exact", False)),
+            "options": dict(spec.get("options", {})),
+            "label": job.label,
+        }
+        if result.probabilities is not None:
+            parameters["probabilities"] = dict(result.probabilities)
+        calibration = result.metadata.get("calibration", info.calibration)
+        seed = result.metadata.get("seed")
+        return {
+            "jobKey": job.job_key,
+            "circuit": {
+                "canonicalText": spec["circuit"],
+                "hash": spec["circuitHash"],
+                "sourceHash": spec.get("sourceHash"),
+            },
+            "parameters": parameters,
+            "shots": job.shots,
+            "seed": None if seed is None else str(seed),
+            "backend": {
+                "name": info.name,
+                "kind": info.kind,
+                "version": info.version,
+                "configHash": info.config_hash or None,
+                "calibration": None if calibration is None else dict(calibration),
+            },
+            "software": software_versions(),
+            "codeVersion": spec.get("codeVersion") or {"absent": True},
+            "timestamps": {
+                "submittedOn": rfc3339(job.created_at),
+                "startedOn": rfc3339(job.started_at),
+                "finishedOn": rfc3339(dt.datetime.now(tz=dt.UTC).timestamp()),
+            },
+            "attempts": [
+                {
+                    "number": a.number,
+                    "startedOn": rfc3339(a.at),
+                    "outcome": "retried",
+                    "errorClass": a.error_class,
+                    "message": a.message,
+                }
+                for a in attempts
+            ],
+            "counts": dict(result.counts or {}),
+        }
+
+    def seal(
+        self, claim: Claim, result: Result, info: BackendInfo, attempts: Sequence[Attempt]
+    ) -> Completion:
+        counts: Mapping[str, int] = dict(result.counts or {})
+        statement = build_statement(counts, self.predicate(claim, result, info, attempts))
+        envelope = sign_envelope(statement_bytes(statement), PAYLOAD_TYPE, self.key)
+        return Completion(
+            job_id=claim.job.id,
+            token=claim.token,
+            result_counts=result.counts,
+            result_probabilities=result.probabilities,
+            metadata=dict(result.metadata),
+            envelope=envelope_bytes(envelope),
+            signer=self.fingerprint,
+        )
+
+    def appender(
+        self, state: bytes | None, size: int, envelopes: Sequence[bytes]
+    ) -> tuple[list[bytes], bytes, bytes, str]:
+        frontier = _unpack(state)
+        leaves = [leaf_hash(envelope) for envelope in envelopes]
+        for leaf in leaves:
+            frontier_append(frontier, leaf)
+        root = frontier_root(frontier)
+        note = sign_note(
+            format_checkpoint(self.origin, size + len(leaves), root), self.origin, self.key
+        )
+        return leaves, _pack(frontier), root, note

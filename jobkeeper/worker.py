@@ -1,0 +1,392 @@
+"""The worker daemon: claim → start → poll → seal → archive.
+
+One asyncio loop per worker process. Local simulations run in a pool of worker processes
+(or inline, for ``jobkeeper run``); remote devices are driven on the loop, so one worker
+holds many remote jobs in flight — and a waiting job holds no slot at all: it is a row with
+a next-poll time, claimed again only when its poll is due.
+
+Store calls run on one dedicated thread (a store connection is used by one thread at a
+time, and a busy database must not stall heartbeats). Finished jobs are archived in
+batches: whatever completed while the previous batch committed goes in the next
+transaction, so the per-commit sync is shared.
+
+Shutdown: the first SIGTERM/SIGINT stops claiming, lets running work finish for a grace
+period, gives back what is left and exits 0. SIGKILL at any instant loses nothing: leases
+expire and the next worker picks the jobs up; a device sees the same client key again.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import contextlib
+import logging
+import signal
+import uuid
+from collections.abc import Callable, Collection
+from concurrent.futures import Executor, ProcessPoolExecutor, ThreadPoolExecutor
+from concurrent.futures.process import BrokenProcessPool
+from dataclasses import dataclass, field
+from typing import Any, TypeVar
+
+from jobkeeper._execution import build_task, run_local
+from jobkeeper.backend import Backend, LocalBackend, Result
+from jobkeeper.exceptions import (
+    JobkeeperError,
+    LeaseLost,
+    PermanentBackendError,
+    TransientBackendError,
+)
+from jobkeeper.queue import (
+    DEFAULT_LEASE,
+    DEFAULT_POLL,
+    DEFAULT_RETRY,
+    LeasePolicy,
+    PollPolicy,
+    RetryPolicy,
+)
+from jobkeeper.sealing import Sealer
+from jobkeeper.store import Claim, Completion, Store
+
+log = logging.getLogger("jobkeeper.worker")
+T = TypeVar("T")
+
+BackendResolver = Callable[[str], Backend]
+
+
+@dataclass
+class WorkerStats:
+    claimed: int = 0
+    done: int = 0
+    failed: int = 0
+    retried: int = 0
+    cancelled: int = 0
+    lost_leases: int = 0
+    polls: int = 0
+    errors: list[str] = field(default_factory=list)
+
+
+@dataclass
+class _Held:
+    claim: Claim
+    task: asyncio.Task[None] | None = None
+    lost: bool = False
+
+
+class Worker:
+    """Drains the queue of one store. Keyword-only; the caller passes every part in."""
+
+    def __init__(
+        self,
+        *,
+        store: Store,
+        resolve_backend: BackendResolver,
+        sealer: Sealer,
+        concurrency: int = 2,
+        in_flight: int = 64,
+        lease: LeasePolicy = DEFAULT_LEASE,
+        retry: RetryPolicy = DEFAULT_RETRY,
+        poll: PollPolicy = DEFAULT_POLL,
+        backends: Collection[str] | None = None,
+        ids: Collection[str] | None = None,
+        local_executor: str = "process",
+        idle_sleep: float = 0.5,
+        grace: float = 30.0,
+    ) -> None:
+        if concurrency < 1 or in_flight < 1:
+            raise ValueError("concurrency and in_flight must be at least 1")
+        self.store = store
+        self.resolve_backend = resolve_backend
+        self.sealer = sealer
+        self.concurrency = concurrency
+        self.in_flight = max(in_flight, concurrency)
+        self.lease = lease
+        self.retry = retry
+        self.poll = poll
+        self.backends = sorted(backends) if backends is not None else None
+        self.ids = sorted(ids) if ids is not None else None
+        self.local_executor = local_executor
+        self.idle_sleep = idle_sleep
+        self.grace = grace
+        self.owner = f"{uuid.uuid4().hex[:12]}"
+        self.stats = WorkerStats()
+        self._held: dict[str, _Held] = {}
+        self._db = ThreadPoolExecutor(max_workers=1, thread_name_prefix="jobkeeper-store")
+        self._pool: Executor | None = None
+        self._local_slots = asyncio.Semaphore(concurrency)
+        self._finishing: list[tuple[Completion, asyncio.Future[bool]]] = []
+        self._finisher: asyncio.Task[None] | None = None
+        self._wake_finisher = asyncio.Event()
+        self._stopping = asyncio.Event()
+        self._wake = asyncio.Event()
+        self._backends: dict[str, Backend] = {}
+
+    # -- plumbing -----------------------------------------------------------------------
+
+    async def _store(self, fn: Callable[..., T], *args: Any, **kwargs: Any) -> T:
+        loop = asyncio.get_running_loop()
+        return await loop.run_in_executor(self._db, lambda: fn(*args, **kwargs))
+
+    def _backend(self, name: str) -> Backend:
+        if name not in self._backends:
+            self._backends[name] = self.resolve_backend(name)
+        return self._backends[name]
+
+    def _executor(self) -> Executor:
+        if self._pool is None:
+            if self.local_executor == "process":
+                self._pool = ProcessPoolExecutor(max_workers=self.concurrency)
+            else:
+                self._pool = ThreadPoolExecutor(max_workers=self.concurrency)
+        return self._pool
+
+    def request_stop(self) -> None:
+        """Stop claiming; running work finishes (see ``grace``), then ``run`` returns."""
+        self._stopping.set()
+        self._wake.set()
+
+    # -- the loop ---------------------------------------------------------------------------
+
+    async def run(self, *, once: bool = False, install_signals: bool = False) -> WorkerStats:
+        """Work until stopped; with ``once``, until nothing is left that this worker could
+        claim now or later (no queued, running or waiting job remains)."""
+        loop = asyncio.get_running_loop()
+        if install_signals:
+            for sig in (signal.SIGTERM, signal.SIGINT):
+                loop.add_signal_handler(sig, self._on_signal)
+        heartbeat = asyncio.create_task(self._heartbeat())
+        self._finisher = asyncio.create_task(self._finish_loop())
+        next_sweep = 0.0
+        try:
+            await self._store(self.store.requeue_expired)
+            while not self._stopping.is_set():
+                now = loop.time()
+                if now >= next_sweep:
+                    await self._store(self.store.requeue_expired)
+                    next_sweep = now + self.lease.sweep
+                claimed = await self._claim_more()
+                if once and not claimed and not self._held and await self._drained():
+                    break
+                self._wake.clear()
+                if not claimed:
+                    with contextlib.suppress(asyncio.TimeoutError):
+                        await asyncio.wait_for(self._wake.wait(), self.idle_sleep)
+        finally:
+            await self._shutdown()
+            heartbeat.cancel()
+            with contextlib.suppress(asyncio.CancelledError):
+                await heartbeat
+            if install_signals:
+                for sig in (signal.SIGTERM, signal.SIGINT):
+                    loop.remove_signal_handler(sig)
+        return self.stats
+
+    def _on_signal(self) -> None:
+        if self._stopping.is_set():
+            # A second signal: give everything back now.
+            for held in self._held.values():
+                if held.task is not None:
+                    held.task.cancel()
+        self.request_stop()
+
+    async def _drained(self) -> bool:
+        if self.ids is not None:
+            jobs = await self._store(self.store.get_many, self.ids)
+            return all(job.state in ("done", "failed", "cancelled") for job in jobs)
+        counts = await self._store(self.store.counts_by_state)
+        return not any(counts.get(state, 0) for state in ("queued", "running", "waiting"))
+
+    async def _claim_more(self) -> int:
+        free = self.in_flight - len(self._held)
+        if free <= 0:
+            return 0
+        claims = await self._store(
+            self.store.claim,
+            self.owner,
+            limit=min(free, 64),
+            lease_seconds=self.lease.lease,
+            backends=self.backends,
+            ids=self.ids,
+        )
+        for claim in claims:
+            held = _Held(claim)
+            self._held[claim.job.id] = held
+            held.task = asyncio.create_task(self._handle(held))
+        self.stats.claimed += len(claims)
+        return len(claims)
+
+    async def _heartbeat(self) -> None:
+        while True:
+            await asyncio.sleep(self.lease.heartbeat)
+            leases = [(h.claim.job.id, h.claim.token) for h in self._held.values() if not h.lost]
+            if not leases:
+                continue
+            try:
+                kept = await self._store(self.store.renew, self.owner, leases, self.lease.lease)
+            except JobkeeperError as exc:
+                log.warning("heartbeat failed: %s", exc)
+                continue
+            for job_id, _ in leases:
+                held = self._held.get(job_id)
+                if held is not None and job_id not in kept:
+                    # Another worker owns it now: stop, archive nothing.
+                    held.lost = True
+                    self.stats.lost_leases += 1
+                    if held.task is not None:
+                        held.task.cancel()
+
+    # -- one job ----------------------------------------------------------------------------
+
+    async def _handle(self, held: _Held) -> None:
+        claim = held.claim
+        job = claim.job
+        try:
+            backend = self._backend(job.backend)
+            if job.cancel_requested:
+                if claim.was == "waiting" and job.handle:
+                    await backend.cancel(job.handle)
+                await self._store(self.store.mark_cancelled, job.id, claim.token)
+                self.stats.cancelled += 1
+                return
+            if claim.was == "waiting" and job.handle:
+                await self._poll(held, backend)
+            else:
+                await self._start(held, backend)
+        except LeaseLost:
+            self.stats.lost_leases += 1
+        except asyncio.CancelledError:
+            if not held.lost and self._stopping.is_set():
+                # Shutdown: hand the job back untouched.
+                with contextlib.suppress(JobkeeperError):
+                    await self._store(self.store.release, self.owner, [(job.id, claim.token)])
+        except TransientBackendError as exc:
+            await self._retry(claim, exc, exc.retry_after)
+        except (PermanentBackendError, JobkeeperError) as exc:
+            await self._fail(claim, exc)
+        except BrokenProcessPool as exc:
+            self._pool = None
+            await self._retry(claim, exc, None)
+        except Exception as exc:  # a bug in a backend must fail its job, not the worker
+            log.exception("job %s: unexpected error", job.id)
+            await self._fail(claim, exc)
+        finally:
+            self._held.pop(job.id, None)
+            self._wake.set()
+
+    async def _start(self, held: _Held, backend: Backend) -> None:
+        claim = held.claim
+        task = build_task(claim.job)
+        if isinstance(backend, LocalBackend):
+            async with self._local_slots:
+                loop = asyncio.get_running_loop()
+                result = await loop.run_in_executor(self._executor(), run_local, backend, task)
+            await self._archive(held, backend, result)
+            return
+        started = await backend.start(task, client_key=claim.job.job_key)
+        if started.result is not None:
+            await self._archive(held, backend, started.result)
+            return
+        if started.handle is None:
+            raise PermanentBackendError(f"backend {claim.job.backend} returned neither a result nor a handle")
+        delay = self.poll.next_delay(0, hint=started.poll_after)
+        await self._store(self.store.record_handle, claim.job.id, claim.token, started.handle, delay)
+
+    async def _poll(self, held: _Held, backend: Backend) -> None:
+        claim = held.claim
+        assert claim.job.handle is not None
+        polled = await backend.poll(claim.job.handle)
+        self.stats.polls += 1
+        if polled.state == "done" and polled.result is not None:
+            await self._archive(held, backend, polled.result)
+        elif polled.state == "waiting":
+            delay = self.poll.next_delay(self._poll_count(claim), hint=polled.poll_after)
+            await self._store(self.store.snooze, claim.job.id, claim.token, delay)
+        elif polled.state == "cancelled":
+            await self._store(self.store.mark_cancelled, claim.job.id, claim.token)
+            self.stats.cancelled += 1
+        else:
+            raise PermanentBackendError(polled.message or "the device reported the job failed")
+
+    def _poll_count(self, claim: Claim) -> int:
+        # Polls so far, estimated from how long the job has waited: no extra column needed,
+        # and a restarted worker continues the same back-off.
+        waited = max(0.0, claim.job.updated_at - (claim.job.started_at or claim.job.updated_at))
+        count, total = 0, 0.0
+        while total < waited and count < 64:
+            total += self.poll.next_delay(count)
+            count += 1
+        return count
+
+    async def _archive(self, held: _Held, backend: Backend, result: Result) -> None:
+        claim = held.claim
+        attempts = await self._store(self.store.attempts, claim.job.id)
+        completion = self.sealer.seal(claim, result, backend.info, attempts)
+        future: asyncio.Future[bool] = asyncio.get_running_loop().create_future()
+        self._finishing.append((completion, future))
+        self._wake_finisher.set()
+        if await future:
+            self.stats.done += 1
+        else:
+            raise LeaseLost(f"job {claim.job.id}: lease lost before archiving")
+
+    async def _finish_loop(self) -> None:
+        while True:
+            await self._wake_finisher.wait()
+            self._wake_finisher.clear()
+            batch, self._finishing = self._finishing, []
+            if not batch:
+                continue
+            try:
+                oks = await self._store(
+                    self.store.finish, [c for c, _ in batch], self.sealer.appender
+                )
+            except Exception as exc:
+                for _, future in batch:
+                    if not future.done():
+                        future.set_exception(exc)
+                continue
+            for (_, future), ok in zip(batch, oks, strict=True):
+                if not future.done():
+                    future.set_result(ok)
+
+    async def _retry(self, claim: Claim, exc: BaseException, hint: float | None) -> None:
+        delay = self.retry.delay(claim.job.attempts + 1, backend_hint=hint)
+        try:
+            state = await self._store(
+                self.store.retry, claim.job.id, claim.token, type(exc).__name__, str(exc), delay
+            )
+        except LeaseLost:
+            self.stats.lost_leases += 1
+            return
+        if state == "failed":
+            self.stats.failed += 1
+        else:
+            self.stats.retried += 1
+
+    async def _fail(self, claim: Claim, exc: BaseException) -> None:
+        try:
+            await self._store(
+                self.store.fail, claim.job.id, claim.token, type(exc).__name__, str(exc)
+            )
+            self.stats.failed += 1
+        except LeaseLost:
+            self.stats.lost_leases += 1
+
+    async def _shutdown(self) -> None:
+        pending = [h.task for h in self._held.values() if h.task is not None]
+        if pending:
+            _, still = await asyncio.wait(pending, timeout=self.grace)
+            for task in still:
+                task.cancel()
+            if still:
+                await asyncio.wait(still, timeout=5.0)
+        if self._finisher is not None:
+            self._finisher.cancel()
+            with contextlib.suppress(asyncio.CancelledError):
+                await self._finisher
+        for backend in self._backends.values():
+            with contextlib.suppress(Exception):
+                await backend.aclose()
+        if self._pool is not None:
+            self._pool.shutdown(wait=True, cancel_futures=True)
+            self._pool = None
+        self._db.shutdown(wait=True)
