@@ -68,3 +68,6 @@ class Circuit:
     source_hash: str | None = None
     #: the file name the circuit came from, for messages only.
     source_name: str | None = None
+    #: ``(name, number of parameters, number of qubits)`` of each opaque gate, sorted by
+    #: name: an opaque gate that is declared but never called still has a signature.
+    opaque_signatures: tuple[tuple[str, int, int], ...] = ()

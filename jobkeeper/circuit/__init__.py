@@ -1,0 +1,22 @@
+"""Circuits: the OpenQASM 2.0 parser, the circuit IR, canonical form and hash, metrics."""
+
+from jobkeeper.circuit.canonical import canonical_text, circuit_hash
+from jobkeeper.circuit.ir import Circuit, Condition, Operation, Register
+from jobkeeper.circuit.metrics import CircuitMetrics, metrics
+from jobkeeper.circuit.parser import load_qasm, parse_qasm
+from jobkeeper.circuit.stdgates import STANDARD_GATES, expand_standard
+
+__all__ = [
+    "STANDARD_GATES",
+    "Circuit",
+    "CircuitMetrics",
+    "Condition",
+    "Operation",
+    "Register",
+    "canonical_text",
+    "circuit_hash",
+    "expand_standard",
+    "load_qasm",
+    "metrics",
+    "parse_qasm",
+]

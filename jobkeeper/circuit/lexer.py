@@ -1,0 +1,204 @@
+"""Tokenizer for OpenQASM 2.0 (arXiv:1707.03429, appendix "OpenQASM grammar").
+
+Hand-written on purpose: one left-to-right pass over the text, each character looked at a
+bounded number of times, so tokenizing is linear in the input whatever the input is.
+Columns count characters (code points), starting at 1, as editors show them.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import NoReturn
+
+from jobkeeper.exceptions import CircuitError
+
+ID = "id"
+INT = "int"
+REAL = "real"
+STRING = "string"
+SYMBOL = "symbol"
+EOF = "eof"
+
+#: Longer than any number a real program writes; bounds the cost of converting literals
+#: (``int()`` of a long digit string is superlinear, and refused past 4300 digits).
+MAX_LITERAL_LENGTH = 400
+
+_ID_START = frozenset("abcdefghijklmnopqrstuvwxyzABCDEFGHIJKLMNOPQRSTUVWXYZ_")
+_ID_CHARS = _ID_START | frozenset("0123456789")
+_DIGITS = frozenset("0123456789")
+_SINGLE = frozenset(";,()[]{}+*/^")
+_SPACE = frozenset(" \t\r\n\f\v")
+#: Identifiers that do not start with a lowercase letter (the grammar's ``id`` does).
+_UPPER_KEYWORDS = frozenset({"OPENQASM", "U", "CX"})
+
+
+@dataclass(frozen=True, slots=True)
+class Token:
+    kind: str
+    text: str
+    line: int
+    column: int
+
+    def describe(self) -> str:
+        if self.kind == EOF:
+            return "end of input"
+        if self.kind == STRING:
+            return f'"{self.text}"'
+        return f"'{self.text}'"
+
+
+def _shown(char: str) -> str:
+    return repr(char) if char.isprintable() else f"U+{ord(char):04X}"
+
+
+def tokenize(text: str, file: str | None) -> list[Token]:
+    """All tokens of ``text`` followed by one EOF token; CircuitError on a bad character."""
+    tokens: list[Token] = []
+    append = tokens.append
+    n = len(text)
+    i = 0
+    line = 1
+    line_start = 0  # index of the first character of the current line
+
+    def fail(message: str, at: int) -> NoReturn:
+        raise CircuitError(message, file=file, line=line, column=at - line_start + 1)
+
+    while i < n:
+        ch = text[i]
+        if ch in _SPACE:
+            if ch == "\n":
+                line += 1
+                line_start = i + 1
+            i += 1
+            continue
+        col = i - line_start + 1
+        if ch == "/" and i + 1 < n and text[i + 1] == "/":
+            end = text.find("\n", i)
+            i = n if end < 0 else end
+            continue
+        if ch in _ID_START:
+            j = i + 1
+            while j < n and text[j] in _ID_CHARS:
+                j += 1
+            word = text[i:j]
+            if not ("a" <= ch <= "z") and word not in _UPPER_KEYWORDS:
+                fail(f"identifier '{word[:40]}' must start with a lowercase letter", i)
+            append(Token(ID, word, line, col))
+            i = j
+            continue
+        if ch in _DIGITS or (ch == "." and i + 1 < n and text[i + 1] in _DIGITS):
+            j = i
+            while j < n and text[j] in _DIGITS:
+                j += 1
+            kind = INT
+            if j < n and text[j] == ".":
+                kind = REAL
+                j += 1
+                while j < n and text[j] in _DIGITS:
+                    j += 1
+            if j < n and text[j] in "eE":
+                k = j + 1
+                if k < n and text[k] in "+-":
+                    k += 1
+                if k >= n or text[k] not in _DIGITS:
+                    fail("malformed number: expected digits after the exponent", k)
+                while k < n and text[k] in _DIGITS:
+                    k += 1
+                kind = REAL
+                j = k
+            if j - i > MAX_LITERAL_LENGTH:
+                fail(f"number literal longer than {MAX_LITERAL_LENGTH} characters", i)
+            append(Token(kind, text[i:j], line, col))
+            i = j
+            continue
+        if ch in _SINGLE:
+            append(Token(SYMBOL, ch, line, col))
+            i += 1
+            continue
+        if ch == "-":
+            if i + 1 < n and text[i + 1] == ">":
+                append(Token(SYMBOL, "->", line, col))
+                i += 2
+            else:
+                append(Token(SYMBOL, "-", line, col))
+                i += 1
+            continue
+        if ch == "=":
+            if i + 1 < n and text[i + 1] == "=":
+                append(Token(SYMBOL, "==", line, col))
+                i += 2
+                continue
+            fail("expected '==' (OpenQASM 2.0 has no assignment)", i)
+        if ch == '"':
+            j = i + 1
+            while j < n and text[j] != '"' and text[j] != "\n":
+                j += 1
+            if j >= n or text[j] != '"':
+                fail("unterminated string: expected '\"' before the end of the line", i)
+            append(Token(STRING, text[i + 1 : j], line, col))
+            i = j + 1
+            continue
+        fail(f"unexpected character {_shown(ch)}", i)
+    append(Token(EOF, "", line, n - line_start + 1))
+    return tokens
+
+
+class TokenStream:
+    """A cursor over a token list with the error reporting every parse step needs."""
+
+    __slots__ = ("file", "pos", "tokens")
+
+    def __init__(self, tokens: list[Token], file: str | None) -> None:
+        self.tokens = tokens
+        self.pos = 0
+        self.file = file
+
+    def peek(self) -> Token:
+        return self.tokens[self.pos]
+
+    def peek_is(self, text: str) -> bool:
+        tok = self.tokens[self.pos]
+        return tok.text == text and tok.kind in (SYMBOL, ID)
+
+    def advance(self) -> Token:
+        tok = self.tokens[self.pos]
+        if tok.kind != EOF:
+            self.pos += 1
+        return tok
+
+    def accept(self, text: str) -> bool:
+        if self.peek_is(text):
+            self.pos += 1
+            return True
+        return False
+
+    def expect(self, text: str) -> Token:
+        tok = self.tokens[self.pos]
+        if tok.text == text and tok.kind in (SYMBOL, ID):
+            self.pos += 1
+            return tok
+        self.fail_expected(f"'{text}'")
+
+    def expect_kind(self, kind: str, what: str) -> Token:
+        tok = self.tokens[self.pos]
+        if tok.kind == kind:
+            self.pos += 1
+            return tok
+        self.fail_expected(what)
+
+    def fail_expected(self, what: str) -> NoReturn:
+        """Report a missing token where it is missing: a forgotten ';' at the end of a
+        line is reported right after the line's last token, not at the next line."""
+        tok = self.tokens[self.pos]
+        message = f"expected {what}, found {tok.describe()}"
+        if self.pos > 0:
+            prev = self.tokens[self.pos - 1]
+            if prev.line != tok.line:
+                width = len(prev.text) + (2 if prev.kind == STRING else 0)
+                raise CircuitError(
+                    message, file=self.file, line=prev.line, column=prev.column + width
+                )
+        self.fail(message, tok)
+
+    def fail(self, message: str, tok: Token) -> NoReturn:
+        raise CircuitError(message, file=self.file, line=tok.line, column=tok.column)
