@@ -423,6 +423,80 @@ def keys(
         typer.echo(f"earlier keys still trusted for old entries: {', '.join(others)}")
 
 
+def _print_report(report: Any, json_out: bool, what: str) -> None:
+    if json_out:
+        _echo_json(report.to_dict())
+    else:
+        verdict = "everything holds" if report.ok else f"{len(report.problems)} problem(s) found"
+        typer.echo(f"verified {report.checked} {what}: {verdict}")
+        for problem in report.problems:
+            typer.echo(f"  PROBLEM: {problem}")
+    for warning in report.warnings:
+        typer.echo(f"jobkeeper: warning: {warning}", err=True)
+    if not report.ok:
+        raise typer.Exit(1)
+
+
+@app.command()
+def verify(
+    targets: Annotated[
+        list[str] | None, typer.Argument(metavar="[JOB...|BUNDLE]", help="Jobs, or a bundle file.")
+    ] = None,
+    all_jobs: Annotated[bool, typer.Option("--all", help="Every done job in the keep.")] = False,
+    key: Annotated[
+        list[str] | None,
+        typer.Option("--key", help="Trust only this key fingerprint (repeatable)."),
+    ] = None,
+    keep: KeepOpt = None,
+    store: StoreOpt = None,
+    json_out: JsonOpt = False,
+) -> None:
+    """Check signatures, counts digests, log inclusion and checkpoint consistency."""
+    from jobkeeper.verification import verify_bundle_file, verify_jobs
+
+    targets = targets or []
+    if len(targets) == 1 and Path(targets[0]).is_file():
+        report = verify_bundle_file(Path(targets[0]), trusted=key)
+        _print_report(report, json_out, "bundle entries")
+        return
+    if not targets and not all_jobs:
+        raise ConfigError("give job ids, a bundle file, or --all")
+    keeper = _open(keep, store, create=False)
+    ids = None if all_jobs else [keeper.job(t).id for t in targets]
+    _print_report(verify_jobs(keeper, ids, trusted=key), json_out, "jobs")
+
+
+@app.command()
+def bundle(
+    job_ids: Annotated[list[str] | None, typer.Argument(metavar="[JOB...]", help="Jobs to export.")] = None,
+    label: LabelOpt = None,
+    output: Annotated[Path, typer.Option("-o", "--output", help="The bundle file to write.")] = Path(
+        "jobkeeper-bundle.json"
+    ),
+    keep: KeepOpt = None,
+    store: StoreOpt = None,
+    json_out: JsonOpt = False,
+) -> None:
+    """Export done jobs as one file that a referee can verify offline."""
+    from jobkeeper.verification import export_bundle
+
+    keeper = _open(keep, store, create=False)
+    if label is None and not job_ids:
+        raise ConfigError("give job ids or --label")
+    ids = [keeper.job(j).id for j in job_ids or []]
+    if label is not None:
+        ids += [j.id for j in keeper.jobs(label=label, state="done")]
+    if not ids:
+        raise ConfigError(f"no done job with label {label!r}")
+    count = export_bundle(keeper, sorted(set(ids)), output)
+    fp = keeper.keyring.active_record().fingerprint
+    if json_out:
+        _echo_json({"bundle": str(output), "jobs": count, "fingerprint": fp})
+    else:
+        typer.echo(f"wrote {count} job(s) to {output}")
+        typer.echo(f"a referee verifies it with: jobkeeper verify {output} --key {fp}")
+
+
 @app.callback(invoke_without_command=True)
 def _root(
     version: Annotated[bool, typer.Option("--version", help="Print the version.")] = False,

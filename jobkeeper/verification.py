@@ -1,0 +1,121 @@
+"""Verifying a keep's archive, and exporting audit bundles (``verify``, ``bundle``).
+
+The archive is checked as a referee would check it: every envelope's signature against
+the keys the log lists (or only the pinned ones), every subject digest against the counts
+stored in the results table, every checkpoint's signature and root against the tree
+recomputed from the stored entries, consistency between checkpoints, and that each done
+job has exactly the log entry its row points to.
+"""
+
+from __future__ import annotations
+
+import base64
+import json
+from collections.abc import Iterable, Sequence
+from pathlib import Path
+from typing import TYPE_CHECKING
+
+from jobkeeper.exceptions import JobkeeperError, ProvenanceError, VerificationError
+from jobkeeper.provenance import (
+    MerkleTree,
+    VerifyReport,
+    make_bundle,
+    read_bundle,
+    verify_bundle,
+    verify_log,
+    write_bundle,
+)
+from jobkeeper.provenance.log import LogEntry as VerifiableEntry
+
+if TYPE_CHECKING:
+    from jobkeeper.keeper import Keeper
+
+
+def _keys(keeper: Keeper, trusted: Iterable[str] | None, report: VerifyReport) -> dict[str, bytes]:
+    listed = {fp: base64.b64decode(key) for fp, key in keeper.store.public_keys().items()}
+    if trusted is None:
+        return listed
+    wanted = {fp.strip().lower() for fp in trusted}
+    for fp in sorted(wanted - set(listed)):
+        report.problems.append(f"pinned key {fp} is not among the keys this log lists")
+    return {fp: raw for fp, raw in listed.items() if fp in wanted}
+
+
+def verify_jobs(
+    keeper: Keeper, ids: Sequence[str] | None = None, *, trusted: Iterable[str] | None = None
+) -> VerifyReport:
+    """Verify the whole log and the named jobs (all done jobs when ``ids`` is None)."""
+    store = keeper.store
+    pre = VerifyReport()
+    keys = _keys(keeper, trusted, pre)
+    entries = store.log_entries()
+    verifiable = []
+    for entry in entries:
+        stored = store.result(entry.job_id)
+        counts = None if stored is None else dict(stored.counts or {})
+        if stored is None:
+            pre.problems.append(f"entry {entry.index}: job {entry.job_id[:12]} has no stored result")
+        verifiable.append(VerifiableEntry(entry.envelope, entry.signer, counts))
+    notes = [cp.note for cp in store.checkpoints()]
+    report = verify_log(verifiable, notes, keys, origin=store.get_meta("origin"))
+    report.problems[:0] = pre.problems
+    by_job = {entry.job_id: entry for entry in entries}
+    jobs = store.list_jobs(state="done") if ids is None else store.get_many(list(ids))
+    for job in jobs:
+        entry = by_job.get(job.id)
+        if job.state != "done":
+            if entry is not None:
+                report.problems.append(f"job {job.id[:12]} is {job.state} but has a log entry")
+            continue
+        if entry is None:
+            report.problems.append(f"job {job.id[:12]} is done but has no log entry")
+            continue
+        try:
+            statement = json.loads(base64.b64decode(json.loads(entry.envelope)["payload"]))
+            if statement["predicate"]["jobKey"] != job.job_key:
+                report.problems.append(
+                    f"job {job.id[:12]}: its log entry attests another job key"
+                )
+        except (ValueError, KeyError, TypeError):
+            pass  # verify_log has already reported an unreadable envelope
+    if ids is not None:
+        report.checked = len(jobs)
+    if not entries and ids is None:
+        report.warnings.append("the log is empty: no done job to verify")
+    return report
+
+
+def export_bundle(keeper: Keeper, ids: Sequence[str], path: Path) -> int:
+    """Write an audit bundle of the given done jobs to ``path``; returns how many."""
+    store = keeper.store
+    entries = store.log_entries()
+    checkpoints = store.checkpoints()
+    if not checkpoints:
+        raise JobkeeperError("the log has no checkpoint yet: no done job to bundle")
+    tree = MerkleTree(entry.leaf_hash for entry in entries)
+    wanted = set(ids)
+    chosen = {e.index: e.envelope for e in entries if e.job_id in wanted}
+    missing = wanted - {e.job_id for e in entries if e.job_id in wanted}
+    if missing:
+        raise JobkeeperError(
+            f"{len(missing)} job(s) have no log entry (not done): "
+            + ", ".join(sorted(m[:12] for m in missing))
+        )
+    keys = {fp: base64.b64decode(key) for fp, key in store.public_keys().items()}
+    latest = checkpoints[-1]
+    bundle = make_bundle(tree, chosen, keys, latest.note)
+    write_bundle(path, bundle)
+    return len(chosen)
+
+
+def verify_bundle_file(path: Path, *, trusted: Iterable[str] | None = None) -> VerifyReport:
+    try:
+        bundle = read_bundle(path)
+    except (ProvenanceError, VerificationError) as exc:
+        report = VerifyReport()
+        report.problems.append(str(exc))
+        return report
+    return verify_bundle(bundle, trusted)
+
+
+__all__ = ["export_bundle", "verify_bundle_file", "verify_jobs"]
