@@ -1,0 +1,224 @@
+"""In-place gate kernels on a state vector.
+
+Layout: a flat complex128 array of 2^n amplitudes; qubit ``q`` is bit ``q`` of the index
+(qubit 0 is the least significant). A gate on qubits ``t_1 > t_2 > ... > t_k`` sees the
+state as the view ``(2^(n-1-t_1), 2, 2^(t_1-t_2-1), 2, ..., 2, 2^(t_k))``: free axes at
+even positions, target axes (size 2) at odd ones. No 2^n × 2^n matrix is ever built and
+no Python loop runs over amplitudes; Python loops run over cache-sized chunks only.
+
+Why the kernels look as they do (measured with ``benchmarks/bench_statevector.py``):
+numpy's elementwise complex arithmetic costs several passes over the data per gate, and
+a BLAS product of a 2^k × 2^k matrix costs about the same for k = 1, 2 and 3. So dense
+gates go through one matrix product per chunk of about half a MiB (which stays in the
+core's cache): gathered with the target axes first, multiplied, scattered back.
+Diagonal gates multiply slices in place and permutation gates move slices.
+"""
+
+from __future__ import annotations
+
+import itertools
+from collections.abc import Iterator
+
+import numpy as np
+import numpy.typing as npt
+
+from jobkeeper.backends._gates import Matrix, embed
+
+State = npt.NDArray[np.complex128]
+
+#: amplitudes per chunk (2^15 × 16 bytes = 512 KiB: two buffers stay in a 2 MiB cache).
+CHUNK = 1 << 15
+#: dense gates whose targets all lie below this qubit act on the low qubits as one
+#: block of rows (no gather needed); a product with a 2^3 × 2^3 matrix costs no more
+#: than with a 2 × 2 one.
+LOW_QUBITS = 3
+
+
+def _view_shape(n: int, desc: tuple[int, ...]) -> tuple[int, ...]:
+    shape: list[int] = []
+    upper = n
+    for q in desc:
+        shape += [1 << (upper - 1 - q), 2]
+        upper = q
+    shape.append(1 << upper)
+    return tuple(shape)
+
+
+def reorder(matrix: Matrix, qubits: tuple[int, ...]) -> tuple[Matrix, tuple[int, ...]]:
+    """``matrix`` (first listed qubit most significant) re-indexed so that the highest
+    qubit is most significant, with the qubits in descending order."""
+    k = len(qubits)
+    order = sorted(range(k), key=lambda i: -qubits[i])
+    desc = tuple(qubits[i] for i in order)
+    if list(order) == list(range(k)):
+        return matrix, desc
+    tensor = matrix.reshape((2,) * (2 * k)).transpose(order + [k + i for i in order])
+    return np.ascontiguousarray(tensor.reshape(1 << k, 1 << k)), desc
+
+
+def _chunks(shape: tuple[int, ...]) -> Iterator[tuple[slice, ...]]:
+    """Index tuples cutting a target view into chunks of at most CHUNK amplitudes (at
+    least the 2^k target amplitudes); each keeps every axis."""
+    targets = 1 << (len(shape) // 2)
+    inner = targets
+    split = -1
+    for pos in range(len(shape) - 1, -1, -2):
+        if inner * shape[pos] <= max(CHUNK, targets):
+            inner *= shape[pos]
+        else:
+            split = pos
+            break
+    if split < 0:
+        yield tuple(slice(None) for _ in shape)
+        return
+    piece = max(1, CHUNK // inner)
+    outer = [range(shape[p]) for p in range(0, split, 2)]
+    for fixed in itertools.product(*outer, range(0, shape[split], piece)):
+        index: list[slice] = []
+        for pos in range(len(shape)):
+            if pos % 2 or pos > split:
+                index.append(slice(None))
+            else:
+                start = fixed[pos // 2]
+                index.append(slice(start, start + (piece if pos == split else 1)))
+        yield tuple(index)
+
+
+def apply_dense(state: State, n: int, matrix: Matrix, qubits: tuple[int, ...]) -> None:
+    """Apply a dense 2^k × 2^k ``matrix`` to ``qubits`` (first listed most significant)."""
+    matrix, desc = reorder(matrix, qubits)
+    if desc[0] < LOW_QUBITS:
+        _apply_low(state, matrix, desc)
+        return
+    shape = _view_shape(n, desc)
+    view = state.reshape(shape)
+    k = len(desc)
+    if k == 1 and shape[2] >= 1024:
+        _apply_wide_single(view, matrix)
+        return
+    first = [*range(1, 2 * k, 2), *range(0, 2 * k + 1, 2)]
+    buf_in = np.empty(max(CHUNK, 1 << k), dtype=np.complex128)
+    buf_out = np.empty_like(buf_in)
+    for index in _chunks(shape):
+        chunk = view[index].transpose(first)
+        size = chunk.size
+        gathered = buf_in[:size].reshape(chunk.shape)
+        np.copyto(gathered, chunk)
+        result = buf_out[:size]
+        np.matmul(matrix, gathered.reshape(1 << k, -1), out=result.reshape(1 << k, -1))
+        np.copyto(chunk, result.reshape(chunk.shape))
+
+
+def _apply_low(state: State, matrix: Matrix, desc: tuple[int, ...]) -> None:
+    # Rows of 2^w amplitudes times the gate widened to the w lowest qubits.
+    width = desc[0] + 1
+    block = embed(matrix, tuple(width - 1 - q for q in desc), width).T.copy()
+    rows = state.reshape(-1, 1 << width)
+    step = max(1, CHUNK >> width)
+    buf = np.empty((min(step, rows.shape[0]), 1 << width), dtype=np.complex128)
+    for start in range(0, rows.shape[0], step):
+        part = rows[start : start + step]
+        out = buf[: part.shape[0]]
+        np.matmul(part, block, out=out)
+        part[...] = out
+
+
+def _apply_wide_single(view: State, matrix: Matrix) -> None:
+    # A high target: (2 × 2) times (2 × many) blocks straight from the state, no gather.
+    top, _, low = view.shape
+    per = max(1, CHUNK // (2 * low))
+    width = min(low, CHUNK // 2)
+    buf = np.empty((min(per, top), 2, width), dtype=np.complex128)
+    for a in range(0, top, per):
+        for b in range(0, low, width):
+            part = view[a : a + per, :, b : b + width]
+            out = buf[: part.shape[0]]
+            np.matmul(matrix, part, out=out)
+            part[...] = out
+
+
+def apply_diagonal(
+    state: State, n: int, diag: npt.NDArray[np.complex128], qubits: tuple[int, ...]
+) -> None:
+    """Multiply by a diagonal gate given by its diagonal (first listed qubit most
+    significant): one in-place multiply per basis pattern whose entry is not 1."""
+    matrix, desc = reorder(np.diag(diag), qubits)
+    view = state.reshape(_view_shape(n, desc))
+    k = len(desc)
+    for pattern, value in enumerate(np.diagonal(matrix)):
+        if value == 1:
+            continue
+        index: list[int | slice] = [slice(None)] * (2 * k + 1)
+        for j in range(k):
+            index[2 * j + 1] = (pattern >> (k - 1 - j)) & 1
+        part = view[tuple(index)]
+        part *= value
+
+
+def apply_monomial(state: State, n: int, matrix: Matrix, qubits: tuple[int, ...]) -> None:
+    """Apply a gate with exactly one non-zero entry per column (x, cx, swap, ccx, ...):
+    slices move along the permutation's cycles, times their phases."""
+    matrix, desc = reorder(matrix, qubits)
+    k = len(desc)
+    view = state.reshape(_view_shape(n, desc))
+    dest = np.argmax(np.abs(matrix), axis=0)
+    phase = matrix[dest, np.arange(1 << k)]
+
+    def part(pattern: int) -> State:
+        index: list[int | slice] = [slice(None)] * (2 * k + 1)
+        for j in range(k):
+            index[2 * j + 1] = (pattern >> (k - 1 - j)) & 1
+        return view[tuple(index)]
+
+    seen = [False] * (1 << k)
+    for start in range(1 << k):
+        if seen[start]:
+            continue
+        cycle = [start]
+        seen[start] = True
+        while dest[cycle[-1]] != start:
+            cycle.append(int(dest[cycle[-1]]))
+            seen[cycle[-1]] = True
+        if len(cycle) == 1:
+            if phase[start] != 1:
+                fixed = part(start)
+                fixed *= phase[start]
+            continue
+        # Content of cycle[i] moves to cycle[i+1] (times its column's phase).
+        saved = part(cycle[-1]).copy()
+        for i in range(len(cycle) - 1, 0, -1):
+            np.multiply(part(cycle[i - 1]), phase[cycle[i - 1]], out=part(cycle[i]))
+        np.multiply(saved, phase[cycle[-1]], out=part(cycle[0]))
+
+
+def classify(matrix: Matrix) -> str:
+    """``identity``, ``diagonal``, ``monomial`` or ``dense``: which kernel applies."""
+    nonzero = np.abs(matrix) > 1e-14
+    off = nonzero & ~np.eye(matrix.shape[0], dtype=bool)
+    if not off.any():
+        return "identity" if np.allclose(np.diagonal(matrix), 1, rtol=0, atol=1e-14) else "diagonal"
+    if (nonzero.sum(axis=0) == 1).all() and (nonzero.sum(axis=1) == 1).all():
+        return "monomial"
+    return "dense"
+
+
+def apply(state: State, n: int, matrix: Matrix, qubits: tuple[int, ...], kind: str) -> None:
+    """Apply ``matrix`` with the kernel ``classify`` chose for it."""
+    if kind == "dense":
+        apply_dense(state, n, matrix, qubits)
+    elif kind == "diagonal":
+        apply_diagonal(state, n, np.diagonal(matrix).copy(), qubits)
+    elif kind == "monomial":
+        apply_monomial(state, n, matrix, qubits)
+
+
+def probability_of_one(state: State, n: int, qubit: int) -> float:
+    """P(qubit reads 1), summed without copying the state."""
+    floats = state.view(np.float64).reshape(1 << (n - 1 - qubit), 2, 2 << qubit)[:, 1, :]
+    return float(np.einsum("ij,ij->", floats, floats))
+
+
+def qubit_slices(state: State, n: int, qubit: int) -> tuple[State, State]:
+    """The amplitudes with ``qubit`` = 0 and = 1, as views."""
+    view = state.reshape(1 << (n - 1 - qubit), 2, 1 << qubit)
+    return view[:, 0, :], view[:, 1, :]
