@@ -36,3 +36,28 @@ def corpus_dir() -> Path:
 @pytest.fixture
 def vectors_dir() -> Path:
     return shared_path("vectors")
+
+
+# -- stores: one contract suite, run against every implementation ---------------------------
+
+POSTGRES_URL = os.environ.get("JOBKEEPER_TEST_POSTGRES", "postgresql://postgres@127.0.0.1:5432/test")
+
+
+def postgres_available() -> bool:
+    try:
+        import psycopg
+
+        with psycopg.connect(POSTGRES_URL, connect_timeout=3):
+            return True
+    except Exception:
+        return False
+
+
+def require_postgres() -> str:
+    """The test server's URL, or a skip (a failure under CI=true) when it is unreachable."""
+    if postgres_available():
+        return POSTGRES_URL
+    reason = f"no PostgreSQL server reachable at {POSTGRES_URL}"
+    if IN_CI:
+        pytest.fail(f"CI=true but {reason}")
+    pytest.skip(reason)

@@ -49,9 +49,18 @@ def adapter_names() -> list[str]:
 
 
 def resolve_factory(adapter: str) -> BackendFactory:
-    """The factory of an adapter, built-in first, then the entry points."""
+    """The factory of an adapter: built-in first, then the entry points, then a
+    ``module:factory`` path (for a user's own adapter that is not packaged)."""
     if adapter in BUILTIN_ADAPTERS:
-        return _load(BUILTIN_ADAPTERS[adapter])
+        try:
+            return _load(BUILTIN_ADAPTERS[adapter])
+        except ImportError as exc:
+            raise ConfigError(f"backend adapter {adapter!r} cannot be loaded: {exc}") from exc
+    if ":" in adapter:
+        try:
+            return _load(adapter)
+        except (ImportError, AttributeError) as exc:
+            raise ConfigError(f"cannot load backend adapter {adapter!r}: {exc}") from exc
     for ep in entry_points(group=ENTRY_POINT_GROUP):
         if ep.name == adapter:
             factory: BackendFactory = ep.load()
@@ -66,6 +75,4 @@ def create_backend(name: str, config: Mapping[str, Any] | None = None) -> Backen
     ``adapter`` key picks the adapter; it defaults to ``name`` itself)."""
     config = dict(config or DEFAULT_BACKENDS.get(name, {}))
     adapter = str(config.get("adapter", name))
-    if adapter not in BUILTIN_ADAPTERS and adapter not in adapter_names():
-        raise ConfigError(f"unknown backend {name!r}: no adapter {adapter!r}")
     return resolve_factory(adapter)(name, config)
