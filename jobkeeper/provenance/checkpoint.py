@@ -134,7 +134,7 @@ def verifier_key_string(name: str, public_key: bytes | Ed25519PublicKey) -> str:
 
 def parse_verifier_key(vkey: str) -> NoteVerifier:
     """Parse a verifier key string; VerificationError if malformed or its ID is wrong."""
-    parts = vkey.split("+")
+    parts = vkey.split("+", 2)  # the base64 part may itself contain "+"
     if len(parts) != 3:
         raise VerificationError("a verifier key has the form name+keyid+key")
     name, hex_id, encoded = parts
