@@ -1,0 +1,368 @@
+"""Comparison of count distributions: is a rerun the same, or a device like the ideal?
+
+Two questions, one answer type (:class:`Comparison`):
+
+- :func:`compare_counts` — two count tables (a rerun, backend against backend);
+- :func:`compare_to_distribution` — one count table against exact probabilities
+  (``--ideal``: a simulator's statevector, a textbook distribution).
+
+Methods (chosen so a referee can recompute every number with scipy):
+
+- **Tests.** Two samples: Pearson's chi-square test of homogeneity on the 2×k table
+  (``scipy.stats.chi2_contingency``, no continuity correction); one sample: Pearson's
+  chi-square goodness of fit (``scipy.stats.power_divergence``). The G-test (log-likelihood
+  ratio) on the same table is reported beside it. The verdict follows the chi-square p-value.
+- **Pooling.** The chi-square approximation wants every expected count ≥ 5 (Cochran's rule,
+  common practice). The rarest outcomes (by column total for two samples, by expected count
+  for one) are pooled into one "other" cell; if that cell is still too small, the next rarest
+  outcomes join it. If fewer than two cells remain, there are too few shots to tell: the
+  verdict is "consistent" with ``too_few_shots`` set and a note that says so.
+- **Impossible outcomes.** Against an exact distribution, any shot on an outcome of
+  probability zero makes the verdict "different" at once, with the outcomes named.
+- **Total variation distance** ½ Σ|p − q| between the observed frequencies (one sample:
+  against the exact distribution), with a bootstrap interval at ``confidence`` (default 95 %,
+  independent of ``alpha``: the test decides, the interval describes). Each sample is
+  resampled multinomially from its own frequencies (one sample: only the sample side), with
+  ``numpy.random.Generator(PCG64(...))`` streams spawned from ``SeedSequence(seed)`` (one per
+  side), vectorised over replicates. The interval is the
+  *basic* (reverse-percentile) bootstrap interval, not the percentile interval: the observed
+  TVD is biased upwards by sampling noise, and the percentile interval inherits that bias
+  twice (it covered the true TVD in 0-10 % of simulated trials). Where the test does not
+  reject "no difference" at level 1 − confidence, the interval's lower end is 0, since zero
+  is then a value the data cannot exclude. Coverage is close to nominal when differences are
+  large beside the noise, and can fall to ~65-85 % when many outcomes differ by about the
+  noise; read ``tvd_noise`` (the mean TVD of two samples of one distribution at these shot
+  counts) to judge how much of the observed TVD is noise.
+- **Hellinger fidelity** (Σ√(p q))², the squared Bhattacharyya coefficient (common practice
+  in the quantum-computing literature): 1 for equal distributions, 0 for disjoint ones.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+from dataclasses import asdict, dataclass
+from typing import Any, Literal
+
+import numpy as np
+
+from jobkeeper._stats_core import (
+    MIN_BOOTSTRAP,
+    NOISE_REPS,
+    StatsInputError,
+    TestResult,
+    basic_interval,
+    bootstrap_reps,
+    check_counts,
+    check_probabilities,
+    goodness_of_fit_test,
+    homogeneity_test,
+    minimum_detectable_tvd,
+    resampled_tvd_one,
+    resampled_tvd_two,
+)
+from jobkeeper._stats_words import (
+    common_notes,
+    label_width_note,
+    noise_note,
+    p_text,
+    percent,
+    reduced_bootstrap_note,
+    table_words,
+)
+
+__all__ = [
+    "Comparison",
+    "StatsInputError",
+    "Verdict",
+    "compare_counts",
+    "compare_to_distribution",
+    "minimum_detectable_tvd",
+]
+
+Verdict = Literal["identical", "consistent", "different"]
+
+
+@dataclass(frozen=True)
+class Comparison:
+    """The outcome of a comparison; ``summary()`` words it, ``to_json()`` serialises it.
+
+    ``p_value``, ``g_p_value``, ``statistic`` and ``dof`` are None when no test could run
+    (too few shots). ``shots_b`` is None when the comparison is against an exact
+    distribution. ``notes`` is a tuple so the record stays immutable.
+    """
+
+    verdict: Verdict
+    p_value: float | None
+    g_p_value: float | None
+    statistic: float | None
+    dof: int | None
+    tvd: float
+    tvd_ci: tuple[float, float]
+    hellinger_fidelity: float
+    shots_a: int
+    shots_b: int | None
+    alpha: float
+    notes: tuple[str, ...]
+    method: str
+    too_few_shots: bool = False
+    confidence: float = 0.95
+    tvd_noise: float = 0.0
+
+    def summary(self) -> str:
+        """A few plain-English lines: the verdict, the distance, then any notes."""
+        lines = [self._verdict_line()]
+        level = percent(self.confidence)
+        low, high = self.tvd_ci
+        distance = (
+            f"Total variation distance {self.tvd:.3f} ({level} CI {low:.3f}–{high:.3f}); "
+            f"sampling noise alone gives about {self.tvd_noise:.3f} at these shot counts. "
+            f"Hellinger fidelity {self.hellinger_fidelity:.4f}."
+        )
+        lines.append(distance)
+        lines.extend(self.notes)
+        return "\n".join(lines)
+
+    def _verdict_line(self) -> str:
+        against = "the reference distribution" if self.shots_b is None else None
+        subject = "The counts" if against else "The two runs"
+        p_value = p_text(self.p_value)
+        if self.verdict == "identical":
+            if against:
+                return f"The counts match {against} exactly ({self.shots_a} shots)."
+            return f"The two count tables are identical ({self.shots_a} shots each)."
+        if self.too_few_shots:
+            return (
+                f"There are too few shots to tell whether {subject.lower()} "
+                f"{'differ from ' + against if against else 'differ'}; "
+                "treated as consistent."
+            )
+        if self.verdict == "consistent":
+            tail = f" with {against}" if against else ""
+            return (
+                f"{subject} are statistically consistent{tail} "
+                f"(chi-square p {p_value} at α = {self.alpha:g})."
+            )
+        if self.statistic is None:
+            return f"{subject} cannot come from {against or 'the same distribution'}."
+        tail = f" from {against}" if against else ""
+        return f"{subject} differ{tail} (chi-square p {p_value} < α = {self.alpha:g})."
+
+    def to_json(self) -> dict[str, Any]:
+        """A JSON-ready dict (no NaN or infinity; tuples become lists)."""
+        data = asdict(self)
+        data["tvd_ci"] = list(self.tvd_ci)
+        data["notes"] = list(self.notes)
+        data["summary"] = self.summary()
+        return data
+
+
+def compare_counts(
+    a: Mapping[str, int],
+    b: Mapping[str, int],
+    *,
+    alpha: float = 0.01,
+    bootstrap: int = 2000,
+    seed: int = 0,
+    confidence: float = 0.95,
+    deterministic: bool = False,
+) -> Comparison:
+    """Compare two count tables (outcome label → shots), e.g. a run and its rerun.
+
+    ``deterministic=True`` says both runs came from a deterministic backend with the same
+    seed: then anything but identical counts is "different", whatever the test says.
+    The result is symmetric in ``a`` and ``b`` (apart from ``shots_a``/``shots_b``).
+    """
+    _check_settings(alpha, bootstrap, confidence)
+    counts_a, counts_b = check_counts("a", a), check_counts("b", b)
+    keys = sorted(counts_a.keys() | counts_b.keys())
+    va = np.array([counts_a.get(key, 0) for key in keys], dtype=np.int64)
+    vb = np.array([counts_b.get(key, 0) for key in keys], dtype=np.int64)
+    shots_a, shots_b = int(va.sum()), int(vb.sum())
+    # Canonical order of the two sides, so swapping the arguments changes nothing (not even
+    # the bootstrap draws).
+    if (shots_a, sorted(counts_a.items())) > (shots_b, sorted(counts_b.items())):
+        x, y = vb, va
+    else:
+        x, y = va, vb
+    nx, ny = int(x.sum()), int(y.sum())
+    px, py = x / nx, y / ny
+    test = homogeneity_test(x, y, keys)
+
+    streams = _streams(seed, 4)
+    tvd = float(0.5 * np.abs(px - py).sum())
+    reps = bootstrap_reps(bootstrap, len(keys))
+    replicates = resampled_tvd_two((streams[0], streams[1]), px, nx, py, ny, reps)
+    ci = basic_interval(tvd, replicates, confidence)
+    pooled = (x + y) / (nx + ny)
+    noise_reps = bootstrap_reps(NOISE_REPS, len(keys))
+    noise = float(
+        resampled_tvd_two((streams[2], streams[3]), pooled, nx, pooled, ny, noise_reps).mean()
+    )
+
+    notes: list[str] = []
+    identical = counts_a == counts_b
+    if identical:
+        verdict: Verdict = "identical"
+    elif deterministic:
+        verdict = "different"
+        notes.append(
+            "Both runs were declared deterministic (same backend and seed), so any difference "
+            "in counts means the runs differ; the test below is for information only."
+        )
+    else:
+        verdict = _verdict_from_test(test, alpha)
+    notes.extend(label_width_note(counts_a, counts_b))
+    notes.extend(common_notes(test, alpha, min(shots_a, shots_b), shots_a, shots_b))
+    notes.extend(noise_note(tvd, noise))
+    if reps < bootstrap:
+        notes.append(reduced_bootstrap_note(reps, len(keys)))
+    method = (
+        "two-sample Pearson chi-square test of homogeneity (no continuity correction) "
+        f"{table_words(test, two_sample=True)}; G-test alongside; TVD interval: basic "
+        f"bootstrap, {reps} multinomial resamples of each run, seed {seed}"
+    )
+    return Comparison(
+        verdict=verdict,
+        p_value=test.p_value,
+        g_p_value=test.g_p_value,
+        statistic=test.statistic,
+        dof=test.dof,
+        tvd=tvd,
+        tvd_ci=_zero_floor(ci, test, confidence),
+        hellinger_fidelity=_fidelity(px, py),
+        shots_a=shots_a,
+        shots_b=shots_b,
+        alpha=alpha,
+        notes=tuple(notes),
+        method=method,
+        too_few_shots=test.p_value is None,
+        confidence=confidence,
+        tvd_noise=noise,
+    )
+
+
+def compare_to_distribution(
+    counts: Mapping[str, int],
+    probabilities: Mapping[str, float],
+    *,
+    alpha: float = 0.01,
+    bootstrap: int = 2000,
+    seed: int = 0,
+    confidence: float = 0.95,
+) -> Comparison:
+    """Compare one count table with an exact distribution (outcome label → probability).
+
+    Probabilities must sum to 1 (within 1e-6; they are renormalised). Outcomes missing from
+    ``probabilities`` have probability zero.
+    """
+    _check_settings(alpha, bootstrap, confidence)
+    observed_counts = check_counts("counts", counts)
+    probs = check_probabilities(probabilities)
+    keys = sorted(observed_counts.keys() | probs.keys())
+    observed = np.array([observed_counts.get(key, 0) for key in keys], dtype=np.int64)
+    ref = np.array([probs.get(key, 0.0) for key in keys], dtype=np.float64)
+    shots = int(observed.sum())
+    freq = observed / shots
+
+    impossible = [key for key in keys if observed_counts.get(key, 0) and key not in probs]
+    if impossible:
+        test = TestResult(0.0, 0.0, None, None, 0, 0, 0.0)
+    else:
+        test = goodness_of_fit_test(observed, ref, keys)
+
+    sample_rng, noise_rng = _streams(seed, 2)
+    tvd = float(0.5 * np.abs(freq - ref).sum())
+    # A resample of the counts only lands on observed outcomes; the reference mass elsewhere
+    # adds a constant to every replicate's TVD.
+    seen = observed > 0
+    outside = float(ref[~seen].sum())
+    reps = bootstrap_reps(bootstrap, int(seen.sum()))
+    replicates = resampled_tvd_one(sample_rng, freq[seen], shots, ref[seen], reps) + 0.5 * outside
+    ci = basic_interval(tvd, replicates, confidence)
+    support = ref > 0
+    noise_reps = bootstrap_reps(NOISE_REPS, int(support.sum()))
+    noise_sample = resampled_tvd_one(noise_rng, ref[support], shots, ref[support], noise_reps)
+    noise = float(noise_sample.mean())
+
+    notes: list[str] = []
+    if impossible:
+        verdict: Verdict = "different"
+        landed = sum(observed_counts[key] for key in impossible)
+        shown = ", ".join(repr(key) for key in impossible[:5])
+        more = f" and {len(impossible) - 5} more" if len(impossible) > 5 else ""
+        notes.append(
+            f"{landed} shot(s) landed on outcome(s) the reference distribution gives "
+            f"probability zero ({shown}{more}): these counts cannot come from it."
+        )
+    elif all(float(count) == prob * shots for count, prob in zip(observed, ref, strict=True)):
+        verdict = "identical"
+    else:
+        verdict = _verdict_from_test(test, alpha)
+    if not impossible:
+        notes.extend(common_notes(test, alpha, shots, shots, None))
+    notes.extend(noise_note(tvd, noise))
+    if reps < bootstrap:
+        notes.append(reduced_bootstrap_note(reps, int(seen.sum())))
+    method = (
+        "one-sample test against an exact distribution: impossible outcomes observed"
+        if impossible
+        else "one-sample Pearson chi-square goodness of fit "
+        f"{table_words(test, two_sample=False)}; G-test alongside"
+    ) + f"; TVD interval: basic bootstrap, {reps} multinomial resamples of the counts, seed {seed}"
+    return Comparison(
+        verdict=verdict,
+        p_value=test.p_value,
+        g_p_value=test.g_p_value,
+        statistic=test.statistic,
+        dof=test.dof,
+        tvd=tvd,
+        tvd_ci=_zero_floor(ci, test, confidence),
+        hellinger_fidelity=_fidelity(freq, ref),
+        shots_a=shots,
+        shots_b=None,
+        alpha=alpha,
+        notes=tuple(notes),
+        method=method,
+        too_few_shots=test.p_value is None,
+        confidence=confidence,
+        tvd_noise=noise,
+    )
+
+
+def _streams(seed: int, count: int) -> tuple[np.random.Generator, ...]:
+    # Independent PCG64 streams spawned from one seed: one per resampled side, so each
+    # side's draws are fixed by the seed alone (and can be drawn in parallel).
+    children = np.random.SeedSequence(seed).spawn(count)
+    return tuple(np.random.Generator(np.random.PCG64(child)) for child in children)
+
+
+def _check_settings(alpha: float, bootstrap: int, confidence: float) -> None:
+    if not 0 < alpha < 1:
+        raise StatsInputError(f"alpha must lie strictly between 0 and 1, not {alpha!r}")
+    if not 0 < confidence < 1:
+        raise StatsInputError(f"confidence must lie strictly between 0 and 1, not {confidence!r}")
+    if bootstrap < MIN_BOOTSTRAP:
+        raise StatsInputError(
+            f"bootstrap must be at least {MIN_BOOTSTRAP} replicates, not {bootstrap!r}"
+        )
+
+
+def _verdict_from_test(test: TestResult, alpha: float) -> Verdict:
+    if test.p_value is None:
+        return "consistent"  # too few shots: nothing shows a difference (and a note says so)
+    return "different" if test.p_value < alpha else "consistent"
+
+
+def _zero_floor(
+    ci: tuple[float, float], test: TestResult, confidence: float
+) -> tuple[float, float]:
+    # Zero stays in the interval whenever the data cannot exclude "no difference" at the
+    # interval's own level (the test, inverted at TVD = 0).
+    if test.p_value is None or test.p_value >= 1 - confidence:
+        return (0.0, ci[1])
+    return ci
+
+
+def _fidelity(p: np.ndarray[Any, np.dtype[np.float64]], q: np.ndarray[Any, Any]) -> float:
+    bc = float(np.sqrt(p * q).sum())
+    return min(max(bc * bc, 0.0), 1.0)
