@@ -1,0 +1,291 @@
+"""The loopback device's HTTP face: a starlette app behind a small ASGI layer that checks
+the bearer token and injects faults.
+
+Endpoints (the loopback profile, ``jobkeeper/profiles/loopback.toml``, speaks them)::
+
+    POST /v1/jobs                 submit; needs an Idempotency-Key header
+    GET  /v1/jobs/{id}            status (Retry-After while the job waits ≥ 1 s)
+    GET  /v1/jobs/{id}/result     counts (or probabilities) once complete
+    POST /v1/jobs/{id}/cancel     cancel a waiting job
+    GET  /v1/calibration          invented calibration numbers
+    GET  /stats                   counters (no token, no faults)
+    GET  /health                  liveness (no token, no faults)
+
+Faults, drawn per ``/v1`` request with probability ``rate`` from a seeded generator
+(which request gets which draw depends on arrival order): ``500``; ``503`` with an
+HTTP-date Retry-After; ``429`` with a delta-seconds Retry-After; ``slow`` (the answer
+comes after ``slow_delay`` seconds, past the client's timeout; the request is still
+carried out); ``drop`` (headers, then the connection closes mid-body, nothing done);
+``malformed`` (200 with broken JSON, nothing done); ``lost`` (the request is carried out,
+e.g. the job IS created, then the answer is cut off like ``drop``).
+"""
+
+from __future__ import annotations
+
+import asyncio
+import hmac
+import json
+import random
+from collections import deque
+from dataclasses import dataclass
+from datetime import UTC, datetime, timedelta
+from typing import Any
+
+from starlette.applications import Starlette
+from starlette.concurrency import run_in_threadpool
+from starlette.requests import Request
+from starlette.responses import JSONResponse, Response
+from starlette.routing import Route
+from starlette.types import Message, Receive, Scope, Send
+
+from jobkeeper.backends._rest_wire import format_http_date, parse_structured_string
+from jobkeeper.loopback._device import LoopbackDevice, Rejection
+
+ALL_FAULTS = ("500", "503", "429", "slow", "drop", "malformed", "lost")
+#: a request body larger than this is refused (413) before it is read.
+MAX_BODY = 4 * 1024 * 1024
+
+
+@dataclass(frozen=True)
+class FaultPlan:
+    """Which faults to inject, how often, and their timings."""
+
+    rate: float = 0.0
+    kinds: tuple[str, ...] = ALL_FAULTS
+    seed: int = 0
+    slow_delay: float = 35.0
+    retry_after: int = 1
+
+    def __post_init__(self) -> None:
+        unknown = set(self.kinds) - set(ALL_FAULTS)
+        if unknown:
+            raise ValueError(f"unknown fault kinds {sorted(unknown)}; known: {ALL_FAULTS}")
+        if not 0.0 <= self.rate <= 1.0:
+            raise ValueError(f"fault rate must be in [0, 1], not {self.rate}")
+        if self.rate > 0 and not self.kinds:
+            raise ValueError("a fault rate above 0 needs at least one fault kind")
+
+
+def _error(status: int, code: str, message: str, headers: dict[str, str] | None = None) -> Response:
+    return JSONResponse(
+        {"error": {"code": code, "message": message}}, status_code=status, headers=headers
+    )
+
+
+def _routes(device: LoopbackDevice) -> Starlette:
+    async def submit(request: Request) -> Response:
+        raw_key = request.headers.get("idempotency-key")
+        key = parse_structured_string(raw_key) if raw_key is not None else None
+        try:
+            body: Any = json.loads(await request.body())
+        except (ValueError, UnicodeDecodeError):
+            return _error(400, "bad-request", "the body is not JSON")
+        _created, job = device.submit(key, body)
+        # a replay answers exactly as the first request was answered
+        return JSONResponse(
+            {"job": job.public()}, status_code=201, headers={"Location": f"/v1/jobs/{job.id}"}
+        )
+
+    async def status(request: Request) -> Response:
+        job = device.job(request.path_params["job_id"])
+        headers = {}
+        left = device.seconds_left(job)
+        if job.state in ("queued", "running") and left >= 1:
+            headers["Retry-After"] = str(int(left))
+        return JSONResponse({"job": job.public()}, headers=headers)
+
+    async def result(request: Request) -> Response:
+        job_id = request.path_params["job_id"]
+        kind, values = await device.result(job_id, run_in_threadpool)
+        job = device.job(job_id)
+        outcome = {
+            "counts": values if kind == "counts" else None,
+            "probabilities": values if kind == "probabilities" else None,
+            "metadata": {"seed": job.seed, "shots": job.shots, "simulator": "statevector"},
+        }
+        return JSONResponse({"job": job.public(), "result": outcome})
+
+    async def cancel(request: Request) -> Response:
+        return JSONResponse({"job": device.cancel(request.path_params["job_id"]).public()})
+
+    async def calibration(request: Request) -> Response:
+        return JSONResponse({"calibration": device.calibration})
+
+    async def stats(request: Request) -> Response:
+        return JSONResponse(device.stats())
+
+    async def health(request: Request) -> Response:
+        return JSONResponse({"ok": True})
+
+    async def rejected(request: Request, exc: Exception) -> Response:
+        assert isinstance(exc, Rejection)
+        headers = {"Retry-After": "5"} if exc.status == 503 else None
+        return _error(exc.status, exc.code, exc.message, headers)
+
+    return Starlette(
+        routes=[
+            Route("/v1/jobs", submit, methods=["POST"]),
+            Route("/v1/jobs/{job_id}", status, methods=["GET"]),
+            Route("/v1/jobs/{job_id}/result", result, methods=["GET"]),
+            Route("/v1/jobs/{job_id}/cancel", cancel, methods=["POST"]),
+            Route("/v1/calibration", calibration, methods=["GET"]),
+            Route("/stats", stats, methods=["GET"]),
+            Route("/health", health, methods=["GET"]),
+        ],
+        exception_handlers={Rejection: rejected},
+    )
+
+
+async def _discard(message: Message) -> None:
+    return None
+
+
+async def _cut_off(send: Send) -> None:
+    # Headers promise 64 bytes, a few arrive, then the ASGI call returns: uvicorn closes
+    # the connection and the client sees a protocol error, as with a dropped connection.
+    await send(
+        {
+            "type": "http.response.start",
+            "status": 200,
+            "headers": [(b"content-type", b"application/json"), (b"content-length", b"64")],
+        }
+    )
+    await send({"type": "http.response.body", "body": b'{"job": ', "more_body": True})
+
+
+class LoopbackApp:
+    """The ASGI application: token check and faults around the routes."""
+
+    def __init__(self, device: LoopbackDevice, *, token: str, faults: FaultPlan) -> None:
+        if not token:
+            raise ValueError("the loopback device needs a non-empty token")
+        self.device = device
+        self._expected = f"Bearer {token}".encode()
+        self._faults = faults
+        self._rng = random.Random(faults.seed)
+        self._routes = _routes(device)
+        self._forced: deque[tuple[str, str | None, str | None]] = deque()
+
+    def force(
+        self, kind: str, *, method: str | None = None, path: str | None = None, times: int = 1
+    ) -> None:
+        """Inject ``kind`` into the next ``times`` ``/v1`` requests that match ``method``
+        and start with ``path`` (None matches any), before any random draw. Safe to call
+        from another thread (deque appends and pops are atomic)."""
+        if kind not in ALL_FAULTS:
+            raise ValueError(f"unknown fault kind {kind!r}; known: {ALL_FAULTS}")
+        for _ in range(times):
+            self._forced.append((kind, method, path))
+
+    def _take_forced(self, scope: Scope) -> str | None:
+        for entry in list(self._forced):
+            kind, method, path = entry
+            if method is not None and method != scope["method"]:
+                continue
+            if path is not None and not str(scope["path"]).startswith(path):
+                continue
+            try:
+                self._forced.remove(entry)
+            except ValueError:  # taken by a concurrent request
+                continue
+            return kind
+        return None
+
+    def _authorised(self, scope: Scope) -> bool:
+        for name, value in scope["headers"]:
+            if name == b"authorization":
+                return hmac.compare_digest(bytes(value), self._expected)
+        return False
+
+    def _draw(self) -> str | None:
+        plan = self._faults
+        if plan.rate <= 0 or self._rng.random() >= plan.rate:
+            return None
+        return self._rng.choice(plan.kinds)
+
+    async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
+        if scope["type"] != "http" or not str(scope["path"]).startswith("/v1/"):
+            await self._routes(scope, receive, send)
+            return
+        self.device.counters["requests"] += 1
+        response: Response | None = None
+        length = dict(scope["headers"]).get(b"content-length", b"0")
+        if not self._authorised(scope):
+            response = _error(
+                401,
+                "unauthorized",
+                "missing or wrong bearer token",
+                {"WWW-Authenticate": 'Bearer realm="loopback"'},
+            )
+        elif not length.isdigit() or int(length) > MAX_BODY:
+            response = _error(413, "too-large", f"request bodies are limited to {MAX_BODY} bytes")
+        if response is not None:
+            await response(scope, receive, send)
+            return
+        await self._serve(scope, receive, send, self._take_forced(scope) or self._draw())
+
+    async def _serve(self, scope: Scope, receive: Receive, send: Send, kind: str | None) -> None:
+        plan = self._faults
+        if kind is not None:
+            self.device.faults[kind] += 1
+        if kind is None:
+            await self._routes(scope, receive, send)
+        elif kind == "500":
+            await _error(500, "injected-fault", "injected fault: internal error")(
+                scope, receive, send
+            )
+        elif kind == "503":
+            when = datetime.now(UTC) + timedelta(seconds=plan.retry_after)
+            headers = {"Retry-After": format_http_date(when)}
+            message = "injected fault: unavailable"
+            await _error(503, "injected-fault", message, headers)(scope, receive, send)
+        elif kind == "429":
+            headers = {"Retry-After": str(plan.retry_after)}
+            message = "injected fault: too many requests"
+            await _error(429, "injected-fault", message, headers)(scope, receive, send)
+        elif kind == "slow":
+            await asyncio.sleep(plan.slow_delay)
+            await self._routes(scope, receive, send)
+        elif kind == "malformed":
+            body = b'{"job": {"id": "lb-'
+            await Response(body, status_code=200, media_type="application/json")(
+                scope, receive, send
+            )
+        elif kind == "lost":
+            await self._routes(scope, receive, _discard)
+            await _cut_off(send)
+        else:  # "drop"
+            await _cut_off(send)
+
+
+def create_app(
+    *,
+    token: str,
+    queue_delay: float = 1.0,
+    fault_rate: float = 0.0,
+    seed: int = 0,
+    faults: tuple[str, ...] = ALL_FAULTS,
+    slow_delay: float = 35.0,
+    retry_after: int = 1,
+    max_qubits: int = 20,
+    max_jobs: int = 100_000,
+) -> LoopbackApp:
+    """The loopback device as an ASGI application (for uvicorn, or httpx's ASGITransport)."""
+    from jobkeeper.loopback._sim import check_program, simulate
+
+    device = LoopbackDevice(
+        queue_delay=queue_delay,
+        seed=seed,
+        max_qubits=max_qubits,
+        max_jobs=max_jobs,
+        simulate=simulate,
+        check=check_program,
+    )
+    plan = FaultPlan(
+        rate=fault_rate,
+        kinds=tuple(faults),
+        seed=seed,
+        slow_delay=slow_delay,
+        retry_after=retry_after,
+    )
+    return LoopbackApp(device, token=token, faults=plan)

@@ -1,0 +1,98 @@
+"""The loopback device for tests: a real HTTP server on 127.0.0.1 in a background thread.
+
+Use it from a pytest fixture (this module does not import pytest)::
+
+    from jobkeeper.loopback.testing import running_device
+
+    @pytest.fixture
+    def device():
+        with running_device(queue_delay=0.05) as running:
+            yield running   # running.url, .token, .stats(), .force("lost", method="POST")
+
+and point a ``rest`` backend at it: ``running.backend_config()`` is the config table, with
+the token in the environment variable ``running.token_env`` (set it with monkeypatch).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterator
+from contextlib import contextmanager
+from dataclasses import dataclass
+from typing import Any
+
+import httpx
+
+from jobkeeper.loopback._app import ALL_FAULTS, LoopbackApp, create_app
+from jobkeeper.loopback._device import LoopbackDevice
+from jobkeeper.loopback._server import BackgroundDevice
+
+TEST_TOKEN = "loopback-test-token-not-a-secret"
+TEST_TOKEN_ENV = "JOBKEEPER_LOOPBACK_TEST_TOKEN"
+
+
+@dataclass(frozen=True)
+class RunningDevice:
+    """A loopback device that is listening: where, with which token, and its counters."""
+
+    url: str
+    token: str
+    token_env: str
+    app: LoopbackApp
+
+    @property
+    def device(self) -> LoopbackDevice:
+        return self.app.device
+
+    def force(
+        self, kind: str, *, method: str | None = None, path: str | None = None, times: int = 1
+    ) -> None:
+        """Inject a fault into the next matching request(s); see :meth:`LoopbackApp.force`."""
+        self.app.force(kind, method=method, path=path, times=times)
+
+    def stats(self) -> dict[str, Any]:
+        """``GET /stats`` over HTTP (executions, duplicates, submits, faults, jobs, ...)."""
+        response = httpx.get(f"{self.url}/stats", timeout=10.0, trust_env=False)
+        response.raise_for_status()
+        stats: dict[str, Any] = response.json()
+        return stats
+
+    def backend_config(self, **overrides: Any) -> dict[str, Any]:
+        """A ``[backends.NAME]`` table for a ``rest`` backend speaking to this device."""
+        return {
+            "adapter": "rest",
+            "profile": "loopback",
+            "url": self.url,
+            "token_env": self.token_env,
+            **overrides,
+        }
+
+
+@contextmanager
+def running_device(
+    *,
+    token: str = TEST_TOKEN,
+    token_env: str = TEST_TOKEN_ENV,
+    queue_delay: float = 0.05,
+    fault_rate: float = 0.0,
+    seed: int = 0,
+    faults: tuple[str, ...] = ALL_FAULTS,
+    slow_delay: float = 1.0,
+    retry_after: int = 1,
+    max_qubits: int = 20,
+    startup_timeout: float = 10.0,
+) -> Iterator[RunningDevice]:
+    """Start a loopback device on 127.0.0.1 and a free port; stop it on exit. The
+    defaults suit tests: short queue delay, slow faults of 1 s (set the client's read
+    timeout below that)."""
+    app = create_app(
+        token=token,
+        queue_delay=queue_delay,
+        fault_rate=fault_rate,
+        seed=seed,
+        faults=faults,
+        slow_delay=slow_delay,
+        retry_after=retry_after,
+        max_qubits=max_qubits,
+    )
+    with BackgroundDevice(app, startup_timeout=startup_timeout) as server:
+        yield RunningDevice(url=server.url, token=token, token_env=token_env, app=app)
