@@ -262,15 +262,26 @@ def worker(
     backend: Annotated[
         list[str] | None, typer.Option("--backend", "-b", help="Only jobs of these backends.")
     ] = None,
+    lease: Annotated[float, typer.Option("--lease", help="Lease length, seconds.")] = 60.0,
+    heartbeat: Annotated[float, typer.Option("--heartbeat", help="Lease renewal, seconds.")] = 10.0,
+    sweep: Annotated[float, typer.Option("--sweep", help="Expired-lease sweep, seconds.")] = 15.0,
     keep: KeepOpt = None,
     store: StoreOpt = None,
     json_out: JsonOpt = False,
 ) -> None:
     """Drain the queue: run local jobs, drive remote ones, seal and archive results."""
+    from jobkeeper.queue import LeasePolicy
+
+    if not 0 < heartbeat < lease:
+        raise ConfigError("--heartbeat must be positive and shorter than --lease")
     keeper = _open(keep, store)
     stats = keeper.work(
         once=once, install_signals=True, concurrency=concurrency, in_flight=in_flight,
         backends=backend or None,
+        lease=LeasePolicy(lease=lease, heartbeat=heartbeat, sweep=sweep),
+        announce=lambda owner: typer.echo(
+            f"worker {owner} started on {keeper.store.location}", err=True
+        ),
     )  # fmt: skip
     summary = {"claimed": stats.claimed, "done": stats.done, "failed": stats.failed,
                "retried": stats.retried, "cancelled": stats.cancelled,

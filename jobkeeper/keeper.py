@@ -343,9 +343,19 @@ class Keeper:
         """A worker draining this keep; options as for :class:`~jobkeeper.worker.Worker`."""
         return Worker(store=self.store, resolve_backend=self.backend, sealer=self.sealer(), **options)
 
-    def work(self, *, once: bool = False, install_signals: bool = False, **options: Any) -> WorkerStats:
+    def work(
+        self,
+        *,
+        once: bool = False,
+        install_signals: bool = False,
+        announce: Callable[[str], None] | None = None,
+        **options: Any,
+    ) -> WorkerStats:
+        """Run a worker on this keep until stopped (or, with ``once``, drained)."""
         worker = self.worker(**options)
-        return run_coroutine(worker.run(once=once, install_signals=install_signals))
+        return run_coroutine(
+            worker.run(once=once, install_signals=install_signals, announce=announce)
+        )
 
     def run(self, circuit: CircuitInput, **options: Any) -> Job:
         """Submit one job and run it here and now (inline, no separate worker)."""

@@ -58,14 +58,15 @@ class RecordingBackend:
     async def start(self, task: Task, *, client_key: str) -> Started:
         path = self._result_path(client_key)
         lock = self.ledger_dir / "ledger.lock"
+        if self.delay:
+            # The device's work, outside the ledger lock so devices run in parallel.
+            await asyncio.sleep(self.delay)
         with open(lock, "a") as handle:
             fcntl.flock(handle, fcntl.LOCK_EX)
             try:
                 if path.exists():
                     stored = json.loads(path.read_text())
                     return Started(result=Result(counts=stored, metadata={"replayed": True}))
-                if self.delay:
-                    await asyncio.sleep(self.delay)
                 counts = _fake_counts(client_key, task.shots, task.circuit.num_clbits)
                 with open(self.ledger_dir / "executions.log", "a") as ledger:
                     ledger.write(client_key + "\n")

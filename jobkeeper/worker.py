@@ -146,13 +146,21 @@ class Worker:
 
     # -- the loop ---------------------------------------------------------------------------
 
-    async def run(self, *, once: bool = False, install_signals: bool = False) -> WorkerStats:
+    async def run(
+        self,
+        *,
+        once: bool = False,
+        install_signals: bool = False,
+        announce: Callable[[str], None] | None = None,
+    ) -> WorkerStats:
         """Work until stopped; with ``once``, until nothing is left that this worker could
         claim now or later (no queued, running or waiting job remains)."""
         loop = asyncio.get_running_loop()
         if install_signals:
             for sig in (signal.SIGTERM, signal.SIGINT):
                 loop.add_signal_handler(sig, self._on_signal)
+        if announce is not None:
+            announce(self.owner)
         heartbeat = asyncio.create_task(self._heartbeat())
         self._finisher = asyncio.create_task(self._finish_loop())
         next_sweep = 0.0
