@@ -191,7 +191,8 @@ class ExpressionParser:
         self.depth += 1
         if self.depth > MAX_NESTING:
             self.stream.fail(
-                f"expression nested more than {MAX_NESTING} levels deep", self.stream.peek()
+                f"expression nested more than {MAX_NESTING} levels deep",
+                self.stream.tokens[self.stream.pos - 1],
             )
 
     def _sum(self) -> Expr:

@@ -26,7 +26,7 @@ from jobkeeper.exceptions import CircuitError
 from jobkeeper.hashing import sha256_tag
 
 #: Units (operations + operands + expression nodes) a program may expand to.
-MAX_WORK = 20_000_000
+MAX_WORK = 8_000_000
 MAX_REGISTER_SIZE = 1 << 24
 MAX_INCLUDE_DEPTH = 16
 STANDARD_HEADER = "qelib1.inc"
@@ -191,10 +191,11 @@ class _Program:
             arrow_target = stream.peek()
             bits, c_reg = self.argument(quantum=False)
             stream.expect(";")
-            if q_reg != c_reg or len(qubits) != len(bits):
+            if q_reg != c_reg:
+                stream.fail("measure takes a qubit and a bit, or two registers", arrow_target)
+            if len(qubits) != len(bits):
                 stream.fail(
-                    "measure takes a qubit and a bit, or two registers of the same "
-                    "size (register sizes differ in broadcast)",
+                    f"register sizes differ in broadcast: {len(qubits)} qubits, {len(bits)} bits",
                     arrow_target,
                 )
             self.charge(3 * len(qubits), tok)
