@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import base64
 import binascii
+import functools
 import json
 import re
 from collections.abc import Iterable, Mapping
@@ -19,7 +20,7 @@ from cryptography.exceptions import InvalidSignature
 from cryptography.hazmat.primitives.asymmetric.ed25519 import Ed25519PrivateKey, Ed25519PublicKey
 
 from jobkeeper.exceptions import VerificationError
-from jobkeeper.hashing import canonical_json
+from jobkeeper.provenance.canonical import canonical_json
 from jobkeeper.provenance.keys import fingerprint, load_public_key, public_key_bytes
 
 PAYLOAD_TYPE = "application/vnd.in-toto+json"
@@ -117,13 +118,22 @@ class VerifiedEnvelope:
 TrustedKeys = Mapping[str, bytes] | Iterable[bytes | Ed25519PublicKey]
 
 
+@functools.lru_cache(maxsize=256)
+def _trusted_key(raw: bytes) -> tuple[str, Ed25519PublicKey]:
+    # Cached: a log verification passes the same few keys for every entry.
+    return fingerprint(raw), load_public_key(raw)
+
+
 def _key_table(keys: TrustedKeys) -> dict[str, Ed25519PublicKey]:
     # Fingerprints are recomputed from the keys, so a mislabelled mapping cannot mislead.
     values = keys.values() if isinstance(keys, Mapping) else keys
     table: dict[str, Ed25519PublicKey] = {}
     for value in values:
-        pub = load_public_key(value) if isinstance(value, bytes) else value
-        table[fingerprint(public_key_bytes(pub))] = pub
+        if isinstance(value, bytes):
+            fp, pub = _trusted_key(value)
+        else:
+            fp, pub = fingerprint(public_key_bytes(value)), value
+        table[fp] = pub
     return table
 
 
