@@ -49,7 +49,7 @@ from jobkeeper.backends._sampling import (
     marginal,
     probabilities_of,
 )
-from jobkeeper.circuit.ir import Condition
+from jobkeeper.circuit.ir import Circuit, Condition
 from jobkeeper.exceptions import ConfigError, PermanentBackendError
 from jobkeeper.hashing import digest_of
 
@@ -198,6 +198,23 @@ class StatevectorBackend:
             metadata["note"] = "the circuit measures nothing: every classical bit reads 0"
         return Result(counts=counts, probabilities=probabilities, metadata=metadata)
 
+    def final_state(self, circuit: Circuit) -> kernels.State:
+        """The state vector at the end of a circuit that neither measures, resets nor
+        branches before its final measurements (which are ignored). Amplitude index bit
+        q is qubit q (qubit 0 least significant)."""
+        program = compile_circuit(circuit, self.fusion_width)
+        if any(not isinstance(step, Gates) for step in program.steps):
+            raise PermanentBackendError(
+                "the circuit measures, resets or branches mid-way: it has no single final state"
+            )
+        self._check_memory(circuit.num_qubits)
+        state = _initial_state(circuit.num_qubits)
+        for step in program.steps:
+            assert isinstance(step, Gates)
+            for block in step.blocks:
+                kernels.apply(state, circuit.num_qubits, block.matrix, block.qubits, block.kind)
+        return state
+
     async def start(self, task: Task, *, client_key: str) -> Started:
         """Runs the task at once (idempotent: the same task and seed give the same
         result); the client key is not needed."""
@@ -216,8 +233,7 @@ class StatevectorBackend:
         """Exact outcome weights per classical record (before the final measurements),
         each as a vector over the final measurements' outcomes; and the branch count."""
         n = program.num_qubits
-        initial = np.zeros(1 << n, dtype=np.complex128)
-        initial[0] = 1.0
+        initial = _initial_state(n)
         final_qubits = [q for q, _ in program.final]
         records: dict[int, Floats] = {}
         stack: list[tuple[int, kernels.State, float, int]] = [(0, initial, 1.0, 0)]
@@ -263,6 +279,12 @@ class StatevectorBackend:
             else:
                 records[record] = probs
         return records, branches
+
+
+def _initial_state(num_qubits: int) -> kernels.State:
+    state = np.zeros(1 << num_qubits, dtype=np.complex128)
+    state[0] = 1.0
+    return state
 
 
 def _holds(condition: Condition, record: int) -> bool:
