@@ -1,0 +1,300 @@
+"""Connections for the PostgreSQL store: connection strings, the pool, error mapping,
+retries and schema migrations. Imported only by :mod:`jobkeeper.store.postgres`, so psycopg
+loads only when a ``postgresql://`` archive is used.
+
+Retries: a transaction that fails because its connection broke (the server restarted, an
+operator ran ``pg_terminate_backend``, a network blip) or because PostgreSQL chose it as a
+deadlock victim is run again on a fresh connection, within a deadline. Running a store
+transaction twice is safe even when the first one committed just before the connection
+dropped: every worker write is fenced on its lease token (a second run changes nothing
+and reports the lease lost), enqueue deduplicates on the job key, and the rest are
+idempotent upserts or conditional updates. Only then does the caller see
+:class:`~jobkeeper.exceptions.StoreUnavailable`.
+"""
+
+from __future__ import annotations
+
+import os
+import random
+import time
+from collections.abc import Callable
+from typing import Any, TypeVar
+from urllib.parse import quote, urlsplit, urlunsplit
+
+import psycopg
+from psycopg import errors as pg_errors
+from psycopg import sql as pg_sql
+from psycopg.conninfo import conninfo_to_dict, make_conninfo
+from psycopg.rows import TupleRow
+from psycopg_pool import ConnectionPool, PoolTimeout
+
+from jobkeeper.exceptions import ConfigError, StoreError, StoreUnavailable
+from jobkeeper.store import _sql as sql
+
+T = TypeVar("T")
+Conn = psycopg.Connection[TupleRow]
+
+#: Keys of the transaction-level advisory lock that serialises migrations of one schema
+#: (the second key is a hash of the schema name, so archives in other schemas of the same
+#: database do not wait for each other).
+MIGRATION_LOCK = 0x6A6B6D67  # "jkmg"
+
+#: How long a store call keeps trying to reach the database before it gives up.
+RECONNECT_DEADLINE = 30.0
+#: Deadlock victims and serialisation failures are retried this many times.
+ROLLBACK_RETRIES = 8
+
+
+def redact(url: str) -> str:
+    """The URL or conninfo string with any password replaced by ``***``."""
+    if "://" in url:
+        parts = urlsplit(url)
+        netloc = parts.netloc
+        if "@" in netloc:
+            userinfo, _, hostinfo = netloc.rpartition("@")
+            if ":" in userinfo:
+                userinfo = userinfo.split(":", 1)[0] + ":***"
+            netloc = f"{userinfo}@{hostinfo}"
+        query = "&".join(
+            f"{k}=***" if k.lower() == "password" else f"{k}={v}" if sep else k
+            for k, sep, v in (item.partition("=") for item in parts.query.split("&") if item)
+        )
+        return urlunsplit((parts.scheme, netloc, parts.path, query, parts.fragment))
+    try:
+        params = conninfo_to_dict(url)
+    except psycopg.ProgrammingError:
+        return "<unparsable connection string>"
+    if "password" in params:
+        params["password"] = "***"
+    return make_conninfo(**{k: str(v) for k, v in params.items()})
+
+
+def describe(url: str) -> str:
+    """Where the archive lives, for messages: ``host:port/dbname`` (never a password)."""
+    try:
+        params = conninfo_to_dict(url)
+    except psycopg.ProgrammingError:
+        return redact(url)
+    host = str(params.get("host") or os.environ.get("PGHOST") or "localhost")
+    port = str(params.get("port") or os.environ.get("PGPORT") or "5432")
+    dbname = str(params.get("dbname") or os.environ.get("PGDATABASE") or params.get("user") or "")
+    return f"{host}:{port}/{dbname}"
+
+
+def build_conninfo(url: str) -> str:
+    """The URL plus our defaults where it sets none: a connect timeout, TCP keepalives
+    (a worker on another machine notices a dead link), and a fallback application name
+    (``PGAPPNAME`` or the URL's ``application_name`` win)."""
+    try:
+        given = conninfo_to_dict(url)
+    except psycopg.ProgrammingError as exc:
+        raise ConfigError(f"not a usable PostgreSQL URL {redact(url)!r}: {exc}") from None
+    extra = {
+        "connect_timeout": "10",
+        "keepalives": "1",
+        "keepalives_idle": "30",
+        "keepalives_interval": "10",
+        "keepalives_count": "3",
+        "fallback_application_name": "jobkeeper",
+    }
+    return make_conninfo(url, **{k: v for k, v in extra.items() if k not in given})
+
+
+def scrub(message: str, url: str) -> str:
+    """A server or libpq message with the URL's password removed, should it appear."""
+    try:
+        password = conninfo_to_dict(url).get("password")
+    except psycopg.ProgrammingError:
+        password = None
+    text = str(message).strip()
+    for secret in {str(password), quote(str(password))} if password else set():
+        text = text.replace(secret, "***")
+    return " ".join(text.split())
+
+
+def _is_rollback(exc: BaseException) -> bool:
+    return isinstance(exc, pg_errors.DeadlockDetected | pg_errors.SerializationFailure)
+
+
+class Database:
+    """A small bounded pool and the one way every store call reaches the database."""
+
+    def __init__(
+        self,
+        url: str,
+        *,
+        schema: str | None,
+        min_size: int,
+        max_size: int,
+        idle_in_transaction_timeout: float,
+    ) -> None:
+        self.url = url
+        self.conninfo = build_conninfo(url)
+        self.where = describe(url)
+        self.schema = schema
+        self.idle_timeout_ms = max(1, int(idle_in_transaction_timeout * 1000))
+        self.pool: ConnectionPool[Conn] = ConnectionPool(
+            self.conninfo,
+            min_size=min_size,
+            max_size=max_size,
+            kwargs={"autocommit": True},
+            configure=self.configure,
+            open=False,
+            name="jobkeeper",
+            timeout=RECONNECT_DEADLINE,
+            reconnect_timeout=RECONNECT_DEADLINE * 10,
+        )
+
+    def configure(self, conn: Conn) -> None:
+        """Session settings for every new connection: a transaction left idle (a stuck or
+        stopped client) is ended by the server and its row locks freed, and the schema."""
+        conn.execute(
+            pg_sql.SQL("SET idle_in_transaction_session_timeout = {}").format(
+                pg_sql.Literal(self.idle_timeout_ms)
+            )
+        )
+        if self.schema is not None:
+            conn.execute(pg_sql.SQL("SET search_path TO {}").format(pg_sql.Identifier(self.schema)))
+
+    def connect(self) -> Conn:
+        """One connection outside the pool (migrations, listening), configured alike."""
+        try:
+            conn = psycopg.connect(self.conninfo, autocommit=True)
+        except psycopg.Error as exc:
+            raise self.unavailable(exc) from None
+        try:
+            self.configure(conn)
+        except psycopg.Error as exc:
+            conn.close()
+            raise self.unavailable(exc) from None
+        return conn
+
+    def open(self) -> None:
+        self.pool.open(wait=False)
+
+    def close(self) -> None:
+        self.pool.close()
+
+    def unavailable(self, exc: BaseException) -> StoreUnavailable:
+        return StoreUnavailable(
+            f"cannot use the PostgreSQL archive at {self.where}: {scrub(str(exc), self.url)}"
+        )
+
+    def run(self, work: Callable[[Conn], T], *, write: bool) -> T:
+        """Run ``work`` on a pooled connection: in one transaction when ``write``, else in
+        autocommit (single reads hold no transaction open). Retried as the module
+        docstring says; psycopg errors come out as our own."""
+        deadline = time.monotonic() + RECONNECT_DEADLINE
+        broken = rolled_back = 0
+        while True:
+            try:
+                with self.pool.connection() as conn:
+                    try:
+                        if write:
+                            with conn.transaction():
+                                return work(conn)
+                        return work(conn)
+                    except psycopg.Error as exc:
+                        if conn.broken or conn.closed:
+                            raise _Broken(exc) from exc
+                        raise
+            except _Broken as wrapped:
+                # The pool may hold more dead connections (all of this process's were
+                # terminated): try again at once a few times, then back off.
+                broken += 1
+                if time.monotonic() > deadline:
+                    raise self.unavailable(wrapped.cause) from None
+                if broken > self.pool.max_size:
+                    time.sleep(min(2.0, 0.05 * 2 ** min(broken - self.pool.max_size, 6)))
+            except PoolTimeout:
+                raise StoreUnavailable(
+                    f"no connection to the PostgreSQL archive at {self.where} within "
+                    f"{RECONNECT_DEADLINE:.0f} s (is the server running and reachable?)"
+                ) from None
+            except psycopg.Error as exc:
+                if _is_rollback(exc) and rolled_back < ROLLBACK_RETRIES:
+                    rolled_back += 1
+                    time.sleep(random.uniform(0.0, 0.01 * rolled_back))
+                    continue
+                if isinstance(exc, psycopg.OperationalError):
+                    raise self.unavailable(exc) from None
+                raise StoreError(
+                    f"archive error at {self.where}: {scrub(str(exc), self.url)}"
+                ) from None
+
+
+class _Broken(Exception):
+    def __init__(self, cause: psycopg.Error) -> None:
+        super().__init__(str(cause))
+        self.cause = cause
+
+
+# -- migrations ------------------------------------------------------------------------------
+
+NOW = "extract(epoch from statement_timestamp())::float8"
+
+#: PostgreSQL-only statements that go with each schema version (same numbering as
+#: ``sql.MIGRATIONS``): the log_state row exists from the start, so appends can lock it.
+PG_EXTRAS: list[list[str]] = [
+    ["INSERT INTO log_state (id, size, state) VALUES (1, 0, '') ON CONFLICT (id) DO NOTHING"],
+]
+
+
+def migrate(db: Database, *, create: bool) -> int:
+    """Bring the schema to ``sql.SCHEMA_VERSION`` in one transaction, under a
+    transaction-level advisory lock so workers starting at once do not race. Returns the
+    version found before."""
+    conn = db.connect()
+    try:
+        with conn.transaction():
+            conn.execute(
+                "SELECT pg_advisory_xact_lock(%s, hashtext(coalesce(%s, current_schema(), '')))",
+                (MIGRATION_LOCK, db.schema),
+            )
+            if db.schema is not None and create:
+                conn.execute(
+                    pg_sql.SQL("CREATE SCHEMA IF NOT EXISTS {}").format(
+                        pg_sql.Identifier(db.schema)
+                    )
+                )
+            row = conn.execute("SELECT to_regclass('meta') IS NOT NULL").fetchone()
+            if not (row and row[0]):
+                if not create:
+                    where = db.where + (f" (schema {db.schema})" if db.schema else "")
+                    raise StoreUnavailable(
+                        f"no archive at {where} (run 'jobkeeper init --store URL' first)"
+                    )
+                conn.execute("CREATE TABLE meta (key TEXT PRIMARY KEY, value TEXT)")
+            found = conn.execute("SELECT value FROM meta WHERE key = 'schema_version'").fetchone()
+            version = int(found[0]) if found else 0
+            if version > sql.SCHEMA_VERSION:
+                raise ConfigError(
+                    f"the archive at {db.where} has schema version {version}, newer than "
+                    f"this jobkeeper understands ({sql.SCHEMA_VERSION}); upgrade jobkeeper"
+                )
+            for step in range(version, sql.SCHEMA_VERSION):
+                for statement in sql.MIGRATIONS[step] + PG_EXTRAS[step]:
+                    conn.execute(statement.encode())
+            conn.execute(
+                "INSERT INTO meta (key, value) VALUES ('schema_version', %s) "
+                "ON CONFLICT (key) DO UPDATE SET value = excluded.value",
+                (str(sql.SCHEMA_VERSION),),
+            )
+        return version
+    except psycopg.OperationalError as exc:
+        raise db.unavailable(exc) from None
+    except psycopg.Error as exc:
+        raise StoreError(
+            f"cannot prepare the archive at {db.where}: {scrub(str(exc), db.url)}"
+        ) from None
+    finally:
+        conn.close()
+
+
+def translate(statement: str, **extra: Any) -> str:
+    """A shared query in PostgreSQL's dialect: the database clock for ``{now}``, the
+    extra slots filled, ``%s`` placeholders for ``?``."""
+    text = statement.replace("{now}", NOW)
+    if extra:
+        text = text.format(**extra)
+    return text.replace("%", "%%").replace("?", "%s")

@@ -1,0 +1,524 @@
+"""The PostgreSQL store: one database shared by workers on several machines.
+
+Same protocol, same queries (``_sql.py``) and same contract tests as the SQLite store.
+What is particular to PostgreSQL:
+
+- **Clock.** ``{now}`` is ``extract(epoch from statement_timestamp())``: the server's clock
+  (never a worker's), read once per statement. Not ``now()``, which is frozen at the start
+  of the transaction (a finish that waited for the log lock would stamp the time it began
+  waiting); not ``clock_timestamp()``, which is volatile: it changes between the columns
+  of one row (``lease_expires`` and ``updated_at`` would disagree) and cannot be an index
+  bound, so the claim query could not range-scan the due-jobs index.
+- **Claims.** ``UPDATE … WHERE id IN (SELECT … ORDER BY not_before LIMIT n FOR UPDATE
+  SKIP LOCKED) RETURNING …``: concurrent claimers skip each other's rows instead of
+  waiting, and the subselect re-checks the state of a row updated since its snapshot.
+  The scan uses the partial index of due jobs (queued or waiting), which finished jobs
+  leave.
+- **The log lock.** ``finish`` first archives its results (fenced updates, in parallel
+  with other finishers), then locks the single ``log_state`` row with ``SELECT … FOR
+  UPDATE`` and appends. Appends of all workers are so serialised: log indexes stay
+  contiguous and the saved compact range matches them. A row lock rather than an
+  advisory lock: it belongs to this schema, and works behind a transaction-mode pooler.
+  Claims never take it.
+- **Transactions.** Every state change is one short transaction on a pooled connection
+  (a small bounded pool, 1–4 connections by default); reads are single autocommit
+  statements; no connection is held between calls, so none is held while a worker waits
+  on a remote device. ``idle_in_transaction_session_timeout`` ends a transaction whose
+  client stopped (its row locks are freed). A broken connection or a deadlock victim is
+  retried on a fresh connection (see ``_pg_conn``).
+- **Schema.** Numbered migrations recorded in ``meta.schema_version``, applied in one
+  transaction under a transaction-level advisory lock (two workers starting at once do
+  not race). ``create=True`` (what ``jobkeeper init --store URL`` does) creates the
+  tables; ``schema=`` puts the archive in a schema of its own (created if needed);
+  otherwise it lives in the connection's current schema (the URL may set
+  ``options=-csearch_path=...``).
+- **Wake-ups.** ``enqueue`` sends a NOTIFY; :meth:`PostgresStore.wait_for_work` waits for
+  one. It is only a hint (notifications are lost while nobody listens): polling stays the
+  truth.
+"""
+
+from __future__ import annotations
+
+import json
+from collections.abc import Sequence
+from typing import Any
+
+import psycopg
+
+from jobkeeper.exceptions import AmbiguousJobId, JobNotFound, LeaseLost
+from jobkeeper.store import (
+    Attempt,
+    Claim,
+    Completion,
+    JobRecord,
+    LogAppender,
+    LogEntry,
+    NewJob,
+    StoredCheckpoint,
+    StoredResult,
+)
+from jobkeeper.store import _sql as sql
+from jobkeeper.store._pg_conn import NOW, Conn, Database, migrate, redact, translate
+
+WAKE_CHANNEL = "jobkeeper_work"
+_CACHE: dict[str, str] = {}
+
+
+def _q(statement: str) -> str:
+    """A shared statement in PostgreSQL's dialect (cached: the hot ones run often)."""
+    text = _CACHE.get(statement)
+    if text is None:
+        text = _CACHE[statement] = translate(statement)
+    return text
+
+
+def _record(row: Sequence[Any]) -> JobRecord:
+    # JOB_COLUMNS lists the columns in JobRecord's field order.
+    values = list(row)
+    values[8] = json.loads(values[8])  # spec
+    values[15] = int(values[15])  # lease_token
+    values[21] = bool(values[21])  # cancel_requested
+    return JobRecord(*values)
+
+
+def _entry(row: Sequence[Any]) -> LogEntry:
+    idx, job_id, envelope, leaf, signer, created = row
+    return LogEntry(int(idx), job_id, bytes(envelope), bytes(leaf), signer, created)
+
+
+def _lost(job_id: str) -> LeaseLost:
+    return LeaseLost(f"job {job_id}: lease lost, another worker holds it now")
+
+
+class PostgresStore:
+    """The archive in a PostgreSQL database. Safe for many processes on many machines;
+    one store object may be used from several threads (each call takes a pooled
+    connection for its own transaction)."""
+
+    def __init__(
+        self,
+        url: str,
+        *,
+        create: bool = True,
+        schema: str | None = None,
+        min_connections: int = 1,
+        max_connections: int = 4,
+        idle_in_transaction_timeout: float = 30.0,
+    ) -> None:
+        self.url = url
+        self.location = redact(url) + (f" (schema {schema})" if schema else "")
+        self.schema = schema
+        self._db = Database(
+            url, schema=schema, min_size=min_connections, max_size=max_connections,
+            idle_in_transaction_timeout=idle_in_transaction_timeout,
+        )  # fmt: skip
+        migrate(self._db, create=create)
+        self._db.open()
+        self._listener: Conn | None = None
+
+    # -- plumbing -------------------------------------------------------------------------
+
+    def _read(self, statement: str, params: Sequence[Any] = ()) -> list[Any]:
+        def work(conn: Conn) -> list[Any]:
+            return conn.execute(statement.encode(), params).fetchall()
+
+        return self._db.run(work, write=False)
+
+    def _fenced(self, statement: str, params: Sequence[Any], job_id: str) -> None:
+        def work(conn: Conn) -> None:
+            if conn.execute(_q(statement).encode(), params).rowcount != 1:
+                raise _lost(job_id)
+
+        self._db.run(work, write=True)
+
+    # -- queue ----------------------------------------------------------------------------
+
+    def now(self) -> float:
+        return float(self._read(f"SELECT {NOW}")[0][0])
+
+    def enqueue(self, jobs: Sequence[NewJob]) -> list[tuple[JobRecord, bool]]:
+        if not jobs:
+            return []
+        rows = [
+            (job.id, job.job_key, job.backend, job.shots, job.seed, job.repeat, job.label,
+             json.dumps(dict(job.spec), sort_keys=True), job.max_attempts, job.cost)
+            for job in jobs
+        ]  # fmt: skip
+
+        def work(conn: Conn) -> list[tuple[JobRecord, bool]]:
+            out: list[tuple[JobRecord, bool]] = []
+            with conn.cursor() as cur:
+                # One round of the pipeline for all rows; each INSERT … ON CONFLICT DO
+                # NOTHING returns its row, or none when a live job has the key.
+                cur.executemany(_q(sql.INSERT_JOB).encode(), rows, returning=True)
+                inserted: list[Any] = []
+                while True:
+                    inserted.append(cur.fetchone())
+                    if not cur.nextset():
+                        break
+            for job, row in zip(jobs, inserted, strict=True):
+                if row is not None:
+                    out.append((_record(row), True))
+                    continue
+                out.append((self._existing_or_insert(conn, job), False))
+            if any(created for _, created in out):
+                conn.execute("SELECT pg_notify(%s, '')", (WAKE_CHANNEL,))
+            return out
+
+        return self._db.run(work, write=True)
+
+    def _existing_or_insert(self, conn: Conn, job: NewJob) -> JobRecord:
+        existing = conn.execute(_q(sql.SELECT_LIVE_BY_KEY).encode(), (job.job_key,)).fetchone()
+        if existing is None:
+            # The conflicting job left the keyed states between our insert and this read
+            # (cancelled or failed meanwhile): the key is free again, so insert ours.
+            row = conn.execute(
+                _q(sql.INSERT_JOB).encode(),
+                (job.id, job.job_key, job.backend, job.shots, job.seed, job.repeat,
+                 job.label, json.dumps(dict(job.spec), sort_keys=True), job.max_attempts,
+                 job.cost),
+            ).fetchone()  # fmt: skip
+            if row is not None:
+                return _record(row)
+            existing = conn.execute(_q(sql.SELECT_LIVE_BY_KEY).encode(), (job.job_key,)).fetchone()
+            if existing is None:  # pragma: no cover - would need two flips in one statement
+                raise psycopg.errors.SerializationFailure("job key kept changing; try again")
+        return _record(existing)
+
+    def claim(
+        self,
+        owner: str,
+        *,
+        limit: int,
+        lease_seconds: float,
+        backends: Sequence[str] | None = None,
+        ids: Sequence[str] | None = None,
+    ) -> list[Claim]:
+        if limit <= 0:
+            return []
+        params: list[Any] = [owner, float(lease_seconds)]
+        backend_filter = ""
+        for column, values in (("backend", backends), ("id", ids)):
+            if values is None:
+                continue
+            if not values:
+                return []
+            backend_filter += f" AND {column} = ANY(?)"
+            params.append(list(values))
+        params.append(int(limit))
+        statement = translate(
+            sql.CLAIM, backend_filter=backend_filter, lock="FOR UPDATE SKIP LOCKED"
+        ).encode()
+
+        def work(conn: Conn) -> list[Any]:
+            return conn.execute(statement, params).fetchall()
+
+        claimed = [_record(row) for row in self._db.run(work, write=True)]
+        claimed.sort(key=lambda job: job.not_before)
+        return [
+            Claim(job=job, token=job.lease_token, was="waiting" if job.handle else "queued")
+            for job in claimed
+        ]
+
+    def renew(
+        self, owner: str, leases: Sequence[tuple[str, int]], lease_seconds: float
+    ) -> set[str]:
+        if not leases:
+            return set()
+
+        def work(conn: Conn) -> set[str]:
+            held: set[str] = set()
+            for job_id, token in leases:
+                cur = conn.execute(
+                    _q(sql.RENEW).encode(), (float(lease_seconds), job_id, token, owner)
+                )
+                if cur.rowcount == 1:
+                    held.add(job_id)
+            return held
+
+        return self._db.run(work, write=True)
+
+    def record_handle(self, job_id: str, token: int, handle: str, poll_after: float) -> None:
+        self._fenced(sql.RECORD_HANDLE, (handle, float(poll_after), job_id, token), job_id)
+
+    def snooze(self, job_id: str, token: int, poll_after: float) -> None:
+        self._fenced(sql.SNOOZE, (float(poll_after), job_id, token), job_id)
+
+    def retry(self, job_id: str, token: int, error_class: str, message: str, delay: float) -> str:
+        def work(conn: Conn) -> str:
+            inserted = conn.execute(
+                _q(sql.INSERT_ATTEMPT).encode(),
+                (error_class, message, float(delay), job_id, token),
+            ).rowcount
+            row = conn.execute(
+                _q(sql.RETRY).encode(), (message, float(delay), job_id, token)
+            ).fetchone()
+            if inserted != 1 or row is None:
+                raise _lost(job_id)
+            return str(row[0])
+
+        return self._db.run(work, write=True)
+
+    def fail(self, job_id: str, token: int, error_class: str, message: str) -> None:
+        def work(conn: Conn) -> None:
+            inserted = conn.execute(
+                _q(sql.INSERT_ATTEMPT).encode(), (error_class, message, None, job_id, token)
+            ).rowcount
+            if (
+                inserted != 1
+                or conn.execute(_q(sql.FAIL).encode(), (message, job_id, token)).rowcount != 1
+            ):
+                raise _lost(job_id)
+
+        self._db.run(work, write=True)
+
+    def finish(self, completions: Sequence[Completion], appender: LogAppender) -> list[bool]:
+        if not completions:
+            return []
+
+        def work(conn: Conn) -> list[bool]:
+            done: list[bool] = []
+            accepted: list[Completion] = []
+            for item in completions:
+                ok = conn.execute(_q(sql.FINISH).encode(), (item.job_id, item.token)).rowcount == 1
+                done.append(ok)
+                if ok:
+                    accepted.append(item)
+            if accepted:
+                with conn.cursor() as cur:
+                    cur.executemany(
+                        _q(sql.INSERT_RESULT).encode(),
+                        [
+                            (item.job_id,
+                             None if item.result_counts is None
+                             else json.dumps(dict(item.result_counts)),
+                             None if item.result_probabilities is None
+                             else json.dumps(dict(item.result_probabilities)),
+                             json.dumps(dict(item.metadata), sort_keys=True))
+                            for item in accepted
+                        ],
+                    )  # fmt: skip
+                self._append_log(conn, accepted, appender)
+            return done
+
+        return self._db.run(work, write=True)
+
+    def _append_log(self, conn: Conn, items: Sequence[Completion], appender: LogAppender) -> None:
+        # The log lock: held from here to the commit, by one finisher at a time.
+        row = conn.execute("SELECT size, state FROM log_state WHERE id = 1 FOR UPDATE").fetchone()
+        if row is None:  # an archive whose row went missing: recreate it, then lock it
+            conn.execute(_q(PG_LOG_STATE_SEED).encode())
+            row = conn.execute(
+                "SELECT size, state FROM log_state WHERE id = 1 FOR UPDATE"
+            ).fetchone()
+            assert row is not None
+        size = int(row[0])
+        state = bytes(row[1]) if size else None
+        leaves, new_state, root, note = appender(state, size, [c.envelope for c in items])
+        with conn.cursor() as cur:
+            cur.executemany(
+                _q(sql.INSERT_LOG_ENTRY).encode(),
+                [
+                    (size + offset, item.job_id, item.envelope, leaf, item.signer)
+                    for offset, (item, leaf) in enumerate(zip(items, leaves, strict=True))
+                ],
+            )
+        new_size = size + len(items)
+        conn.execute(
+            "UPDATE log_state SET size = %s, state = %s WHERE id = 1", (new_size, new_state)
+        )
+        conn.execute(
+            _q("INSERT INTO checkpoints (size, root, note, created_at) VALUES (?, ?, ?, {now})"),
+            (new_size, root, note),
+        )
+
+    def release(self, owner: str, leases: Sequence[tuple[str, int]]) -> None:
+        if not leases:
+            return
+
+        def work(conn: Conn) -> None:
+            for job_id, token in leases:
+                conn.execute(_q(sql.RELEASE).encode(), (job_id, token, owner))
+
+        self._db.run(work, write=True)
+
+    def requeue_expired(self) -> int:
+        def work(conn: Conn) -> int:
+            return int(conn.execute(_q(sql.REQUEUE_EXPIRED).encode()).rowcount)
+
+        return self._db.run(work, write=True)
+
+    def request_cancel(self, job_id: str) -> JobRecord:
+        def work(conn: Conn) -> None:
+            if conn.execute(_q(sql.CANCEL_QUEUED).encode(), (job_id,)).rowcount == 0:
+                conn.execute(_q(sql.REQUEST_CANCEL).encode(), (job_id,))
+
+        self._db.run(work, write=True)
+        return self.get(job_id)
+
+    def mark_cancelled(self, job_id: str, token: int) -> None:
+        self._fenced(sql.MARK_CANCELLED, (job_id, token), job_id)
+
+    def wait_for_work(self, timeout: float) -> bool:
+        """Wait up to ``timeout`` seconds for a hint that jobs were enqueued; True when one
+        came. Only a hint: callers still claim (or poll) to find out what is due. Uses one
+        dedicated connection, opened on first use."""
+        try:
+            if self._listener is None or self._listener.closed:
+                self._listener = self._db.connect()
+                self._listener.execute(f"LISTEN {WAKE_CHANNEL}")
+            for _ in self._listener.notifies(timeout=max(0.0, timeout), stop_after=1):
+                return True
+            return False
+        except psycopg.Error:
+            if self._listener is not None:
+                self._listener.close()
+            self._listener = None
+            return False
+
+    # -- reading --------------------------------------------------------------------------
+
+    def get(self, id_or_prefix: str) -> JobRecord:
+        text = id_or_prefix.strip().lower()
+        if not text or any(ch not in "0123456789abcdef" for ch in text):
+            raise JobNotFound(f"no job {id_or_prefix!r}: a job id is hexadecimal")
+        rows = self._read(
+            f"SELECT {sql.JOB_COLUMNS} FROM jobs WHERE id >= %s AND id < %s ORDER BY id LIMIT 2",
+            (text, text + "g"),
+        )
+        if not rows:
+            raise JobNotFound(f"no job matches {id_or_prefix!r}")
+        if len(rows) > 1 and rows[0][0] != text:
+            raise AmbiguousJobId(
+                f"{id_or_prefix!r} matches several jobs; give more characters of the id"
+            )
+        return _record(rows[0])
+
+    def get_many(self, ids: Sequence[str]) -> list[JobRecord]:
+        if not ids:
+            return []
+        rows = self._read(f"SELECT {sql.JOB_COLUMNS} FROM jobs WHERE id = ANY(%s)", (list(ids),))
+        out = [_record(row) for row in rows]
+        order = {job_id: i for i, job_id in enumerate(ids)}
+        out.sort(key=lambda job: order[job.id])
+        return out
+
+    def list_jobs(
+        self, *, label: str | None = None, state: str | None = None, limit: int | None = None
+    ) -> list[JobRecord]:
+        where, params = [], []
+        if label is not None:
+            where.append("label = %s")
+            params.append(label)
+        if state is not None:
+            where.append("state = %s")
+            params.append(state)
+        clause = f"WHERE {' AND '.join(where)}" if where else ""
+        tail = f"LIMIT {int(limit)}" if limit else ""
+        rows = self._read(
+            f"SELECT {sql.JOB_COLUMNS} FROM jobs {clause} ORDER BY created_at, id {tail}", params
+        )
+        return [_record(row) for row in rows]
+
+    def counts_by_state(self) -> dict[str, int]:
+        rows = self._read("SELECT state, COUNT(*) FROM jobs GROUP BY state")
+        return {row[0]: int(row[1]) for row in rows}
+
+    def attempts(self, job_id: str) -> list[Attempt]:
+        rows = self._read(
+            "SELECT job_id, number, at, error_class, message, retry_at FROM attempts "
+            "WHERE job_id = %s ORDER BY number",
+            (job_id,),
+        )
+        return [Attempt(*row) for row in rows]
+
+    def result(self, job_id: str) -> StoredResult | None:
+        rows = self._read(
+            "SELECT job_id, counts, probabilities, metadata, created_at FROM results "
+            "WHERE job_id = %s",
+            (job_id,),
+        )
+        if not rows:
+            return None
+        job, counts, probabilities, metadata, created = rows[0]
+        return StoredResult(
+            job_id=job,
+            counts=None if counts is None else json.loads(counts),
+            probabilities=None if probabilities is None else json.loads(probabilities),
+            metadata=json.loads(metadata),
+            created_at=created,
+        )
+
+    def log_entry_for(self, job_id: str) -> LogEntry | None:
+        rows = self._read(
+            "SELECT idx, job_id, envelope, leaf_hash, signer, created_at FROM log_entries "
+            "WHERE job_id = %s",
+            (job_id,),
+        )
+        return _entry(rows[0]) if rows else None
+
+    def log_entries(self, start: int = 0, end: int | None = None) -> list[LogEntry]:
+        rows = self._read(
+            "SELECT idx, job_id, envelope, leaf_hash, signer, created_at FROM log_entries "
+            "WHERE idx >= %s AND idx < %s ORDER BY idx",
+            (start, end if end is not None else 2**62),
+        )
+        return [_entry(row) for row in rows]
+
+    def checkpoints(self) -> list[StoredCheckpoint]:
+        rows = self._read("SELECT size, root, note, created_at FROM checkpoints ORDER BY size")
+        return [StoredCheckpoint(int(s), bytes(r), n, c) for s, r, n, c in rows]
+
+    def register_key(self, fingerprint: str, public_key_b64: str) -> None:
+        def work(conn: Conn) -> None:
+            conn.execute(
+                _q("INSERT INTO public_keys (fingerprint, public_key, created_at) "
+                   "VALUES (?, ?, {now}) ON CONFLICT (fingerprint) DO NOTHING").encode(),
+                (fingerprint, public_key_b64),
+            )  # fmt: skip
+
+        self._db.run(work, write=True)
+
+    def public_keys(self) -> dict[str, str]:
+        rows = self._read(
+            "SELECT fingerprint, public_key FROM public_keys ORDER BY created_at, fingerprint"
+        )
+        return {fp: key for fp, key in rows}
+
+    def spent(self, label: str | None = None) -> float:
+        clause, params = "WHERE state IN ('queued', 'running', 'waiting', 'done')", []
+        if label is not None:
+            clause += " AND label = %s"
+            params.append(label)
+        return float(self._read(f"SELECT COALESCE(SUM(cost), 0) FROM jobs {clause}", params)[0][0])
+
+    def get_meta(self, key: str) -> str | None:
+        rows = self._read("SELECT value FROM meta WHERE key = %s", (key,))
+        return str(rows[0][0]) if rows else None
+
+    def set_meta(self, key: str, value: str) -> None:
+        def work(conn: Conn) -> None:
+            conn.execute(
+                "INSERT INTO meta (key, value) VALUES (%s, %s) "
+                "ON CONFLICT (key) DO UPDATE SET value = excluded.value",
+                (key, value),
+            )
+
+        self._db.run(work, write=True)
+
+    def close(self) -> None:
+        if self._listener is not None:
+            self._listener.close()
+            self._listener = None
+        self._db.close()
+
+    def __enter__(self) -> PostgresStore:
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.close()
+
+
+PG_LOG_STATE_SEED = (
+    "INSERT INTO log_state (id, size, state) VALUES (1, 0, '') ON CONFLICT (id) DO NOTHING"
+)
