@@ -1,7 +1,7 @@
 """Test doubles shipped with jobkeeper, for our tests and for users' own.
 
 :class:`RecordingBackend` behaves like a well-made remote device: ``start`` is idempotent
-on the client key, and every real execution is appended to a ledger file, so a test can
+on the client key, and every execution leaves a result file in a ledger folder, so a test can
 count executions across processes (a worker that is killed and restarted included).
 Its counts are a deterministic function of the client key and the shots, so two
 executions of one job would be indistinguishable by their results: only the ledger tells.
@@ -64,14 +64,14 @@ class RecordingBackend:
         with open(lock, "a") as handle:
             fcntl.flock(handle, fcntl.LOCK_EX)
             try:
+                with open(self.ledger_dir / "starts.log", "a") as starts:
+                    starts.write(client_key + "\n")
                 if path.exists():
                     stored = json.loads(path.read_text())
                     return Started(result=Result(counts=stored, metadata={"replayed": True}))
                 counts = _fake_counts(client_key, task.shots, task.circuit.num_clbits)
-                with open(self.ledger_dir / "executions.log", "a") as ledger:
-                    ledger.write(client_key + "\n")
-                    ledger.flush()
-                    os.fsync(ledger.fileno())
+                # The execution and its idempotency record are one atomic step (a rename),
+                # as on a real device: a crash cannot leave one without the other.
                 tmp = path.with_suffix(".tmp")
                 tmp.write_text(json.dumps(counts))
                 os.replace(tmp, path)
@@ -90,8 +90,14 @@ class RecordingBackend:
 
 
 def executions(ledger_dir: Path) -> list[str]:
-    """Every execution a RecordingBackend made, in order (client keys)."""
-    path = Path(ledger_dir) / "executions.log"
+    """The client keys of every execution a RecordingBackend made."""
+    return sorted("sha256:" + p.stem for p in Path(ledger_dir).glob("*.json"))
+
+
+def starts(ledger_dir: Path) -> list[str]:
+    """Every ``start`` call it received, in order (client keys): more than the executions
+    when a worker died after starting a job and another started it again."""
+    path = Path(ledger_dir) / "starts.log"
     return path.read_text().split() if path.exists() else []
 
 
