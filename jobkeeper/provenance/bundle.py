@@ -19,6 +19,7 @@ JSON rather than a zip: it is diffable, greppable, and has no archive-format pit
 from __future__ import annotations
 
 import base64
+import copy
 import json
 import os
 import secrets
@@ -92,7 +93,7 @@ class Bundle:
             "entries": [
                 {
                     "index": e.index,
-                    "envelope": e.envelope,
+                    "envelope": copy.deepcopy(e.envelope),  # callers may edit the result
                     "inclusionProof": [b64(h).decode("ascii") for h in e.inclusion_proof],
                 }
                 for e in self.entries
@@ -155,7 +156,12 @@ def make_bundle(
     entries = []
     for index in sorted(envelopes):
         stored = envelopes[index]
-        obj = strict_json_loads(stored, "envelope") if isinstance(stored, bytes) else dict(stored)
+        try:
+            obj = (
+                strict_json_loads(stored, "envelope") if isinstance(stored, bytes) else dict(stored)
+            )
+        except VerificationError as exc:
+            raise ProvenanceError(f"stored envelope {index} is unreadable: {exc}") from exc
         if not 0 <= index < cp.size:
             raise ProvenanceError(
                 f"entry {index} is not covered by the checkpoint (size {cp.size})"
@@ -215,6 +221,11 @@ def verify_bundle(
         if not trusted:
             report.problems.append("none of the bundle's keys is among the trusted fingerprints")
     cp = _checkpoint(bundle.checkpoint, trusted, origin, report)
+    if cp is not None and bundle.origin != cp.origin:
+        # The top-level origin is only a label for readers; it must not contradict.
+        report.problems.append(
+            f"bundle says origin {bundle.origin!r} but its checkpoint is of {cp.origin!r}"
+        )
     seen: set[int] = set()
     for n, entry in enumerate(bundle.entries):
         label = f"entry {n} (log index {entry.index})"

@@ -19,7 +19,7 @@ from typing import Any
 from cryptography.exceptions import InvalidSignature
 from cryptography.hazmat.primitives.asymmetric.ed25519 import Ed25519PrivateKey, Ed25519PublicKey
 
-from jobkeeper.exceptions import VerificationError
+from jobkeeper.exceptions import ProvenanceError, VerificationError
 from jobkeeper.provenance.canonical import canonical_json
 from jobkeeper.provenance.keys import fingerprint, load_public_key, public_key_bytes
 
@@ -102,8 +102,14 @@ def sign_envelope(body: bytes, payload_type: str, key: Ed25519PrivateKey) -> dic
 
 
 def envelope_bytes(envelope: Mapping[str, Any]) -> bytes:
-    """The stored form of an envelope: RFC 8785 canonical JSON. This is the log leaf."""
-    return canonical_json(dict(envelope))
+    """The stored form of an envelope: RFC 8785 canonical JSON. This is the log leaf.
+
+    ProvenanceError if the envelope holds values outside I-JSON (huge integers, NaN, ...),
+    which only a hand-made envelope can."""
+    try:
+        return canonical_json(dict(envelope))
+    except Exception as exc:  # rfc8785's own errors, TypeError, RecursionError
+        raise ProvenanceError(f"envelope cannot be canonicalised: {exc}") from exc
 
 
 @dataclass(frozen=True)
