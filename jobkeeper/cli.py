@@ -520,7 +520,8 @@ def _root(
 def main(argv: list[str] | None = None) -> int:
     """Entry point: every jobkeeper error becomes one line on stderr and an exit code."""
     try:
-        app(args=argv, prog_name="jobkeeper", standalone_mode=False)
+        # Without standalone mode, click returns the code of a typer.Exit instead of exiting.
+        code = app(args=argv, prog_name="jobkeeper", standalone_mode=False)
     except JobkeeperError as exc:
         typer.echo(f"jobkeeper: {exc}", err=True)
         return exc.exit_code
@@ -535,7 +536,7 @@ def main(argv: list[str] | None = None) -> int:
     except KeyboardInterrupt:
         typer.echo("jobkeeper: interrupted", err=True)
         return 130
-    return 0
+    return code if isinstance(code, int) else 0
 
 
 if __name__ == "__main__":
