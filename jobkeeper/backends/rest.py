@@ -231,7 +231,9 @@ class RestBackend:
         """The device's calibration snapshot (None when the profile has no calibration
         request), fetched when older than the profile's ``ttl`` (or when ``force``).
         Afterwards ``info.calibration`` holds it. The snapshot is
-        ``{"device", "fetched_at", "data"}``, ``data`` being what the device sent."""
+        ``{"device", "fetched_at", "data"}``, ``data`` being what the device sent.
+        ``start`` calls it first: when the fetch fails, the submission fails (as a
+        transient error), so that no job runs without its calibration on record."""
         spec = self._profile.requests.calibration
         if spec is None:
             return None
@@ -323,8 +325,8 @@ class RestBackend:
             )
         if state == "waiting":
             return Polled(state="waiting", poll_after=reply.retry_after)
-        calibration = self._calibration_by_handle.pop(handle, self._calibration)
         if state in ("failed", "cancelled"):
+            self._calibration_by_handle.pop(handle, None)
             message = f"device job {handle} ended {word!r}"
             pointer = requests.status.message
             if pointer is not None:
@@ -335,6 +337,9 @@ class RestBackend:
         if requests.result is not None:
             document = (await self._send("result", requests.result, handle=handle)).document
         counts, probabilities, device_metadata = outcome_from(document, self._profile)
+        # the snapshot taken when this instance submitted the job; after a restart, the
+        # latest one (its fetched_at says when it was taken)
+        calibration = self._calibration_by_handle.pop(handle, self._calibration)
         metadata: dict[str, Any] = {
             "device": self._profile.device.name,
             "device_job": handle,

@@ -81,11 +81,24 @@ def serve(
         )
     except ValueError as exc:
         raise ConfigError(f"loopback device: {exc}") from None
+    family = socket.AF_INET6 if ":" in address else socket.AF_INET
+    listener = socket.socket(family, socket.SOCK_STREAM)
+    try:
+        listener.setsockopt(socket.SOL_SOCKET, socket.SO_REUSEADDR, 1)
+        listener.bind((address, port))
+    except OSError as exc:
+        listener.close()
+        raise ConfigError(
+            f"loopback device cannot listen on {address}:{port}: {exc.strerror}"
+        ) from None
     config = uvicorn.Config(
         app, host=address, port=port, http="h11", ws="none", lifespan="off", log_level=log_level
     )
     _quiet_cut_offs()
-    uvicorn.Server(config).run()
+    try:
+        uvicorn.Server(config).run(sockets=[listener])
+    finally:
+        listener.close()
 
 
 class BackgroundDevice:
