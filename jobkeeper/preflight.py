@@ -53,10 +53,10 @@ class PreflightReport:
         m = self.metrics
         lines = [
             f"{self.file}: {self.circuit_hash}",
-            f"  qubits {m.num_qubits} (used {m.qubits_used}), bits {m.num_clbits}, "
-            f"depth {m.depth}, two-qubit operations {m.two_qubit_ops}",
-            "  operations: " + ", ".join(f"{k} {v}" for k, v in sorted(m.op_counts.items())),
-            f"  measurements all terminal: {'yes' if m.terminal_measurements else 'no'}",
+            f"  qubits {m.num_qubits} (used {len(m.qubits_used)}), bits {m.num_clbits}, "
+            f"depth {m.depth}, multi-qubit operations {m.multi_qubit_operations}",
+            "  operations: " + ", ".join(f"{k} {v}" for k, v in sorted(m.operation_counts.items())),
+            f"  measurements all terminal: {'yes' if m.measurements_terminal else 'no'}",
             f"  backend {self.backend}: " + ("fits" if self.fits else "does NOT fit"),
         ]
         lines += [f"    - {p}" for p in self.problems]
@@ -96,12 +96,12 @@ def preflight(
         )
     if info.native_operations is not None:
         foreign = sorted(
-            set(m.op_counts) - set(info.native_operations) - set(NON_GATE_OPERATIONS)
+            set(m.operation_counts) - set(info.native_operations) - set(NON_GATE_OPERATIONS)
         )
         if foreign:
             report.problems.append(f"operations {name} does not support: {', '.join(foreign)}")
     if circuit.opaque:
-        used = sorted(set(m.op_counts) & set(circuit.opaque))
+        used = sorted(set(m.operation_counts) & set(circuit.opaque))
         if used:
             report.problems.append(f"opaque gates cannot run here: {', '.join(used)}")
     if m.has_mid_circuit_measurement and not info.mid_circuit_measurement:

@@ -62,16 +62,16 @@ def verify_jobs(
     by_job = {entry.job_id: entry for entry in entries}
     jobs = store.list_jobs(state="done") if ids is None else store.get_many(list(ids))
     for job in jobs:
-        entry = by_job.get(job.id)
+        found = by_job.get(job.id)
         if job.state != "done":
-            if entry is not None:
+            if found is not None:
                 report.problems.append(f"job {job.id[:12]} is {job.state} but has a log entry")
             continue
-        if entry is None:
+        if found is None:
             report.problems.append(f"job {job.id[:12]} is done but has no log entry")
             continue
         try:
-            statement = json.loads(base64.b64decode(json.loads(entry.envelope)["payload"]))
+            statement = json.loads(base64.b64decode(json.loads(found.envelope)["payload"]))
             if statement["predicate"]["jobKey"] != job.job_key:
                 report.problems.append(
                     f"job {job.id[:12]}: its log entry attests another job key"
