@@ -52,7 +52,8 @@ Step = Gates | Measure | Reset | Conditional
 class Program:
     num_qubits: int
     steps: tuple[Step, ...]
-    #: (qubit, clbit) of the final measurements, in circuit order.
+    #: (qubit, clbit) of the final measurements, in ascending clbit order (the order of
+    #: the bits of an outcome index, see _sampling).
     final: tuple[tuple[int, int], ...]
     #: whether the circuit measures anything at all.
     measures: bool
@@ -151,4 +152,5 @@ def compile_circuit(circuit: Circuit, max_width: int) -> Program:
             pending.append((op.qubits, gate_matrix(op.name, op.params)))
     flush()
     measures = any(op.name == MEASURE for op in circuit.operations)
+    final.sort(key=lambda pair: pair[1])
     return Program(circuit.num_qubits, tuple(steps), tuple(final), measures)

@@ -4,11 +4,11 @@ Sampling method (documented so that counts can be reproduced): the generator is
 ``numpy.random.Generator(numpy.random.PCG64(seed))``. When the circuit has one classical
 record before its final measurements (no mid-circuit measurement changes a bit), the
 shots are one ``multinomial(shots, p)`` draw over the final outcome probabilities ``p``,
-indexed in ascending order of the outcome index (bit j of the index = the j-th final
-measurement in circuit order). With several records (mid-circuit measurements), first one
-``multinomial`` over the records in ascending order of their bits as an integer (clbit c
-= bit c), then, for each record in that order with shots, one ``multinomial`` over its
-final outcomes as above. The same seed and numpy version give the same counts anywhere.
+indexed in ascending order of the outcome index (bit j of the index = the final
+measurement into the j-th smallest classical bit written by a final measurement). With
+several records (mid-circuit measurements), first one ``multinomial`` over the records in
+ascending order of their bits as an integer (clbit c = bit c), then, for each record in
+that order with shots, one ``multinomial`` over its final outcomes as above. The same seed and numpy version give the same counts anywhere.
 """
 
 from __future__ import annotations
@@ -46,53 +46,78 @@ def draw(rng: np.random.Generator, shots: int, probs: Floats) -> Ints:
     total = float(probs.sum())
     if shots == 0 or total <= 0:
         return np.zeros(len(probs), dtype=np.int64)
-    return rng.multinomial(shots, probs / total).astype(np.int64)
+    return rng.multinomial(shots, probs / total).astype(np.int64, copy=False)
+
+
+#: row b: the ASCII digits of byte b, most significant bit first.
+_BYTE_DIGITS = np.array(
+    [[48 + ((b >> (7 - i)) & 1) for i in range(8)] for b in range(256)], dtype=np.uint8
+)
 
 
 class BitFormatter:
     """Turns outcome indices into OpenQASM 2 bit strings, vectorised.
 
-    ``final_clbits[j]`` is the classical bit the j-th final measurement writes; the other
-    bits come from the record (an int, clbit c = bit c). Within a register the highest
-    index is leftmost; the last declared register is leftmost; one space between them.
+    An outcome index has bit j = the final measurement into the j-th smallest of
+    ``final_clbits``; the other classical bits come from the record (an int, clbit c =
+    bit c). Within a register the highest index is leftmost; the last declared register
+    is leftmost; one space between registers.
     """
 
     def __init__(self, cregs: Sequence[Register], num_clbits: int, final_clbits: Sequence[int]):
-        columns: list[int] = []
+        final = set(final_clbits)
+        self._num_final = len(final)
+        self._clbits: list[int] = []  # display column → clbit (-1 for a space)
         for reg in reversed(cregs):
-            if columns:
-                columns.append(-1)
-            columns += [reg.offset + i for i in reversed(range(reg.size))]
-        self._columns = np.array(columns, dtype=np.int64)
-        self._num_clbits = num_clbits
-        self._final = np.array(final_clbits, dtype=np.int64)
+            if self._clbits:
+                self._clbits.append(-1)
+            self._clbits += [reg.offset + i for i in reversed(range(reg.size))]
+        # Final bits appear left to right in descending clbit order, i.e. as the outcome
+        # index written most significant bit first: copy them in runs of columns.
+        self._runs: list[tuple[int, int, int]] = []  # (first column, first digit, length)
+        digit = 0
+        for column, clbit in enumerate(self._clbits):
+            if clbit in final:
+                last = self._runs[-1] if self._runs else None
+                if last is not None and last[0] + last[2] == column:
+                    self._runs[-1] = (last[0], last[1], last[2] + 1)
+                else:
+                    self._runs.append((column, digit, 1))
+                digit += 1
+        self._fixed = [i for i, c in enumerate(self._clbits) if c not in final]
 
     def format(self, record: int, outcomes: Ints) -> list[str]:
         """Bit strings of ``outcomes`` (indices over the final measurements)."""
-        count = len(outcomes)
-        width = len(self._columns)
+        count, width = len(outcomes), len(self._clbits)
         if width == 0:
             return [""] * count
-        bits = np.zeros((count, max(self._num_clbits, 1)), dtype=np.uint8)
-        for c in range(self._num_clbits):
-            if (record >> c) & 1:
-                bits[:, c] = 1
-        for j, c in enumerate(self._final):
-            bits[:, c] = (outcomes >> j) & 1
-        chars = np.where(self._columns >= 0, bits[:, np.maximum(self._columns, 0)] + 48, 32)
-        packed = np.ascontiguousarray(chars.astype(np.uint8)).view(f"S{width}").reshape(-1)
-        strings: list[str] = packed.astype(f"U{width}").tolist()
+        # One row of ASCII per outcome plus a newline; one decode and one split make the
+        # strings (per-outcome Python formatting would cost more than the draw itself).
+        chars = np.empty((count, width + 1), dtype=np.uint8)
+        if self._num_final:
+            nbytes = (self._num_final + 7) // 8
+            big_endian = outcomes.astype(">u8").view(np.uint8).reshape(count, 8)[:, 8 - nbytes :]
+            digits = _BYTE_DIGITS[big_endian].reshape(count, 8 * nbytes)
+            digits = digits[:, 8 * nbytes - self._num_final :]
+            for column, first, length in self._runs:
+                chars[:, column : column + length] = digits[:, first : first + length]
+        for column in self._fixed:
+            clbit = self._clbits[column]
+            chars[:, column] = 32 if clbit < 0 else 48 + ((record >> clbit) & 1)
+        chars[:, width] = 10
+        strings = chars.tobytes().decode("ascii").split("\n")
+        strings.pop()
         return strings
-
-    def zeros(self) -> str:
-        """The bit string of a record of all zeros."""
-        return self.format(0, np.zeros(1, dtype=np.int64))[0]
 
 
 def counts_of(formatter: BitFormatter, record: int, drawn: Ints, into: dict[str, int]) -> None:
     """Add the non-zero entries of a draw to ``into``, formatting only those."""
     hit = np.nonzero(drawn)[0]
-    for key, value in zip(formatter.format(record, hit), drawn[hit].tolist(), strict=True):
+    keys, values = formatter.format(record, hit), drawn[hit].tolist()
+    if not into:
+        into.update(zip(keys, values, strict=True))
+        return
+    for key, value in zip(keys, values, strict=True):
         into[key] = into.get(key, 0) + value
 
 

@@ -111,7 +111,7 @@ def test_grover_three_qubits_two_iterations() -> None:
 
 def test_counts_are_one_documented_multinomial_draw() -> None:
     # The documented method (see _sampling): one multinomial over the final outcomes in
-    # ascending index order (bit j = j-th final measurement), PCG64(seed).
+    # ascending index order (bit j = the j-th smallest measured classical bit), PCG64(seed).
     ops = [op("ry", 0, params=[1.1]), op("ry", 1, params=[0.4]), op("cx", 0, 1)]
     circ = circuit(2, [*ops, measure(0, 0), measure(1, 1)], [2])
     probs = exact(circ)
