@@ -11,6 +11,7 @@ from collections.abc import Mapping
 from concurrent.futures import ThreadPoolExecutor
 from contextlib import nullcontext
 from dataclasses import dataclass
+from functools import lru_cache
 
 import numpy as np
 from numpy.typing import NDArray
@@ -30,6 +31,8 @@ MAX_BOOTSTRAP_CELLS = 1 << 24
 MIN_BOOTSTRAP = 100
 #: Replicates for the mean TVD under "no difference": a mean needs far fewer than a tail.
 NOISE_REPS = 200
+#: ...and at least this many, however large the table (a mean settles quickly).
+NOISE_FEWEST = 10
 #: Rows per vectorised chunk are chosen so that one chunk holds about this many cells.
 _CHUNK_CELLS = 1 << 22
 #: Above this many resampled cells, the two sides are drawn in two threads.
@@ -83,7 +86,10 @@ def check_probabilities(probabilities: Mapping[str, float]) -> dict[str, float]:
     for key, value in probabilities.items():
         if not isinstance(key, str):
             raise StatsInputError(f"probabilities: outcome {key!r} is not a string")
-        number = float(value)
+        try:
+            number = float(value)
+        except (TypeError, ValueError):
+            raise StatsInputError(f"probabilities: {key!r} has probability {value!r}") from None
         if not math.isfinite(number) or number < 0:
             raise StatsInputError(f"probabilities: {key!r} has probability {value!r}")
         if number > 0:
@@ -202,11 +208,11 @@ def _rows_per_chunk(cells: int) -> int:
     return max(1, _CHUNK_CELLS // max(cells, 1))
 
 
-def bootstrap_reps(requested: int, cells: int) -> int:
+def bootstrap_reps(requested: int, cells: int, fewest: int = MIN_BOOTSTRAP) -> int:
     """Replicates actually used: as asked, unless that would exceed MAX_BOOTSTRAP_CELLS."""
     if requested * cells <= MAX_BOOTSTRAP_CELLS:
         return requested
-    return max(MIN_BOOTSTRAP, MAX_BOOTSTRAP_CELLS // cells)
+    return max(fewest, MAX_BOOTSTRAP_CELLS // cells)
 
 
 def resampled_tvd_two(
@@ -227,6 +233,7 @@ def resampled_tvd_two(
     out = np.empty(reps, dtype=np.float64)
     step = _rows_per_chunk(px.size)
     threaded = reps * px.size >= _THREAD_CELLS
+    exact = nx * ny < 2**62
     with ThreadPoolExecutor(max_workers=2) if threaded else nullcontext() as pool:
         for start in range(0, reps, step):
             rows = min(reps, start + step) - start
@@ -237,8 +244,12 @@ def resampled_tvd_two(
             else:
                 rx = rngs[0].multinomial(nx, px, size=rows)
                 ry = rngs[1].multinomial(ny, py, size=rows)
-            # Integer arithmetic (|x·ny − y·nx|) keeps the sum exact until the last division.
-            out[start : start + rows] = np.abs(rx * ny - ry * nx).sum(axis=1) / (2.0 * nx * ny)
+            if exact:
+                # Integer arithmetic (|x·ny − y·nx|) is exact until the last division.
+                diff = np.abs(rx * ny - ry * nx).sum(axis=1) / (2.0 * nx * ny)
+            else:  # shot counts so large that x·ny could overflow int64
+                diff = 0.5 * np.abs(rx / nx - ry / ny).sum(axis=1)
+            out[start : start + rows] = diff
     return out
 
 
@@ -256,6 +267,34 @@ def resampled_tvd_one(
         stop = min(reps, start + step)
         sample = rng.multinomial(shots, draw_p, size=stop - start)
         out[start:stop] = 0.5 * np.abs(sample / shots - ref).sum(axis=1)
+    return out
+
+
+def sampled_noise_tvd_one(
+    rng: np.random.Generator, ref: FloatArray, shots: int, reps: int
+) -> FloatArray:
+    """TVD between samples of ``shots`` draws from ``ref`` and ``ref`` itself, per replicate.
+
+    The same quantity as ``resampled_tvd_one(rng, ref, shots, ref, reps)``, computed from
+    the draws rather than from a multinomial over every outcome: for a reference with far
+    more outcomes than shots (a 20-qubit statevector, 1000 shots) it costs O(reps·shots)
+    instead of O(reps·outcomes). Unobserved outcomes contribute their probability, so
+    TVD = ½ (1 + Σ_observed (|c/n − p| − p)).
+    """
+    cdf = np.cumsum(ref)
+    cdf /= cdf[-1]
+    out = np.empty(reps, dtype=np.float64)
+    step = max(1, _CHUNK_CELLS // max(shots, 1))
+    for start in range(0, reps, step):
+        rows = min(reps, start + step) - start
+        draws = np.searchsorted(cdf, rng.random((rows, shots)), side="right")
+        draws = np.minimum(draws, ref.size - 1)  # guard the top end against rounding
+        flat = (draws + np.arange(rows)[:, None] * ref.size).ravel()
+        cells, counts = np.unique(flat, return_counts=True)
+        probs = ref[cells % ref.size]
+        terms = np.abs(counts / shots - probs) - probs
+        sums = np.bincount(cells // ref.size, weights=terms, minlength=rows)
+        out[start : start + rows] = 0.5 * (1.0 + sums)
     return out
 
 
@@ -303,7 +342,12 @@ def minimum_detectable_tvd(
     if power <= alpha:
         return 0.0  # rejecting at random already has power alpha
     n_eff = shots_a if shots_b is None else shots_a * shots_b / (shots_a + shots_b)
-    dof = k - 1
+    return min(math.sqrt(_noncentrality_for_power(k - 1, alpha, power) / (4 * n_eff)), 1.0)
+
+
+@lru_cache(maxsize=256)
+def _noncentrality_for_power(dof: int, alpha: float, power: float) -> float:
+    # Cached: every comparison quotes this for its table size, and reruns repeat sizes.
     critical = float(sps.chi2.isf(alpha, dof))
 
     def shortfall(lam: float) -> float:
@@ -312,5 +356,4 @@ def minimum_detectable_tvd(
     high = 1.0
     while shortfall(high) < 0:
         high *= 2
-    lam = float(brentq(shortfall, 0.0, high, xtol=1e-10))
-    return min(math.sqrt(lam / (4 * n_eff)), 1.0)
+    return float(brentq(shortfall, 0.0, high, xtol=1e-8, rtol=1e-10))
