@@ -299,8 +299,8 @@ class RestBackend:
         try:
             body = fill_template(spec.body or {}, values)
             reply = await self._send("submit", spec, body=body, key=client_key)
-        except ValueError as exc:  # an unprintable key cannot travel in a header
-            raise PermanentBackendError(f"{self._name}: {exc}") from None
+        except (ValueError, TypeError) as exc:  # an unprintable key; options not JSON
+            raise PermanentBackendError(f"{self._name}: cannot send the job: {exc}") from None
         raw = pick(reply.document, spec.handle, "submit", self._profile)
         if isinstance(raw, bool) or not isinstance(raw, str | int) or str(raw) == "":
             raise PermanentBackendError(

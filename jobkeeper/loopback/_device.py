@@ -57,6 +57,7 @@ class DeviceJob:
     message: str = ""
     refusal: str | None = None
     outcome: Outcome | None = None
+    executed_at: float | None = None
 
     def public(self) -> dict[str, Any]:
         return {
@@ -66,8 +67,13 @@ class DeviceJob:
             "shots": self.shots,
             "seed": self.seed,
             "exact": self.exact,
-            "submitted_at": datetime.fromtimestamp(self.submitted_at, UTC).isoformat(),
+            "submitted_at": _iso(self.submitted_at),
+            "executed_at": _iso(self.executed_at) if self.executed_at is not None else None,
         }
+
+
+def _iso(timestamp: float) -> str:
+    return datetime.fromtimestamp(timestamp, UTC).isoformat(timespec="milliseconds")
 
 
 def _fingerprint(body: dict[str, Any]) -> bytes:
@@ -206,6 +212,9 @@ class LoopbackDevice:
                 job.state, job.message, job.program = "error", job.refusal, None
             else:
                 job.state = "complete"
+                # the execution's record: when (wall clock, back-dated to the moment the
+                # queue delay ended) and the per-key and per-body tallies
+                job.executed_at = time.time() - (now - job.ready_at)
                 self.counters["executions"] += 1
                 self._executions_by_key[job.key] += 1
                 self._executions_by_payload[job.fingerprint] += 1

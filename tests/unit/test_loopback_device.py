@@ -65,6 +65,7 @@ def test_same_key_gives_the_same_job_and_runs_once() -> None:
         assert asyncio.run(device.result(job.id, inline)) == ("counts", {"00": 10})
     assert simulator.runs == 1  # computed once, then cached
     assert job.program is None  # the circuit text is dropped once it has run
+    assert job.executed_at is not None
     stats = device.stats()
     assert stats["executions"] == 1 and stats["duplicates"] == 0
     assert stats["submits"] == 2 and stats["replays"] == 1 and stats["jobs"] == 1
