@@ -24,6 +24,9 @@ from jobkeeper.exceptions import ConfigError
 #: practice): below it the p-values of Pearson's and the G statistic are not trustworthy.
 MIN_EXPECTED = 5.0
 
+#: Probabilities at or below this are float noise (see check_probabilities).
+NEGLIGIBLE_PROBABILITY = 1e-12
+
 #: Bound on bootstrap work (resampled cells): keeps a comparison interactive even for tables
 #: with hundreds of thousands of distinct outcomes, at the price of fewer replicates there.
 MAX_BOOTSTRAP_CELLS = 1 << 24
@@ -80,9 +83,12 @@ def check_probabilities(probabilities: Mapping[str, float]) -> dict[str, float]:
     """Probabilities as a dict of positive floats that sum to exactly 1 (renormalised).
 
     A tolerance of 1e-6 on the sum admits float noise from simulators and rounded tables
-    while still catching a distribution with an outcome missing.
+    while still catching a distribution with an outcome missing. Probabilities of at most
+    NEGLIGIBLE_PROBABILITY count as zero: a simulator's "zero" amplitudes come out as 1e-33
+    and the like, and a shot there must read as impossible, not be pooled away.
     """
     clean: dict[str, float] = {}
+    total = 0.0
     for key, value in probabilities.items():
         if not isinstance(key, str):
             raise StatsInputError(f"probabilities: outcome {key!r} is not a string")
@@ -92,11 +98,12 @@ def check_probabilities(probabilities: Mapping[str, float]) -> dict[str, float]:
             raise StatsInputError(f"probabilities: {key!r} has probability {value!r}") from None
         if not math.isfinite(number) or number < 0:
             raise StatsInputError(f"probabilities: {key!r} has probability {value!r}")
-        if number > 0:
+        total += number
+        if number > NEGLIGIBLE_PROBABILITY:
             clean[key] = number
-    total = math.fsum(clean.values())
     if abs(total - 1.0) > 1e-6:
         raise StatsInputError(f"probabilities sum to {total!r}, not 1")
+    total = math.fsum(clean.values())
     return {key: value / total for key, value in clean.items()}
 
 

@@ -228,6 +228,15 @@ def test_impossible_outcome_is_different_at_once() -> None:
     assert "cannot come from" in result.summary()
 
 
+def test_float_noise_probability_counts_as_impossible() -> None:
+    # A simulator's zero amplitude squared comes out as ~1e-33, not 0.
+    ideal = {"00": 0.5 - 1e-17, "11": 0.5, "01": 1e-33, "10": 1e-33}
+    result = compare_to_distribution({"00": 500, "11": 499, "01": 1}, ideal)
+    assert result.verdict == "different"
+    assert any("'01'" in note for note in result.notes)
+    assert compare_to_distribution({"00": 500, "11": 500}, ideal).verdict == "identical"
+
+
 def test_clear_difference_is_different() -> None:
     result = compare_counts({"0": 600, "1": 400}, {"0": 400, "1": 600})
     assert result.verdict == "different"
