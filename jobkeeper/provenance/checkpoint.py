@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import base64
 import binascii
+import functools
 import hashlib
 import re
 from collections.abc import Iterable, Sequence
@@ -198,8 +199,15 @@ def verify_note(note: str, verifier_keys: Iterable[NoteVerifier | str]) -> str:
     known signature is rejected. Raises VerificationError.
     """
     verifiers = [parse_verifier_key(v) if isinstance(v, str) else v for v in verifier_keys]
-    known = {(v.name, v.key_id): v for v in verifiers}
     text, signatures = split_note(note)
+    _check_signatures(text, signatures, verifiers)
+    return text
+
+
+def _check_signatures(
+    text: str, signatures: list[tuple[str, bytes, bytes]], verifiers: Iterable[NoteVerifier]
+) -> None:
+    known = {(v.name, v.key_id): v for v in verifiers}
     message = text.encode("utf-8")
     verified = 0
     for name, key_id, sig in signatures:
@@ -217,7 +225,6 @@ def verify_note(note: str, verifier_keys: Iterable[NoteVerifier | str]) -> str:
         verified += 1
     if not verified:
         raise VerificationError("note has no valid signature by a known key")
-    return text
 
 
 # ---------------------------------------------------------------------------------------
@@ -229,6 +236,16 @@ def sign_checkpoint(origin: str, size: int, root: bytes, signing_key: Ed25519Pri
     return sign_note(format_checkpoint(origin, size, root), origin, signing_key)
 
 
+def _origin_verifier(origin: str, key: bytes | Ed25519PublicKey) -> NoteVerifier:
+    return _cached_verifier(origin, key) if isinstance(key, bytes) else NoteVerifier.of(origin, key)
+
+
+@functools.lru_cache(maxsize=256)
+def _cached_verifier(origin: str, raw: bytes) -> NoteVerifier:
+    # A log's checkpoints all share one origin and a few keys.
+    return NoteVerifier.of(origin, raw)
+
+
 def verify_checkpoint(
     note: str,
     public_keys: Iterable[bytes | Ed25519PublicKey],
@@ -238,12 +255,15 @@ def verify_checkpoint(
     """Verify a checkpoint note signed (key name = origin) by one of ``public_keys`` and
     return it. With ``origin`` given, a checkpoint of any other origin is rejected; without
     it the note's own origin line names the key. Raises VerificationError."""
-    text, _ = split_note(note)
-    claimed = parse_checkpoint(text).origin
-    if origin is not None and claimed != origin:
-        raise VerificationError(f"checkpoint origin {claimed!r} is not the expected {origin!r}")
+    text, signatures = split_note(note)
+    checkpoint = parse_checkpoint(text)
+    if origin is not None and checkpoint.origin != origin:
+        raise VerificationError(
+            f"checkpoint origin {checkpoint.origin!r} is not the expected {origin!r}"
+        )
     try:
-        verifiers = [NoteVerifier.of(claimed, k) for k in public_keys]
+        verifiers = [_origin_verifier(checkpoint.origin, k) for k in public_keys]
     except ProvenanceError as exc:
         raise VerificationError(f"checkpoint origin cannot name a key: {exc}") from exc
-    return parse_checkpoint(verify_note(note, verifiers))
+    _check_signatures(text, signatures, verifiers)
+    return checkpoint
