@@ -67,15 +67,42 @@ def _unique_object(pairs: list[tuple[str, Any]]) -> dict[str, Any]:
     return obj
 
 
+def _safe_int(text: str) -> int:
+    value = int(text)
+    if abs(value) > 2**53 - 1:
+        raise VerificationError(f"JSON integer {text} is beyond ±(2^53−1) (I-JSON)")
+    return value
+
+
+def _has_lone_surrogate(value: Any) -> bool:
+    if isinstance(value, str):
+        return any("\ud800" <= c <= "\udfff" for c in value)
+    if isinstance(value, dict):
+        return any(_has_lone_surrogate(k) or _has_lone_surrogate(v) for k, v in value.items())
+    if isinstance(value, list):
+        return any(_has_lone_surrogate(v) for v in value)
+    return False
+
+
 def strict_json_loads(data: bytes | str, what: str) -> Any:
-    """json.loads that refuses duplicate members, NaN/Infinity and bad UTF-8.
+    """json.loads for I-JSON (RFC 7493): refuses duplicate members, NaN/Infinity, bad
+    UTF-8, lone surrogates and integers beyond ±(2^53−1).
 
     Python keeps the last duplicate silently; two parsers disagreeing on which member
     counts is a classic signature-bypass, so duplicates are an error.
     """
     try:
         text = data.decode("utf-8") if isinstance(data, bytes) else data
-        return json.loads(text, object_pairs_hook=_unique_object, parse_constant=_reject_constant)
+        value = json.loads(
+            text,
+            object_pairs_hook=_unique_object,
+            parse_constant=_reject_constant,
+            parse_int=_safe_int,
+        )
+        # A lone surrogate can only enter through a \uD8xx–\uDFxx escape; look only then.
+        if ("\\ud" in text or "\\uD" in text) and _has_lone_surrogate(value):
+            raise VerificationError(f"{what} holds a lone surrogate, which is not Unicode text")
+        return value
     except UnicodeDecodeError:
         raise VerificationError(f"{what} is not UTF-8") from None
     except json.JSONDecodeError as exc:

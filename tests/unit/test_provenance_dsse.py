@@ -156,6 +156,13 @@ def test_duplicate_members_and_constants_are_rejected() -> None:
         verify_envelope(doubled, [PUB])
     with pytest.raises(VerificationError, match="not JSON"):
         verify_envelope(text[:-1] + ', "x": NaN}', [PUB])
+    # Standards note §7 test 7: I-JSON only (RFC 7493), refused at parse.
+    with pytest.raises(VerificationError, match="lone surrogate"):
+        verify_envelope(text[:-1] + ', "x": "\\ud800"}', [PUB])
+    with pytest.raises(VerificationError, match="2\\^53"):
+        verify_envelope(text[:-1] + ', "x": 9007199254740992}', [PUB])
+    # Unknown extra members are ignored, as envelope.md requires of consumers.
+    assert verify_envelope(text[:-1] + ', "x": "\\ud83d\\ude02"}', [PUB]) == BODY
 
 
 def test_extra_signature_by_unknown_key_is_ignored() -> None:
