@@ -115,15 +115,14 @@ def pool_plan(weights: FloatArray, keys: list[str], big_enough: float) -> tuple[
     are pooled; if the pool itself is still too small, the next rarest cells join it until it
     is big enough or nothing is left. Returns (kept indices, pooled indices).
     """
-    order = sorted(range(len(keys)), key=lambda i: (weights[i], keys[i]))
-    pooled = [i for i in order if weights[i] < big_enough]
-    kept = [i for i in order if weights[i] >= big_enough]
-    if pooled:
-        pool_total = float(sum(weights[i] for i in pooled))
-        while kept and pool_total < big_enough:
-            pool_total += float(weights[kept[0]])
-            pooled.append(kept.pop(0))
-    return np.asarray(kept, dtype=np.int64), np.asarray(pooled, dtype=np.int64)
+    order = np.lexsort((np.asarray(keys, dtype=str), weights))  # by weight, then label
+    small = int(np.searchsorted(weights[order], big_enough, side="left"))
+    if small:
+        # Grow the pool with the next rarest cells until it is big enough itself.
+        running = np.cumsum(weights[order])
+        if running[small - 1] < big_enough:
+            small = min(int(np.searchsorted(running, big_enough, side="left")) + 1, order.size)
+    return order[small:].astype(np.int64), order[:small].astype(np.int64)
 
 
 def pooled_cells(values: NDArray[np.generic], kept: IntArray, pooled: IntArray) -> FloatArray:

@@ -65,12 +65,16 @@ def label_width_note(a: Mapping[str, int], b: Mapping[str, int]) -> list[str]:
     return []
 
 
-def noise_note(tvd: float, noise: float) -> list[str]:
+def noise_note(tvd: float, noise: float, *, one_sample: bool = False) -> list[str]:
     if tvd > 0 and noise >= 0.5 * tvd:
+        between = (
+            "between a sample and the distribution it was drawn from"
+            if one_sample
+            else "between two samples of one distribution"
+        )
         return [
-            f"Much of the observed distance is sampling noise (about {noise:.3f} of it would "
-            "appear between two samples of one distribution): the true distance is likely "
-            "smaller than observed."
+            f"Much of the observed distance is sampling noise (about {noise:.3f} would appear "
+            f"{between}): the true distance is likely smaller than observed."
         ]
     return []
 

@@ -325,7 +325,7 @@ def compare_to_distribution(
         verdict = _verdict_from_test(test, alpha)
     if not impossible:  # (shots on impossible outcomes are a real distance, not noise)
         notes.extend(common_notes(test, alpha, shots, shots, None))
-        notes.extend(noise_note(tvd, noise))
+        notes.extend(noise_note(tvd, noise, one_sample=True))
     if reps < bootstrap:
         notes.append(reduced_bootstrap_note(reps, int(seen.sum())))
     method = (

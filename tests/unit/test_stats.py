@@ -388,11 +388,12 @@ def test_bootstrap_over_1024_outcomes_is_fast() -> None:
     keys = [format(i, "010b") for i in range(1024)]
     a = as_counts(rng.multinomial(10_000, probs), keys)
     b = as_counts(rng.multinomial(10_000, probs), keys)
-    started = time.perf_counter()
+    # CPU time (all threads), not wall time, so other work on the machine cannot fail this.
+    # Measured: about 0.6 s CPU, 0.3 s wall on two idle cores.
+    started = time.process_time()
     result: Comparison = compare_counts(a, b, bootstrap=2000)
-    elapsed = time.perf_counter() - started
-    # Typically 0.3-0.6 s on two idle cores; the bound is loose so a busy machine cannot fail it.
-    assert elapsed < 5.0, f"{elapsed:.2f} s"
+    elapsed = time.process_time() - started
+    assert elapsed < 3.0, f"{elapsed:.2f} s CPU"
     assert result.tvd_ci[0] <= result.tvd_ci[1]
 
 
@@ -415,9 +416,9 @@ def test_large_reference_with_few_shots_is_fast() -> None:
     probs = rng.dirichlet(np.ones(1 << 16))
     keys = [format(i, "016b") for i in range(1 << 16)]
     counts = as_counts(rng.multinomial(1000, probs), keys)
-    started = time.perf_counter()
+    started = time.process_time()
     result = compare_to_distribution(counts, dict(zip(keys, probs, strict=True)))
-    assert time.perf_counter() - started < 5.0
+    assert time.process_time() - started < 3.0
     assert result.tvd_noise > 0.3  # most of 1000 shots land on distinct outcomes
 
 
