@@ -22,6 +22,7 @@ from __future__ import annotations
 import base64
 import binascii
 import contextlib
+import errno
 import hashlib
 import json
 import os
@@ -133,6 +134,10 @@ def load_signing_key(path: str | os.PathLike[str]) -> Ed25519PrivateKey:
             f"signing key file {path} does not exist; create one with `jobkeeper init`"
         ) from None
     except OSError as exc:
+        if exc.errno == errno.ELOOP:
+            raise SigningKeyError(
+                f"signing key file {path} is a symbolic link; name the key file itself"
+            ) from exc
         raise SigningKeyError(f"cannot open signing key file {path}: {exc}") from exc
     try:
         # fstat on the open descriptor: the mode checked is the mode of the file read.

@@ -128,6 +128,10 @@ def test_missing_or_bad_key_file(tmp_path: Path) -> None:
     bad.chmod(0o600)
     with pytest.raises(SigningKeyError, match="PKCS#8"):
         load_signing_key(bad)
+    generate_key(tmp_path / "real.key")
+    (tmp_path / "link.key").symlink_to(tmp_path / "real.key")
+    with pytest.raises(SigningKeyError, match="symbolic link"):
+        load_signing_key(tmp_path / "link.key")
 
 
 def test_fingerprint_is_sha256_of_raw_public_key() -> None:

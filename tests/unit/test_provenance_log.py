@@ -17,12 +17,17 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from jobkeeper.provenance import (
+    PAYLOAD_TYPE,
     LogEntry,
     MerkleTree,
+    build_statement,
+    envelope_bytes,
     fingerprint,
     public_key_bytes,
     seal_run,
     sign_checkpoint,
+    sign_envelope,
+    statement_bytes,
     verify_log,
 )
 
@@ -173,3 +178,15 @@ def test_any_single_byte_change_to_a_stored_envelope_is_detected(
     entries = list(SMALL)
     entries[i] = replace(entries[i], envelope=bytes(raw))
     assert not verify_log(entries, SMALL_NOTES, KEYS).ok
+
+
+def test_without_stored_counts_the_predicate_counts_are_checked() -> None:
+    entries = [replace(e, counts=None) for e in ENTRIES]
+    assert verify_log(entries, NOTES, KEYS).ok
+    # A statement whose subject disagrees with its own predicate counts is reported.
+    statement = build_statement({"0": 1}, {"jobKey": "x"})
+    statement["predicate"]["counts"] = {"0": 2}
+    env = envelope_bytes(sign_envelope(statement_bytes(statement), PAYLOAD_TYPE, KEY))
+    report = verify_log([LogEntry(env, fingerprint(KEY))], [], KEYS)
+    assert len(report.problems) == 1 and "counts digest mismatch" in report.problems[0]
+    assert "no valid signed checkpoint" in report.warnings[0]
