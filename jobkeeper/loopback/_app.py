@@ -33,7 +33,7 @@ from typing import Any
 
 from starlette.applications import Starlette
 from starlette.concurrency import run_in_threadpool
-from starlette.requests import Request
+from starlette.requests import ClientDisconnect, Request
 from starlette.responses import JSONResponse, Response
 from starlette.routing import Route
 from starlette.types import Message, Receive, Scope, Send
@@ -80,6 +80,8 @@ def _routes(device: LoopbackDevice) -> Starlette:
             body: Any = json.loads(await request.body())
         except (ValueError, UnicodeDecodeError):
             return _error(400, "bad-request", "the body is not JSON")
+        except ClientDisconnect:  # gone before it finished sending: nothing was asked
+            return Response(status_code=400)
         _created, job = device.submit(key, body)
         # a replay answers exactly as the first request was answered
         return JSONResponse(
@@ -138,6 +140,33 @@ def _routes(device: LoopbackDevice) -> Starlette:
 
 async def _discard(message: Message) -> None:
     return None
+
+
+async def _buffered(receive: Receive) -> Receive:
+    """Read the whole request body now; the returned ``receive`` hands it over later
+    (then waits on the real one, e.g. for the client's disconnect)."""
+    chunks: list[bytes] = []
+    size = 0
+    while size <= MAX_BODY:  # bounded: the content-length was checked against MAX_BODY
+        message = await receive()
+        if message["type"] != "http.request":
+            break
+        chunk = bytes(message.get("body", b""))
+        chunks.append(chunk)
+        size += len(chunk)
+        if not message.get("more_body", False):
+            break
+    body = b"".join(chunks)
+    handed_over = False
+
+    async def replay() -> Message:
+        nonlocal handed_over
+        if handed_over:
+            return await receive()
+        handed_over = True
+        return {"type": "http.request", "body": body, "more_body": False}
+
+    return replay
 
 
 async def _cut_off(send: Send) -> None:
@@ -244,8 +273,10 @@ class LoopbackApp:
             message = "injected fault: too many requests"
             await _error(429, "injected-fault", message, headers)(scope, receive, send)
         elif kind == "slow":
+            # the device takes the whole request in, then is slow to act on it and answer
+            replay = await _buffered(receive)
             await asyncio.sleep(plan.slow_delay)
-            await self._routes(scope, receive, send)
+            await self._routes(scope, replay, send)
         elif kind == "malformed":
             body = b'{"job": {"id": "lb-'
             await Response(body, status_code=200, media_type="application/json")(

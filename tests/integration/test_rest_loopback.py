@@ -8,6 +8,7 @@ honouring its retry_after. Worker-level acceptance tests come separately.
 from __future__ import annotations
 
 import asyncio
+import logging
 import time
 from collections import Counter
 from collections.abc import Callable, Iterator
@@ -45,9 +46,12 @@ StartDevice = Callable[..., RunningDevice]
 
 
 @pytest.fixture
-def loopback(monkeypatch: pytest.MonkeyPatch) -> Iterator[StartDevice]:
+def loopback(
+    monkeypatch: pytest.MonkeyPatch, caplog: pytest.LogCaptureFixture
+) -> Iterator[StartDevice]:
     """Starts loopback devices (real uvicorn servers on 127.0.0.1, free ports) with the
-    token in the environment; stops them all afterwards."""
+    token in the environment; stops them all afterwards, and fails the test if the
+    server logged an error (an exception inside the device)."""
     with ExitStack() as stack:
 
         def start(**settings: Any) -> RunningDevice:
@@ -56,6 +60,13 @@ def loopback(monkeypatch: pytest.MonkeyPatch) -> Iterator[StartDevice]:
             return device
 
         yield start
+    records = caplog.get_records("setup") + caplog.get_records("call") + caplog.records
+    errors = [
+        r.getMessage()
+        for r in records
+        if r.name.startswith("uvicorn") and r.levelno >= logging.ERROR
+    ]
+    assert not errors, errors
 
 
 def key(i: int) -> str:
