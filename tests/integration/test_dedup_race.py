@@ -42,7 +42,7 @@ def test_sixteen_racing_submitters_get_one_job(tmp_path: Path) -> None:
     keep, ledger = tmp_path / "keep", tmp_path / "ledger"
     write_recording_keep(keep, ledger)
     Keeper.open(keep).close()  # create the keep once, as 'jobkeeper init' would
-    ctx = mp.get_context("spawn")
+    ctx = mp.get_context("fork")  # the children open their own connections
     with ctx.Manager() as manager:
         barrier = manager.Barrier(RACERS)
         with ctx.Pool(RACERS) as pool:
