@@ -235,9 +235,10 @@ NOW = "extract(epoch from statement_timestamp())::float8"
 
 #: PostgreSQL-only statements that go with each schema version (same numbering as
 #: ``sql.MIGRATIONS``): the log_state row exists from the start, so appends can lock it.
-PG_EXTRAS: list[list[str]] = [
-    ["INSERT INTO log_state (id, size, state) VALUES (1, 0, '') ON CONFLICT (id) DO NOTHING"],
-]
+LOG_STATE_SEED = (
+    b"INSERT INTO log_state (id, size, state) VALUES (1, 0, '') ON CONFLICT (id) DO NOTHING"
+)
+PG_EXTRAS: list[list[str]] = [[LOG_STATE_SEED.decode()]]
 
 
 def migrate(db: Database, *, create: bool) -> int:

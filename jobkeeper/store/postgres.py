@@ -58,9 +58,19 @@ from jobkeeper.store import (
     StoredResult,
 )
 from jobkeeper.store import _sql as sql
-from jobkeeper.store._pg_conn import NOW, Conn, Database, migrate, redact, translate
+from jobkeeper.store._pg_conn import (
+    LOG_STATE_SEED,
+    NOW,
+    Conn,
+    Database,
+    migrate,
+    redact,
+    translate,
+)
 
 WAKE_CHANNEL = "jobkeeper_work"
+LOCK_LOG = b"SELECT size, state FROM log_state WHERE id = 1 FOR UPDATE"
+INSERT_CHECKPOINT = "INSERT INTO checkpoints (size, root, note, created_at) VALUES (?, ?, ?, {now})"
 _CACHE: dict[str, str] = {}
 
 
@@ -84,6 +94,21 @@ def _record(row: Sequence[Any]) -> JobRecord:
 def _entry(row: Sequence[Any]) -> LogEntry:
     idx, job_id, envelope, leaf, signer, created = row
     return LogEntry(int(idx), job_id, bytes(envelope), bytes(leaf), signer, created)
+
+
+def _each(conn: Conn, statement: str, rows: Sequence[Sequence[Any]]) -> list[Any]:
+    """Run one statement once per row in a single pipelined round trip; the first row each
+    run returned (None when it returned none)."""
+    out: list[Any] = []
+    if not rows:
+        return out
+    with conn.cursor() as cur:
+        cur.executemany(statement.encode(), rows, returning=True)
+        while True:
+            out.append(cur.fetchone())
+            if not cur.nextset():
+                break
+    return out
 
 
 def _lost(job_id: str) -> LeaseLost:
@@ -147,15 +172,9 @@ class PostgresStore:
 
         def work(conn: Conn) -> list[tuple[JobRecord, bool]]:
             out: list[tuple[JobRecord, bool]] = []
-            with conn.cursor() as cur:
-                # One round of the pipeline for all rows; each INSERT … ON CONFLICT DO
-                # NOTHING returns its row, or none when a live job has the key.
-                cur.executemany(_q(sql.INSERT_JOB).encode(), rows, returning=True)
-                inserted: list[Any] = []
-                while True:
-                    inserted.append(cur.fetchone())
-                    if not cur.nextset():
-                        break
+            # Each INSERT … ON CONFLICT DO NOTHING returns its row, or none when a live
+            # job has the key.
+            inserted = _each(conn, _q(sql.INSERT_JOB), rows)
             for job, row in zip(jobs, inserted, strict=True):
                 if row is not None:
                     out.append((_record(row), True))
@@ -211,7 +230,15 @@ class PostgresStore:
         ).encode()
 
         def work(conn: Conn) -> list[Any]:
-            return conn.execute(statement, params).fetchall()
+            # The claim must walk the due-jobs index in not_before order and stop after
+            # `limit` rows. With statistics older than a large enqueue, the planner may
+            # instead fetch and sort every due job: O(backlog) per claim (measured: 64 ms
+            # instead of 1.5 ms with 20,000 queued). Sorting is what that plan needs, so
+            # this transaction forbids it; both statements go in one round trip.
+            with conn.pipeline():
+                conn.execute(b"SET LOCAL enable_sort = off")
+                cur = conn.execute(statement, params)
+            return cur.fetchall()
 
         claimed = [_record(row) for row in self._db.run(work, write=True)]
         claimed.sort(key=lambda job: job.not_before)
@@ -227,14 +254,9 @@ class PostgresStore:
             return set()
 
         def work(conn: Conn) -> set[str]:
-            held: set[str] = set()
-            for job_id, token in leases:
-                cur = conn.execute(
-                    _q(sql.RENEW).encode(), (float(lease_seconds), job_id, token, owner)
-                )
-                if cur.rowcount == 1:
-                    held.add(job_id)
-            return held
+            rows = [(float(lease_seconds), job_id, token, owner) for job_id, token in leases]
+            kept = _each(conn, _q(sql.RENEW + " RETURNING id"), rows)
+            return {row[0] for row in kept if row is not None}
 
         return self._db.run(work, write=True)
 
@@ -277,13 +299,12 @@ class PostgresStore:
             return []
 
         def work(conn: Conn) -> list[bool]:
-            done: list[bool] = []
-            accepted: list[Completion] = []
-            for item in completions:
-                ok = conn.execute(_q(sql.FINISH).encode(), (item.job_id, item.token)).rowcount == 1
-                done.append(ok)
-                if ok:
-                    accepted.append(item)
+            # Fenced on each token; all in one pipelined round trip.
+            finished = _each(
+                conn, _q(sql.FINISH + " RETURNING id"), [(c.job_id, c.token) for c in completions]
+            )
+            done = [row is not None for row in finished]
+            accepted = [item for item, ok in zip(completions, done, strict=True) if ok]
             if accepted:
                 with conn.cursor() as cur:
                     cur.executemany(
@@ -305,17 +326,17 @@ class PostgresStore:
 
     def _append_log(self, conn: Conn, items: Sequence[Completion], appender: LogAppender) -> None:
         # The log lock: held from here to the commit, by one finisher at a time.
-        row = conn.execute("SELECT size, state FROM log_state WHERE id = 1 FOR UPDATE").fetchone()
+        row = conn.execute(LOCK_LOG).fetchone()
         if row is None:  # an archive whose row went missing: recreate it, then lock it
-            conn.execute(_q(PG_LOG_STATE_SEED).encode())
-            row = conn.execute(
-                "SELECT size, state FROM log_state WHERE id = 1 FOR UPDATE"
-            ).fetchone()
+            conn.execute(LOG_STATE_SEED)
+            row = conn.execute(LOCK_LOG).fetchone()
             assert row is not None
         size = int(row[0])
         state = bytes(row[1]) if size else None
         leaves, new_state, root, note = appender(state, size, [c.envelope for c in items])
-        with conn.cursor() as cur:
+        new_size = size + len(items)
+        # Everything else the lock covers goes in one round trip.
+        with conn.pipeline(), conn.cursor() as cur:
             cur.executemany(
                 _q(sql.INSERT_LOG_ENTRY).encode(),
                 [
@@ -323,22 +344,19 @@ class PostgresStore:
                     for offset, (item, leaf) in enumerate(zip(items, leaves, strict=True))
                 ],
             )
-        new_size = size + len(items)
-        conn.execute(
-            "UPDATE log_state SET size = %s, state = %s WHERE id = 1", (new_size, new_state)
-        )
-        conn.execute(
-            _q("INSERT INTO checkpoints (size, root, note, created_at) VALUES (?, ?, ?, {now})"),
-            (new_size, root, note),
-        )
+            cur.execute(b"UPDATE log_state SET size = %s, state = %s WHERE id = 1",
+                        (new_size, new_state))  # fmt: skip
+            cur.execute(_q(INSERT_CHECKPOINT).encode(), (new_size, root, note))
 
     def release(self, owner: str, leases: Sequence[tuple[str, int]]) -> None:
         if not leases:
             return
 
         def work(conn: Conn) -> None:
-            for job_id, token in leases:
-                conn.execute(_q(sql.RELEASE).encode(), (job_id, token, owner))
+            with conn.cursor() as cur:
+                cur.executemany(
+                    _q(sql.RELEASE).encode(), [(job_id, token, owner) for job_id, token in leases]
+                )
 
         self._db.run(work, write=True)
 
@@ -517,8 +535,3 @@ class PostgresStore:
 
     def __exit__(self, *exc: object) -> None:
         self.close()
-
-
-PG_LOG_STATE_SEED = (
-    "INSERT INTO log_state (id, size, state) VALUES (1, 0, '') ON CONFLICT (id) DO NOTHING"
-)
