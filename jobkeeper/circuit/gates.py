@@ -175,17 +175,19 @@ def _body_statement(
                 exprs.append(parse_expression(stream, params))
         stream.expect(")")
     args: list[int] = []
+    seen: set[int] = set()
     while True:
         arg = stream.expect_kind(ID, "a qubit argument of the gate")
         if arg.text not in qubits:
             stream.fail(f"'{arg.text}' is not a qubit argument of this gate", arg)
         if stream.peek_is("["):
             stream.fail("gate bodies use the gate's qubit arguments, not indexed qubits", arg)
-        if qubits[arg.text] in args:
+        if qubits[arg.text] in seen:
             if tok.text == "barrier":
                 stream.fail(f"qubit argument '{arg.text}' appears twice in the barrier", arg)
             stream.fail(f"qubit argument '{arg.text}' is used twice in one gate call", arg)
         args.append(qubits[arg.text])
+        seen.add(qubits[arg.text])
         if not stream.accept(","):
             break
     stream.expect(";")

@@ -7,8 +7,7 @@ Columns count characters (code points), starting at 1, as editors show them.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
-from typing import NoReturn
+from typing import NamedTuple, NoReturn
 
 from jobkeeper.exceptions import CircuitError
 
@@ -32,8 +31,10 @@ _SPACE = frozenset(" \t\r\n\f\v")
 _UPPER_KEYWORDS = frozenset({"OPENQASM", "U", "CX"})
 
 
-@dataclass(frozen=True, slots=True)
-class Token:
+class Token(NamedTuple):
+    """A tuple, not a dataclass: the garbage collector stops tracking tuples of plain
+    values, so a million tokens do not slow every later collection down."""
+
     kind: str
     text: str
     line: int

@@ -92,14 +92,16 @@ class _Program:
         self.extension_used: dict[str, int] = {}
         self.ops: list[Operation] = []
         self.work = 0
+        self.num_qubits = 0
+        self.num_clbits = 0
         self.include_stack: list[Path] = []
         self.stream = TokenStream([], None)
 
     def circuit(self, *, source_hash: str, source_name: str | None) -> Circuit:
         opaque = sorted((g for g in self.gates.values() if g.opaque), key=lambda g: g.name)
         return Circuit(
-            num_qubits=sum(r.size for r in self.qregs.values()),
-            num_clbits=sum(r.size for r in self.cregs.values()),
+            num_qubits=self.num_qubits,
+            num_clbits=self.num_clbits,
             qregs=tuple(self.qregs.values()),
             cregs=tuple(self.cregs.values()),
             operations=tuple(self.ops),
@@ -151,11 +153,13 @@ class _Program:
             stream.advance()
             qubits: set[int] = set()
             while True:
-                qubits.update(self.argument(quantum=True)[0])
+                indices = self.argument(quantum=True)[0]
+                self.charge(len(indices), tok)
+                qubits.update(indices)
                 if not stream.accept(","):
                     break
             stream.expect(";")
-            self.charge(1 + len(qubits), tok)
+            self.charge(1, tok)
             self.ops.append(Operation(BARRIER, tuple(sorted(qubits))))
         elif word == "if":
             stream.advance()
@@ -224,14 +228,15 @@ class _Program:
         stream.expect("]")
         stream.expect(";")
         if keyword.text == "qreg":
-            offset = sum(r.size for r in self.qregs.values())
-            self.qregs[name.text] = Register(name.text, size, offset)
+            self.qregs[name.text] = Register(name.text, size, self.num_qubits)
+            self.num_qubits += size
         else:
-            offset = sum(r.size for r in self.cregs.values())
+            offset = self.num_clbits
             self.cregs[name.text] = Register(name.text, size, offset)
             self.creg_bits[name.text] = tuple(range(offset, offset + size))
+            self.num_clbits += size
 
-    def argument(self, *, quantum: bool) -> tuple[tuple[int, ...], bool]:
+    def argument(self, *, quantum: bool) -> tuple[range, bool]:
         """Absolute indices of ``name`` or ``name[i]``, and whether it was a register."""
         stream = self.stream
         kind = "qubit" if quantum else "bit"
@@ -244,7 +249,8 @@ class _Program:
                 stream.fail(f"'{tok.text}' is a {which} register; expected a {kind} argument", tok)
             stream.fail(f"undeclared register '{tok.text}'", tok)
         if not stream.accept("["):
-            return tuple(range(reg.offset, reg.offset + reg.size)), True
+            # A range, not a tuple: `cx q, q, q, ...` must not cost the size per argument.
+            return range(reg.offset, reg.offset + reg.size), True
         index_tok = stream.expect_kind(INT, "an index (a non-negative integer)")
         index = int(index_tok.text)
         if index >= reg.size:
@@ -253,7 +259,7 @@ class _Program:
                 index_tok,
             )
         stream.expect("]")
-        return (reg.offset + index,), False
+        return range(reg.offset + index, reg.offset + index + 1), False
 
     # ---- gates ------------------------------------------------------------------------
 
@@ -293,7 +299,7 @@ class _Program:
     def include(self, name: Token, base_dir: Path | None) -> None:
         stream = self.stream
         if name.text == STANDARD_HEADER:
-            clash = sorted(ORIGINAL_GATES & self.gates.keys())
+            clash = sorted(name for name in ORIGINAL_GATES if name in self.gates)
             if clash:
                 stream.fail(
                     f"{STANDARD_HEADER} defines '{clash[0]}', which this program "
@@ -313,6 +319,8 @@ class _Program:
         if len(self.include_stack) >= MAX_INCLUDE_DEPTH:
             stream.fail(f"includes nested more than {MAX_INCLUDE_DEPTH} deep", name)
         data = _read(path, f'include "{name.text}"', name)
+        # Including one big file many times must not make a short program expensive.
+        self.charge(1 + len(data) // 4, name)
         data_name = str(path)
         self.include_stack.append(path)
         self.parse_source(_decode(data, data_name), data_name, path.parent, top=False)
@@ -333,7 +341,7 @@ class _Program:
                 while stream.accept(","):
                     values.append(parse_expression(stream, {}).evaluate(()))
             stream.expect(")")
-        args: list[tuple[tuple[int, ...], bool]] = []
+        args: list[tuple[range, bool]] = []
         while True:
             args.append(self.argument(quantum=True))
             if not stream.accept(","):
