@@ -36,8 +36,10 @@ from jobkeeper.provenance.checkpoint import (
 )
 from jobkeeper.provenance.dsse import (
     PAYLOAD_TYPE,
+    KeyTable,
     VerifiedEnvelope,
     envelope_bytes,
+    key_table,
     pae,
     sign_envelope,
     verify_envelope,
@@ -90,6 +92,7 @@ __all__ = [
     "BundleEntry",
     "Checkpoint",
     "KeyRing",
+    "KeyTable",
     "LogEntry",
     "MerkleTree",
     "NoteVerifier",
@@ -108,6 +111,7 @@ __all__ = [
     "generate_key",
     "git_code_version",
     "inclusion_proof",
+    "key_table",
     "leaf_hash",
     "load_public_key",
     "load_signing_key",

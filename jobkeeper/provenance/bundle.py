@@ -35,7 +35,12 @@ from jobkeeper.provenance.checkpoint import (
     split_note,
     verify_checkpoint,
 )
-from jobkeeper.provenance.dsse import b64decode_strict, envelope_bytes, strict_json_loads
+from jobkeeper.provenance.dsse import (
+    b64decode_strict,
+    envelope_bytes,
+    key_table,
+    strict_json_loads,
+)
 from jobkeeper.provenance.log import check_envelope, check_public_keys
 from jobkeeper.provenance.merkle import MerkleTree, leaf_hash, verify_inclusion
 from jobkeeper.provenance.report import VerifyReport
@@ -221,6 +226,7 @@ def verify_bundle(
         if not trusted:
             report.problems.append("none of the bundle's keys is among the trusted fingerprints")
     cp = _checkpoint(bundle.checkpoint, trusted, origin, report)
+    table = key_table(trusted)
     if cp is not None and bundle.origin != cp.origin:
         # The top-level origin is only a label for readers; it must not contradict.
         report.problems.append(
@@ -233,7 +239,7 @@ def verify_bundle(
         if entry.index in seen:
             report.problems.append(f"{label}: log index appears twice in the bundle")
         seen.add(entry.index)
-        check_envelope(entry.envelope, trusted, label, report)
+        check_envelope(entry.envelope, table, label, report)
         if cp is None:
             continue
         try:

@@ -84,6 +84,12 @@ def _has_lone_surrogate(value: Any) -> bool:
     return False
 
 
+# One decoder for all calls: json.loads would build a new one each time.
+_DECODER = json.JSONDecoder(
+    object_pairs_hook=_unique_object, parse_constant=_reject_constant, parse_int=_safe_int
+)
+
+
 def strict_json_loads(data: bytes | str, what: str) -> Any:
     """json.loads for I-JSON (RFC 7493): refuses duplicate members, NaN/Infinity, bad
     UTF-8, lone surrogates and integers beyond ±(2^53−1).
@@ -93,12 +99,7 @@ def strict_json_loads(data: bytes | str, what: str) -> Any:
     """
     try:
         text = data.decode("utf-8") if isinstance(data, bytes) else data
-        value = json.loads(
-            text,
-            object_pairs_hook=_unique_object,
-            parse_constant=_reject_constant,
-            parse_int=_safe_int,
-        )
+        value = _DECODER.decode(text)
         # A lone surrogate can only enter through a \uD8xx–\uDFxx escape; look only then.
         if ("\\ud" in text or "\\uD" in text) and _has_lone_surrogate(value):
             raise VerificationError(f"{what} holds a lone surrogate, which is not Unicode text")
@@ -143,7 +144,13 @@ class VerifiedEnvelope:
     signers: tuple[str, ...]  # fingerprints of the trusted keys whose signature held
 
 
-TrustedKeys = Mapping[str, bytes] | Iterable[bytes | Ed25519PublicKey]
+class KeyTable(dict[str, Ed25519PublicKey]):
+    """Trusted keys by recomputed fingerprint; build once with ``key_table`` and pass it
+    to every verification of a batch to skip re-deriving the fingerprints."""
+
+
+# fingerprint → raw key (labels are ignored), raw keys or key objects, or a KeyTable.
+TrustedKeys = KeyTable | Mapping[str, bytes] | Iterable[bytes | Ed25519PublicKey]
 
 
 @functools.lru_cache(maxsize=256)
@@ -152,10 +159,17 @@ def _trusted_key(raw: bytes) -> tuple[str, Ed25519PublicKey]:
     return fingerprint(raw), load_public_key(raw)
 
 
-def _key_table(keys: TrustedKeys) -> dict[str, Ed25519PublicKey]:
+def key_table(keys: TrustedKeys) -> KeyTable:
+    """Index trusted keys by their fingerprint, recomputed from the keys themselves."""
+    return _key_table(keys)
+
+
+def _key_table(keys: TrustedKeys) -> KeyTable:
     # Fingerprints are recomputed from the keys, so a mislabelled mapping cannot mislead.
+    if isinstance(keys, KeyTable):
+        return keys
     values = keys.values() if isinstance(keys, Mapping) else keys
-    table: dict[str, Ed25519PublicKey] = {}
+    table = KeyTable()
     for value in values:
         if isinstance(value, bytes):
             fp, pub = _trusted_key(value)

@@ -19,7 +19,9 @@ from jobkeeper.exceptions import ProvenanceError, VerificationError
 from jobkeeper.provenance.checkpoint import Checkpoint, verify_checkpoint
 from jobkeeper.provenance.dsse import (
     PAYLOAD_TYPE,
+    KeyTable,
     envelope_bytes,
+    key_table,
     sign_envelope,
     verify_envelope_detailed,
 )
@@ -84,7 +86,7 @@ def check_public_keys(keys: Mapping[str, bytes], report: VerifyReport) -> dict[s
 
 def check_envelope(
     envelope: Mapping[str, Any] | bytes,
-    keys: Mapping[str, bytes],
+    keys: Mapping[str, bytes] | KeyTable,
     label: str,
     report: VerifyReport,
     *,
@@ -131,6 +133,7 @@ def verify_log(
     """
     report = VerifyReport()
     good_keys = check_public_keys(keys, report)
+    table = key_table(good_keys)
     tree = MerkleTree()
     seen: dict[bytes, int] = {}
     for i, entry in enumerate(entries):
@@ -144,7 +147,7 @@ def verify_log(
             report.problems.append(f"entry {i}: signer {entry.signer[:16]} is not a listed key")
         check_envelope(
             entry.envelope,
-            good_keys,
+            table,
             f"entry {i}",
             report,
             signer=entry.signer,
