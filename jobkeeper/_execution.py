@@ -21,7 +21,8 @@ def seed_for(job: JobRecord) -> int:
         seed = effective_seed(int(job.seed), job.repeat)
         assert seed is not None
         return seed
-    return int(digest_of({"jobKey": job.job_key}).removeprefix("sha256:")[:16], 16)
+    # 63 bits: a seed must fit a signed 64-bit integer wherever a device stores it.
+    return int(digest_of({"jobKey": job.job_key}).removeprefix("sha256:")[:16], 16) >> 1
 
 
 def build_task(job: JobRecord) -> Task:

@@ -15,6 +15,7 @@ from typing import Any
 from pydantic import BaseModel, ConfigDict, Field, ValidationError
 
 from jobkeeper.exceptions import ConfigError
+from jobkeeper.queue import PollPolicy, RetryPolicy
 
 DEFAULT_KEEP = Path(".jobkeeper")
 CONFIG_NAME = "config.toml"
@@ -27,6 +28,16 @@ CONFIG_TEMPLATE = """\
 [defaults]
 shots = 1024
 max_attempts = 10
+
+# Back-off of transient failures: uniform(0, min(cap, base * 2^attempt)) seconds; a delay
+# the backend asks for wins. Polling of remote jobs: first, then *factor, up to cap.
+# [retry]
+# base = 2.0
+# cap = 900.0
+# [poll]
+# first = 2.0
+# factor = 1.5
+# cap = 60.0
 
 # Spending caps, in the currency of the backends' pricing. 'submit' refuses a job that
 # would pass one (unless --over-budget) and says how much is left.
@@ -70,6 +81,8 @@ class KeepConfig(BaseModel):
 
     store: str | None = None
     defaults: Defaults = Field(default_factory=Defaults)
+    retry: RetryPolicy = Field(default_factory=RetryPolicy)
+    poll: PollPolicy = Field(default_factory=PollPolicy)
     budget: Budget = Field(default_factory=Budget)
     backends: dict[str, dict[str, Any]] = Field(default_factory=dict)
 

@@ -219,6 +219,13 @@ class Keeper:
     def backend_configs(self) -> dict[str, dict[str, Any]]:
         configs = {name: dict(cfg) for name, cfg in DEFAULT_BACKENDS.items()}
         configs.update({name: dict(cfg) for name, cfg in self.config.backends.items()})
+        for cfg in configs.values():
+            # A profile given as a relative path means relative to the keep, not to
+            # wherever the command happens to run.
+            profile = cfg.get("profile")
+            if isinstance(profile, str) and profile.endswith(".toml"):
+                path = Path(profile).expanduser()
+                cfg["profile"] = str(path if path.is_absolute() else self.path.resolve() / path)
         return configs
 
     def backend(self, name: str) -> Backend:
@@ -340,7 +347,10 @@ class Keeper:
         return Sealer(self.keyring.load_active(), origin=origin)
 
     def worker(self, **options: Any) -> Worker:
-        """A worker draining this keep; options as for :class:`~jobkeeper.worker.Worker`."""
+        """A worker draining this keep; options as for :class:`~jobkeeper.worker.Worker`
+        (retry and poll policies default to the keep's config.toml)."""
+        options.setdefault("retry", self.config.retry)
+        options.setdefault("poll", self.config.poll)
         return Worker(store=self.store, resolve_backend=self.backend, sealer=self.sealer(), **options)
 
     def work(

@@ -54,11 +54,11 @@ MAX_BACKEND_DELAY = 3600.0
 
 
 class RetryPolicy(BaseModel):
-    """Full-jitter exponential back-off: delay = uniform(0, min(cap, base · 2^attempt))."""
+    """Full-jitter exponential back-off: delay = uniform(0, min(cap, base · 2^attempt)).
+    How many attempts a job gets is fixed when it is submitted (``[defaults] max_attempts``)."""
 
-    model_config = ConfigDict(frozen=True)
+    model_config = ConfigDict(frozen=True, extra="forbid")
 
-    max_attempts: int = Field(default=10, ge=1)
     base: float = Field(default=2.0, gt=0)
     cap: float = Field(default=900.0, gt=0)
 
@@ -88,7 +88,7 @@ class PollPolicy(BaseModel):
     """Adaptive polling of waiting jobs: start at ``first`` seconds, grow by ``factor``
     each time the job is still waiting, up to ``cap``; a device's own hint wins."""
 
-    model_config = ConfigDict(frozen=True)
+    model_config = ConfigDict(frozen=True, extra="forbid")
 
     first: float = Field(default=2.0, gt=0)
     factor: float = Field(default=1.5, ge=1.0)

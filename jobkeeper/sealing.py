@@ -19,6 +19,7 @@ import numpy as np
 from cryptography.hazmat.primitives.asymmetric.ed25519 import Ed25519PrivateKey
 
 from jobkeeper import __version__
+from jobkeeper._execution import seed_for
 from jobkeeper.backend import BackendInfo, Result
 from jobkeeper.provenance.checkpoint import format_checkpoint, sign_note
 from jobkeeper.provenance.dsse import PAYLOAD_TYPE, envelope_bytes, sign_envelope
@@ -102,7 +103,8 @@ class Sealer:
         if result.probabilities is not None:
             parameters["probabilities"] = dict(result.probabilities)
         calibration = result.metadata.get("calibration", info.calibration)
-        seed = result.metadata.get("seed")
+        # A device may not echo the seed back; the seed we sent is the one to record.
+        seed = result.metadata.get("seed", seed_for(job))
         return {
             "jobKey": job.job_key,
             "circuit": {

@@ -38,8 +38,8 @@ class JobSpec:
     def __post_init__(self) -> None:
         if self.shots <= 0:
             raise ConfigError(f"shots must be a positive whole number, got {self.shots}")
-        if self.seed is not None and self.seed < 0:
-            raise ConfigError(f"seed must be zero or positive, got {self.seed}")
+        if self.seed is not None and not 0 <= self.seed < 2**63:
+            raise ConfigError(f"seed must be a whole number from 0 to 2^63-1, got {self.seed}")
         if self.repeat < 0:
             raise ConfigError(f"repeat must be zero or positive, got {self.repeat}")
 
@@ -72,4 +72,4 @@ def effective_seed(seed: int | None, repeat: int) -> int | None:
     if seed is None or repeat == 0:
         return seed
     derived = digest_of({"seed": str(seed), "repeat": repeat})
-    return int(derived.removeprefix("sha256:")[:16], 16)
+    return int(derived.removeprefix("sha256:")[:16], 16) >> 1  # 63 bits fit any int64 field

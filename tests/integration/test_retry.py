@@ -13,7 +13,7 @@ from jobkeeper import Keeper
 from jobkeeper.queue import RetryPolicy
 from tests.integration.helpers import circuit_text
 
-FAST = RetryPolicy(max_attempts=10, base=0.01, cap=0.05)
+FAST = RetryPolicy(base=0.01, cap=0.05)
 
 
 def flaky_keep(tmp_path: Path, **options: object) -> Path:
