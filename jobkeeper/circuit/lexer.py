@@ -54,6 +54,9 @@ def _shown(char: str) -> str:
 
 def tokenize(text: str, file: str | None) -> list[Token]:
     """All tokens of ``text`` followed by one EOF token; CircuitError on a bad character."""
+    # A lone CR (old Mac line ends) ends a line too, so that it ends a comment as well.
+    if "\r" in text:
+        text = text.replace("\r\n", "\n").replace("\r", "\n")
     tokens: list[Token] = []
     append = tokens.append
     n = len(text)

@@ -54,8 +54,9 @@ class CircuitMetrics:
 
 
 def metrics(circuit: Circuit) -> CircuitMetrics:
-    qubit_level = [0] * circuit.num_qubits
-    bit_level = [0] * circuit.num_clbits
+    # dicts, not lists: a circuit may declare far more qubits than it uses
+    qubit_level: dict[int, int] = {}
+    bit_level: dict[int, int] = {}
     qubits_used: set[int] = set()
     bits_used: set[int] = set()
     measured_qubits: set[int] = set()
@@ -66,7 +67,7 @@ def metrics(circuit: Circuit) -> CircuitMetrics:
     for op in circuit.operations:
         counts[op.name] += 1
         if op.name == BARRIER:
-            top = max((qubit_level[q] for q in op.qubits), default=0)
+            top = max((qubit_level.get(q, 0) for q in op.qubits), default=0)
             for q in op.qubits:
                 qubit_level[q] = top
             continue
@@ -79,8 +80,8 @@ def metrics(circuit: Circuit) -> CircuitMetrics:
         if measured_qubits.intersection(op.qubits):
             mid = True
         level = 1 + max(
-            max((qubit_level[q] for q in op.qubits), default=0),
-            max((bit_level[b] for b in bits), default=0),
+            max((qubit_level.get(q, 0) for q in op.qubits), default=0),
+            max((bit_level.get(b, 0) for b in bits), default=0),
         )
         for q in op.qubits:
             qubit_level[q] = level

@@ -21,6 +21,7 @@ from jobkeeper.circuit.expressions import ExpressionError, parse_expression
 from jobkeeper.circuit.gates import RESERVED, GateSpec, check_arity, parse_gate_definition
 from jobkeeper.circuit.ir import BARRIER, MEASURE, RESET, Circuit, Condition, Operation, Register
 from jobkeeper.circuit.lexer import EOF, ID, INT, REAL, STRING, Token, TokenStream, tokenize
+from jobkeeper.circuit.sources import decode_source, read_source
 from jobkeeper.circuit.stdgates import ORIGINAL_GATES, STANDARD_GATES
 from jobkeeper.exceptions import CircuitError
 from jobkeeper.hashing import sha256_tag
@@ -41,7 +42,7 @@ def parse_qasm(text: str, *, filename: str | None = None, base_dir: Path | None 
     ``base_dir`` is the folder other includes are resolved in (without it, only the
     standard header may be included)."""
     program = _Program()
-    program.parse_source(text, filename, base_dir, top=True)
+    _guarded(program, text, filename, base_dir)
     return program.circuit(
         source_hash=sha256_tag(text.encode("utf-8", "surrogatepass")), source_name=filename
     )
@@ -50,34 +51,19 @@ def parse_qasm(text: str, *, filename: str | None = None, base_dir: Path | None 
 def load_qasm(path: str | os.PathLike[str]) -> Circuit:
     """Read and parse a file; ``source_hash`` is the hash of its bytes."""
     path = Path(path)
-    data = _read(path, str(path), None)
+    data = read_source(path, str(path), file=str(path))
     program = _Program()
-    program.parse_source(_decode(data, str(path)), str(path), path.parent, top=True)
+    _guarded(program, decode_source(data, str(path)), str(path), path.parent)
     return program.circuit(source_hash=sha256_tag(data), source_name=str(path))
 
 
-def _read(path: Path, name: str, at: Token | None) -> bytes:
+def _guarded(program: _Program, text: str, file: str | None, base_dir: Path | None) -> None:
     try:
-        return path.read_bytes()
-    except OSError as exc:
-        raise CircuitError(
-            f"cannot read {name}: {exc.strerror or exc}",
-            file=None if at else name,
-            line=at.line if at else None,
-            column=at.column if at else None,
-        ) from None
-
-
-def _decode(data: bytes, name: str) -> str:
-    try:
-        text = data.decode("utf-8")
-    except UnicodeDecodeError as exc:
-        line = data.count(b"\n", 0, exc.start) + 1
-        column = exc.start - (data.rfind(b"\n", 0, exc.start) + 1) + 1
-        raise CircuitError(
-            f"not UTF-8 text (byte 0x{data[exc.start]:02x})", file=name, line=line, column=column
-        ) from None
-    return text
+        program.parse_source(text, file, base_dir, top=True)
+    except RecursionError:
+        # Nesting is bounded well below the interpreter's limit; this only happens when the
+        # caller itself runs near that limit. Still a refusal, never a crash.
+        raise CircuitError("program nested too deeply to parse here", file=file) from None
 
 
 class _Program:
@@ -225,6 +211,10 @@ class _Program:
         size = int(size_tok.text)
         if not 0 < size <= MAX_REGISTER_SIZE:
             stream.fail(f"register size must be between 1 and {MAX_REGISTER_SIZE}", size_tok)
+        total = self.num_qubits if keyword.text == "qreg" else self.num_clbits
+        if total + size > MAX_REGISTER_SIZE:
+            kind = "qubits" if keyword.text == "qreg" else "bits"
+            stream.fail(f"more than {MAX_REGISTER_SIZE} {kind} in total", size_tok)
         stream.expect("]")
         stream.expect(";")
         if keyword.text == "qreg":
@@ -310,20 +300,23 @@ class _Program:
             return
         if base_dir is None:
             stream.fail(f'cannot include "{name.text}": the program was not read from a file', name)
-        folder = base_dir.resolve()
-        path = (folder / name.text).resolve()
+        try:
+            folder = base_dir.resolve()
+            path = (folder / name.text).resolve()
+        except (OSError, ValueError, RuntimeError) as exc:  # NUL bytes, symlink loops, ...
+            stream.fail(f'cannot include "{name.text}": {exc}', name)
         if not path.is_relative_to(folder):
             stream.fail(f'include "{name.text}" is outside the folder {folder}', name)
         if path in self.include_stack:
             stream.fail(f'include "{name.text}" includes itself', name)
         if len(self.include_stack) >= MAX_INCLUDE_DEPTH:
             stream.fail(f"includes nested more than {MAX_INCLUDE_DEPTH} deep", name)
-        data = _read(path, f'include "{name.text}"', name)
+        data = read_source(path, f'include "{name.text}"', file=stream.file, at=name)
         # Including one big file many times must not make a short program expensive.
         self.charge(1 + len(data) // 4, name)
         data_name = str(path)
         self.include_stack.append(path)
-        self.parse_source(_decode(data, data_name), data_name, path.parent, top=False)
+        self.parse_source(decode_source(data, data_name), data_name, path.parent, top=False)
         self.include_stack.pop()
 
     def gate_call(self, tok: Token, condition: Condition | None) -> None:

@@ -102,6 +102,17 @@ def test_mutated_corpus_files(index: int, edits: list[tuple[str, float, bytes]])
     load_bytes_safely(bytes(data))
 
 
+@SETTINGS
+@given(st.text(max_size=40))
+def test_random_include_names(name: str) -> None:
+    with tempfile.TemporaryDirectory() as folder:
+        base = Path(folder) / "inner"
+        base.mkdir()
+        (base / "ok.inc").write_text("gate mine a { x a; }\n")
+        with contextlib.suppress(CircuitError):
+            parse_qasm(HEADER + f'include "{name}";\n', filename="x.qasm", base_dir=base)
+
+
 def test_corpus_is_there_for_the_mutation_fuzzer(corpus_dir: Path) -> None:
     assert len(CORPUS_BYTES) == 66
 

@@ -454,3 +454,47 @@ def test_expand_standard_reaches_only_builtins() -> None:
         assert all(max(q) < spec.num_qubits for _, q, _ in prims if q)
     with pytest.raises(ValueError):
         expand_standard("rz", [])
+
+
+def test_lone_carriage_returns_end_lines_and_comments() -> None:
+    # Old Mac line ends: a comment must not swallow the rest of the program.
+    text = HEADER.replace("\n", "\r") + "qreg q[1]; // one\rx q[0];\rh q[5];"
+    with pytest.raises(CircuitError, match="out of range") as err:
+        parse_qasm(text)
+    assert err.value.line == 5
+
+
+def test_total_register_size_is_bounded() -> None:
+    with pytest.raises(CircuitError, match="in total"):
+        parse_qasm(HEADER + "qreg a[16777216];\nqreg b[1];")
+
+
+def test_deep_caller_stack_gives_a_circuit_error_not_a_crash() -> None:
+    import sys
+
+    text = HEADER + "qreg q[1];\nrz(" + "(" * 40 + "1" + ")" * 40 + ") q[0];"
+
+    def nest(depth: int) -> None:
+        if depth:
+            nest(depth - 1)
+        else:
+            parse_qasm(text)
+
+    depth, frame = 0, sys._getframe()
+    while frame is not None:
+        depth, frame = depth + 1, frame.f_back
+    with pytest.raises(CircuitError, match="nested too deeply"):
+        nest(sys.getrecursionlimit() - depth - 60)  # leaves the parser ~60 frames
+
+
+def test_unreadable_includes_name_the_including_statement(tmp_path: Path) -> None:
+    main = tmp_path / "main.qasm"
+    for name, words in [
+        ("absent.inc", "cannot read"),
+        ("a\x00b", "cannot include"),
+        ("", "cannot read"),
+    ]:
+        main.write_text(HEADER + f'include "{name}";\n')
+        with pytest.raises(CircuitError, match=words) as err:
+            load_qasm(main)
+        assert (err.value.file, err.value.line, err.value.column) == (str(main), 3, 9)
