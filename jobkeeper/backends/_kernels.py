@@ -32,6 +32,9 @@ CHUNK = 1 << 15
 #: block of rows (no gather needed); a product with a 2^3 × 2^3 matrix costs no more
 #: than with a 2 × 2 one.
 LOW_QUBITS = 3
+#: consecutive targets t..t+k-1 with t + k at least this skip the gather: the products
+#: on (2^k × 2^t) blocks in place beat gathering once blocks reach 2^7 amplitudes.
+DIRECT_BLOCK = 7
 
 
 def _view_shape(n: int, desc: tuple[int, ...]) -> tuple[int, ...]:
@@ -90,12 +93,14 @@ def apply_dense(state: State, n: int, matrix: Matrix, qubits: tuple[int, ...]) -
     if desc[0] < LOW_QUBITS:
         _apply_low(state, matrix, desc)
         return
+    k = len(desc)
+    if desc[0] - desc[-1] == k - 1 and desc[-1] + k >= DIRECT_BLOCK:
+        # Consecutive targets with enough amplitudes below them: (D × D) times (D × 2^t)
+        # blocks straight from the state, no gather.
+        _apply_consecutive(state.reshape(-1, 1 << k, 1 << desc[-1]), matrix)
+        return
     shape = _view_shape(n, desc)
     view = state.reshape(shape)
-    k = len(desc)
-    if k == 1 and shape[2] >= 1024:
-        _apply_wide_single(view, matrix)
-        return
     first = [*range(1, 2 * k, 2), *range(0, 2 * k + 1, 2)]
     buf_in = np.empty(max(CHUNK, 1 << k), dtype=np.complex128)
     buf_out = np.empty_like(buf_in)
@@ -123,12 +128,11 @@ def _apply_low(state: State, matrix: Matrix, desc: tuple[int, ...]) -> None:
         part[...] = out
 
 
-def _apply_wide_single(view: State, matrix: Matrix) -> None:
-    # A high target: (2 × 2) times (2 × many) blocks straight from the state, no gather.
-    top, _, low = view.shape
-    per = max(1, CHUNK // (2 * low))
-    width = min(low, CHUNK // 2)
-    buf = np.empty((min(per, top), 2, width), dtype=np.complex128)
+def _apply_consecutive(view: State, matrix: Matrix) -> None:
+    top, dim, low = view.shape
+    per = max(1, CHUNK // (dim * low))
+    width = min(low, max(1, CHUNK // dim))
+    buf = np.empty((min(per, top), dim, width), dtype=np.complex128)
     for a in range(0, top, per):
         for b in range(0, low, width):
             part = view[a : a + per, :, b : b + width]

@@ -8,7 +8,8 @@ indexed in ascending order of the outcome index (bit j of the index = the final
 measurement into the j-th smallest classical bit written by a final measurement). With
 several records (mid-circuit measurements), first one ``multinomial`` over the records in
 ascending order of their bits as an integer (clbit c = bit c), then, for each record in
-that order with shots, one ``multinomial`` over its final outcomes as above. The same seed and numpy version give the same counts anywhere.
+that order with shots, one ``multinomial`` over its final outcomes as above. The same
+seed and numpy version give the same counts anywhere.
 """
 
 from __future__ import annotations

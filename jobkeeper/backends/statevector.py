@@ -314,5 +314,5 @@ def _collapse(state: kernels.State, n: int, step: Measure | Reset, outcome: int,
 
 def from_config(name: str, config: Mapping[str, Any]) -> StatevectorBackend:
     """The registry's factory: ``config`` keys ``adapter``, ``max_qubits`` (default 28),
-    ``max_memory_bytes``, ``max_branches`` (default 1024), ``fusion_width`` (default 3)."""
+    ``max_memory_bytes``, ``max_branches`` (default 1024), ``fusion_width`` (default 5)."""
     return StatevectorBackend(name, config)

@@ -134,6 +134,7 @@ def test_kernels_match_full_matrices(monkeypatch: pytest.MonkeyPatch, chunk: int
     cases: list[tuple[int, ...]] = [(n - 1,), (0,)]
     for k in range(1, min(n, 4) + 1):
         cases += [tuple(int(q) for q in rng.choice(n, k, replace=False)) for _ in range(4)]
+        cases.append(tuple(range(n - 1, n - 1 - k, -1)))  # consecutive: the direct path
     for qubits in cases:
         k = len(qubits)
         state = rng.normal(size=1 << n) + 1j * rng.normal(size=1 << n)

@@ -1,0 +1,172 @@
+"""Benchmark of the state-vector simulator: kernels, a random circuit, sampling.
+
+Prints figures and ratios measured in one run, each with its target and PASS/MISS:
+
+* time per single- and two-qubit dense gate at 20, 22 and 24 qubits (median of 3 runs
+  per target), and each kernel's effective memory bandwidth (bytes read + written per
+  pass over the state / time) as a ratio to numpy's own copy bandwidth (np.copyto over
+  an array of the same size); targets at 24 qubits: ≥ 0.5 at the median target, ≥ 0.3
+  at the worst;
+* a random 24-qubit circuit of depth 10 (per layer: u3 with random angles on every
+  qubit, then CX on alternating pairs), run through the backend with 1000 shots;
+  target ≤ 19.5 s;
+* sampling 10^6 shots from a 20-qubit distribution: the backend's draw plus counts within
+  2× one ``Generator.multinomial`` over the same probabilities, and the conversion to
+  counts no dearer than that draw.
+
+Single-threaded BLAS: the thread variables are set before numpy is imported.
+``--quick`` runs smaller sizes (a smoke run; its figures are not the targets').
+"""
+
+from __future__ import annotations
+
+import os
+
+for _var in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
+    os.environ[_var] = "1"
+
+import argparse  # noqa: E402
+import statistics  # noqa: E402
+import time  # noqa: E402
+from collections.abc import Callable  # noqa: E402
+
+import numpy as np  # noqa: E402
+
+from jobkeeper.backend import Task  # noqa: E402
+from jobkeeper.backends import _kernels as kernels  # noqa: E402
+from jobkeeper.backends._program import Gates, compile_circuit  # noqa: E402
+from jobkeeper.backends._sampling import BitFormatter, counts_of, draw  # noqa: E402
+from jobkeeper.backends.statevector import StatevectorBackend  # noqa: E402
+from jobkeeper.circuit.ir import Circuit, Operation, Register  # noqa: E402
+
+REPEATS = 3
+
+
+def median_time(fn: Callable[[], object], repeats: int = REPEATS) -> float:
+    times = []
+    for _ in range(repeats):
+        start = time.perf_counter()
+        fn()
+        times.append(time.perf_counter() - start)
+    return statistics.median(times)
+
+
+def verdict(ok: bool) -> str:
+    return "PASS" if ok else "MISS"
+
+
+def random_unitary(rng: np.random.Generator, k: int) -> np.ndarray:
+    z = rng.normal(size=(1 << k, 1 << k)) + 1j * rng.normal(size=(1 << k, 1 << k))
+    return np.linalg.qr(z)[0]
+
+
+def gate_pairs(n: int) -> list[tuple[int, int]]:
+    """Neighbouring pairs at every height, plus spread pairs."""
+    pairs = [(t + 1, t) for t in range(n - 1)]
+    pairs += [(n - 1, 0), (n // 2, 0), (n - 1, n // 2), (n - 3, 2), (n - 1, 1)]
+    return pairs
+
+
+def bench_kernels(n: int, rng: np.random.Generator) -> dict[str, list[float]]:
+    state = rng.normal(size=1 << n) + 1j * rng.normal(size=1 << n)
+    state /= np.linalg.norm(state)
+    target = np.empty_like(state)
+    t_copy = median_time(lambda: np.copyto(target, state), 5)
+    u1, u2 = random_unitary(rng, 1), random_unitary(rng, 2)
+    single = [median_time(lambda t=t: kernels.apply_dense(state, n, u1, (t,))) for t in range(n)]
+    double = [median_time(lambda p=p: kernels.apply_dense(state, n, u2, p)) for p in gate_pairs(n)]
+    print(f"\n{n} qubits: state {state.nbytes / 2**20:.0f} MiB, np.copyto {t_copy * 1e3:.1f} ms")
+    for label, times in (("1-qubit", single), ("2-qubit", double)):
+        ratios = [t_copy / t for t in times]
+        print(
+            f"  {label} gate: median {statistics.median(times) * 1e3:7.1f} ms, "
+            f"worst {max(times) * 1e3:7.1f} ms; bandwidth / copy: median "
+            f"{statistics.median(ratios):.2f}, worst {min(ratios):.2f}"
+        )
+    print("  1-qubit ratio by target: " + " ".join(f"{t_copy / t:.2f}" for t in single))
+    return {"single": [t_copy / t for t in single], "double": [t_copy / t for t in double]}
+
+
+def random_circuit(n: int, depth: int, rng: np.random.Generator) -> Circuit:
+    ops: list[Operation] = []
+    for layer in range(depth):
+        ops += [Operation("u3", (q,), tuple(rng.uniform(0, 2 * np.pi, 3))) for q in range(n)]
+        ops += [Operation("cx", (q, q + 1)) for q in range(layer % 2, n - 1, 2)]
+    ops += [Operation("measure", (q,), (), (q,)) for q in range(n)]
+    return Circuit(
+        num_qubits=n,
+        num_clbits=n,
+        qregs=(Register("q", n, 0),),
+        cregs=(Register("c", n, 0),),
+        operations=tuple(ops),
+    )
+
+
+def bench_circuit(n: int, depth: int, target: float | None) -> None:
+    circuit = random_circuit(n, depth, np.random.default_rng(1))
+    backend = StatevectorBackend(config={"max_qubits": 32})
+    program = compile_circuit(circuit, backend.fusion_width)
+    blocks = [b for step in program.steps if isinstance(step, Gates) for b in step.blocks]
+    widths = [len(b.qubits) for b in blocks]
+    start = time.perf_counter()
+    backend.execute(Task(circuit, 1000, seed=1))
+    elapsed = time.perf_counter() - start
+    gates = sum(1 for op in circuit.operations if op.name != "measure")
+    print(
+        f"\nrandom circuit: {n} qubits, depth {depth}, {gates} gates fused into "
+        f"{len(blocks)} blocks (widths {min(widths)}-{max(widths)}): {elapsed:.2f} s"
+    )
+    if target is not None:
+        print(f"  target ≤ {target} s: {verdict(elapsed <= target)}")
+
+
+def bench_sampling(n: int, shots: int) -> None:
+    rng = np.random.default_rng(3)
+    amplitudes = rng.normal(size=1 << n) + 1j * rng.normal(size=1 << n)
+    probs = np.abs(amplitudes) ** 2
+    probs /= probs.sum()
+    formatter = BitFormatter([Register("c", n, 0)], n, list(range(n)))
+    t_numpy = median_time(lambda: np.random.Generator(np.random.PCG64(1)).multinomial(shots, probs))
+    drawn = draw(np.random.Generator(np.random.PCG64(1)), shots, probs)
+    t_draw = median_time(lambda: draw(np.random.Generator(np.random.PCG64(1)), shots, probs))
+    t_counts = median_time(lambda: counts_of(formatter, 0, drawn, {}))
+    distinct = int(np.count_nonzero(drawn))
+    print(
+        f"\nsampling {shots} shots over 2^{n} outcomes ({distinct} distinct): "
+        f"numpy multinomial {t_numpy * 1e3:.0f} ms, our draw {t_draw * 1e3:.0f} ms, "
+        f"counts {t_counts * 1e3:.0f} ms"
+    )
+    total = (t_draw + t_counts) / t_numpy
+    print(f"  draw + counts = {total:.2f} × multinomial, target ≤ 2: {verdict(total <= 2)}")
+    ratio = t_counts / t_numpy
+    print(f"  counts = {ratio:.2f} × multinomial, target ≤ 1: {verdict(ratio <= 1)}")
+
+
+def main(argv: list[str] | None = None) -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--quick", action="store_true", help="small sizes, a smoke run")
+    args = parser.parse_args(argv)
+    sizes = (12, 14, 16) if args.quick else (20, 22, 24)
+    print(f"numpy {np.__version__}, single-threaded BLAS, median of {REPEATS} runs")
+    rng = np.random.default_rng(0)
+    ratios: dict[str, list[float]] = {}
+    for n in sizes:
+        ratios = bench_kernels(n, rng)
+    largest = sizes[-1]
+    for label in ("single", "double"):
+        med, worst = statistics.median(ratios[label]), min(ratios[label])
+        print(
+            f"{largest} qubits, {label}-qubit kernel: bandwidth / copy median {med:.2f} "
+            f"(target ≥ 0.5: {verdict(med >= 0.5)}), worst {worst:.2f} "
+            f"(target ≥ 0.3: {verdict(worst >= 0.3)})"
+        )
+    if args.quick:
+        bench_circuit(16, 10, None)
+        bench_sampling(14, 10_000)
+    else:
+        bench_circuit(24, 10, 19.5)
+        bench_sampling(20, 1_000_000)
+
+
+if __name__ == "__main__":
+    main()
