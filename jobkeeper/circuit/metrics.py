@@ -16,9 +16,9 @@ again (gate, reset or another measurement) or a measured bit steers a later oper
 
 from __future__ import annotations
 
-import json
 from collections import Counter
 from dataclasses import asdict, dataclass
+from typing import Any
 
 from jobkeeper.circuit.ir import BARRIER, MEASURE, Circuit
 
@@ -43,14 +43,12 @@ class CircuitMetrics:
     measurements_terminal: bool
     has_mid_circuit_measurement: bool
 
-    def to_dict(self) -> dict[str, object]:
+    def to_json(self) -> dict[str, Any]:
+        """A JSON-ready dict (the convention of every ``to_json`` in jobkeeper)."""
         data = asdict(self)
         data["qubits_used"] = list(self.qubits_used)
         data["bits_used"] = list(self.bits_used)
         return data
-
-    def to_json(self) -> str:
-        return json.dumps(self.to_dict(), sort_keys=True)
 
 
 def metrics(circuit: Circuit) -> CircuitMetrics:

@@ -59,7 +59,7 @@ def test_conditions() -> None:
 
 def test_to_json() -> None:
     got = m("qreg q[2];\ncreg c[2];\nh q;\nmeasure q -> c;")
-    data = json.loads(got.to_json())
-    assert data == got.to_dict()
+    data = got.to_json()
+    assert json.loads(json.dumps(data)) == data
     assert data["qubits_used"] == [0, 1] and data["operation_counts"] == {"h": 2, "measure": 2}
     assert data["depth"] == 2
