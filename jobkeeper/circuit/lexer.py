@@ -43,9 +43,10 @@ class Token(NamedTuple):
     def describe(self) -> str:
         if self.kind == EOF:
             return "end of input"
+        text = self.text if len(self.text) <= 40 else self.text[:37] + "..."
         if self.kind == STRING:
-            return f'"{self.text}"'
-        return f"'{self.text}'"
+            return f'"{text}"'
+        return f"'{text}'"
 
 
 def _shown(char: str) -> str:
@@ -191,11 +192,13 @@ class TokenStream:
         self.fail_expected(what)
 
     def fail_expected(self, what: str) -> NoReturn:
-        """Report a missing token where it is missing: a forgotten ';' at the end of a
-        line is reported right after the line's last token, not at the next line."""
+        """Report a missing token where it is missing: a forgotten ';' (or anything at the
+        end of the input) is reported right after the line's last token, not at the next
+        line; a wrong word is reported where it stands."""
         tok = self.tokens[self.pos]
         message = f"expected {what}, found {tok.describe()}"
-        if self.pos > 0:
+        missing_punctuation = what.startswith("'") or tok.kind == EOF
+        if self.pos > 0 and missing_punctuation:
             prev = self.tokens[self.pos - 1]
             if prev.line != tok.line:
                 width = len(prev.text) + (2 if prev.kind == STRING else 0)

@@ -155,6 +155,7 @@ class _Program:
                 what = "a quantum register" if reg.text in self.qregs else "not declared"
                 stream.fail(f"'{reg.text}' in if(...) is {what}; expected a creg", reg)
             stream.expect("==")
+            # A value too large for the register is valid OpenQASM 2.0 (never true).
             value = int(stream.expect_kind(INT, "a non-negative integer").text)
             stream.expect(")")
             condition = Condition(self.creg_bits[reg.text], value)
@@ -289,7 +290,7 @@ class _Program:
     def include(self, name: Token, base_dir: Path | None) -> None:
         stream = self.stream
         if name.text == STANDARD_HEADER:
-            clash = sorted(name for name in ORIGINAL_GATES if name in self.gates)
+            clash = sorted(gate for gate in ORIGINAL_GATES if gate in self.gates)
             if clash:
                 stream.fail(
                     f"{STANDARD_HEADER} defines '{clash[0]}', which this program "
