@@ -281,9 +281,10 @@ class _Program:
                 f"line {self.extension_used[name]}",
                 name_tok,
             )
-        if spec.opaque and name in STANDARD_GATES:
-            # The IR names standard gates by name; an opaque gate of the same name would
-            # make an operation's meaning ambiguous.
+        if spec.opaque and name in ORIGINAL_GATES:
+            # Even without the header: U and CX become u3 and cx in the IR, and canonical
+            # text always includes the header. (An opaque gate may take an extension's
+            # name; Circuit.opaque then says which meaning an operation has.)
             stream.fail(f"opaque gate '{name}' would shadow the standard gate '{name}'", name_tok)
         self.gates[name] = spec
 
