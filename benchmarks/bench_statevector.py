@@ -42,12 +42,22 @@ from jobkeeper.circuit.ir import Circuit, Operation, Register  # noqa: E402
 REPEATS = 3
 
 
+#: "cpu" (this process's CPU time) or "wall"; set in main. On a shared machine other
+#: processes stretch wall time but not CPU time, so both are reported and CPU time is
+#: the default measure of the code itself.
+CLOCK = "cpu"
+
+
+def _now() -> float:
+    return time.process_time() if CLOCK == "cpu" else time.perf_counter()
+
+
 def median_time(fn: Callable[[], object], repeats: int = REPEATS) -> float:
     times = []
     for _ in range(repeats):
-        start = time.perf_counter()
+        start = _now()
         fn()
-        times.append(time.perf_counter() - start)
+        times.append(_now() - start)
     return statistics.median(times)
 
 
@@ -108,16 +118,19 @@ def bench_circuit(n: int, depth: int, target: float | None) -> None:
     program = compile_circuit(circuit, backend.fusion_width)
     blocks = [b for step in program.steps if isinstance(step, Gates) for b in step.blocks]
     widths = [len(b.qubits) for b in blocks]
-    start = time.perf_counter()
+    wall, cpu = time.perf_counter(), time.process_time()
     backend.execute(Task(circuit, 1000, seed=1))
-    elapsed = time.perf_counter() - start
+    wall, cpu = time.perf_counter() - wall, time.process_time() - cpu
     gates = sum(1 for op in circuit.operations if op.name != "measure")
     print(
         f"\nrandom circuit: {n} qubits, depth {depth}, {gates} gates fused into "
-        f"{len(blocks)} blocks (widths {min(widths)}-{max(widths)}): {elapsed:.2f} s"
+        f"{len(blocks)} blocks (widths {min(widths)}-{max(widths)}): "
+        f"CPU {cpu:.2f} s, wall {wall:.2f} s"
     )
     if target is not None:
-        print(f"  target ≤ {target} s: {verdict(elapsed <= target)}")
+        print(
+            f"  target ≤ {target} s: CPU {verdict(cpu <= target)}, wall {verdict(wall <= target)}"
+        )
 
 
 def bench_sampling(n: int, shots: int) -> None:
@@ -145,9 +158,17 @@ def bench_sampling(n: int, shots: int) -> None:
 def main(argv: list[str] | None = None) -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--quick", action="store_true", help="small sizes, a smoke run")
+    parser.add_argument(
+        "--clock", choices=("cpu", "wall"), default="cpu", help="what the kernel figures time"
+    )
     args = parser.parse_args(argv)
+    global CLOCK
+    CLOCK = args.clock
     sizes = (12, 14, 16) if args.quick else (20, 22, 24)
-    print(f"numpy {np.__version__}, single-threaded BLAS, median of {REPEATS} runs")
+    print(
+        f"numpy {np.__version__}, single-threaded BLAS, median of {REPEATS} runs, "
+        f"{CLOCK} time ({os.cpu_count()} CPUs, load average {os.getloadavg()[0]:.1f})"
+    )
     rng = np.random.default_rng(0)
     ratios: dict[str, list[float]] = {}
     for n in sizes:

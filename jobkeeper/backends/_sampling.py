@@ -35,7 +35,8 @@ def marginal(state: State, n: int, qubits: Sequence[int]) -> Floats:
     floats = state.view(np.float64).reshape(-1, 2)
     probs = np.einsum("ij,ij->i", floats, floats).reshape((2,) * n)
     keep = [n - 1 - q for q in qubits]
-    summed = np.sum(probs, axis=tuple(a for a in range(n) if a not in keep)) if n else probs
+    dropped = tuple(a for a in range(n) if a not in keep)
+    summed = np.sum(probs, axis=dropped) if dropped else probs
     # Remaining axes are in ascending axis order; the last one must be qubits[0].
     remaining = sorted(keep)
     order = [remaining.index(keep[j]) for j in reversed(range(len(keep)))]

@@ -6,7 +6,7 @@ How a task runs:
    refused with its name), final measurements taken out, gates fused into small dense
    blocks (:mod:`._fusion`).
 2. Memory is checked before anything is allocated: 2^n amplitudes × 16 bytes for the
-   state plus 8 bytes each for the outcome probabilities must fit the smaller of the
+   state plus 16 bytes each for the outcome probabilities must fit the smaller of the
    configured ``max_memory_bytes`` and the memory the system has available.
 3. The state evolves in place (:mod:`._kernels`). A mid-circuit measurement or a reset
    splits the run into outcome branches (each simulated once, with its probability and
@@ -60,8 +60,9 @@ DEFAULT_MAX_QUBITS = 28
 DEFAULT_MAX_BRANCHES = 1024
 #: outcomes of a mid-circuit measurement or reset less likely than this are not followed.
 BRANCH_FLOOR = 1e-12
-#: bytes per amplitude: the complex128 state plus the float64 outcome probabilities.
-BYTES_PER_AMPLITUDE = 24
+#: bytes per amplitude: the complex128 state, the float64 outcome probabilities, and a
+#: reordered copy of them when the measured bits are not in qubit order.
+BYTES_PER_AMPLITUDE = 32
 _CONFIG_KEYS = frozenset(
     {"adapter", "max_qubits", "max_memory_bytes", "max_branches", "fusion_width"}
 )
@@ -147,8 +148,8 @@ class StatevectorBackend:
             what = "a state vector" if states == 1 else f"{states} branch state vectors"
             raise PermanentBackendError(
                 f"{num_qubits} qubits need {needed} bytes for {what} "
-                f"(2^{num_qubits} amplitudes × 16 bytes each, plus 8 bytes each for the "
-                f"probabilities), more than the {limit} bytes available"
+                f"(2^{num_qubits} amplitudes × 16 bytes each, plus 16 bytes each for the "
+                f"outcome probabilities), more than the {limit} bytes available"
             )
 
     def execute(self, task: Task) -> Result:
@@ -272,7 +273,8 @@ class StatevectorBackend:
                 _collapse(state, n, step, outcome, p)
                 weight *= p
                 record = _write(step, record, outcome)
-            probs = marginal(state, n, final_qubits) * weight
+            probs = marginal(state, n, final_qubits)
+            probs *= weight
             del state
             if record in records:
                 records[record] += probs

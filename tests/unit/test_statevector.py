@@ -145,6 +145,11 @@ def test_bit_strings_follow_openqasm_order() -> None:
     ops = [op("x", 0), op("x", 2), measure(0, 0), measure(1, 1), measure(2, 2)]
     circ = circuit(3, ops, [2, 1])  # c0 = bits 0,1; c1 = bit 2
     assert StatevectorBackend().execute(Task(circ, 5, seed=1)).counts == {"1 01": 5}
+    # Bits written out of qubit order, one qubit left unmeasured.
+    ops = [op("x", 0), op("h", 1), measure(2, 0), measure(0, 1)]
+    result = StatevectorBackend().execute(Task(circuit(3, ops, [2]), 5, seed=1, exact=True))
+    assert result.counts == {"10": 5}
+    assert result.probabilities == pytest.approx({"10": 1.0})
 
 
 def test_a_circuit_without_measurement_reads_all_zeros() -> None:
@@ -221,7 +226,7 @@ def test_memory_refusal_names_qubits_and_bytes_before_allocating() -> None:
     circ = circuit(22, [op("h", 0), measure(0, 0)], [1])
     tracemalloc.start()
     try:
-        with pytest.raises(PermanentBackendError, match=r"22 qubits need 100663296 bytes"):
+        with pytest.raises(PermanentBackendError, match=r"22 qubits need 134217728 bytes"):
             backend.execute(Task(circ, 10, seed=1))
         _, peak = tracemalloc.get_traced_memory()
     finally:
