@@ -37,9 +37,12 @@ from tests.postgres_fixtures import fresh_schema
 pytestmark = [pytest.mark.postgres, pytest.mark.slow, pytest.mark.timeout(120)]
 
 JOBS = 2000
+FAULT_JOBS = 1200
 WORKERS = 4
-# Short leases so a killed worker's jobs come back within seconds, not the default 85 s.
-LEASE_ARGS = ["--lease", "3", "--heartbeat", "1", "--sweep", "1"]
+# Leases: long enough that a live worker on a busy machine keeps its jobs; in the fault
+# test short, so a killed worker's jobs come back within seconds, not the default 85 s.
+STEADY_LEASE = ["--lease", "15", "--heartbeat", "1", "--sweep", "1"]
+SHORT_LEASE = ["--lease", "3", "--heartbeat", "1", "--sweep", "1"]
 
 
 def circuit(i: int) -> str:
@@ -81,10 +84,12 @@ def submit(keep: Path, n: int) -> list[str]:
         return [item.job.record.job_key for item in submitted]
 
 
-def start_worker(keep: Path, url: str, logs: Path, name: str) -> subprocess.Popen[bytes]:
+def start_worker(
+    keep: Path, url: str, logs: Path, name: str, lease: list[str]
+) -> subprocess.Popen[bytes]:
     env = {**os.environ, "PGAPPNAME": name}
     cmd = [sys.executable, "-m", "jobkeeper", "worker", "--keep", str(keep), "--store", url,
-           "--concurrency", "2", "--in-flight", "64", "--once", "--json", *LEASE_ARGS]  # fmt: skip
+           "--concurrency", "2", "--in-flight", "64", "--once", "--json", *lease]  # fmt: skip
     with open(logs / f"{name}.out", "wb") as out, open(logs / f"{name}.err", "wb") as err:
         return subprocess.Popen(cmd, cwd=REPO, env=env, stdout=out, stderr=err)
 
@@ -146,7 +151,7 @@ def test_four_workers_run_two_thousand_jobs_exactly_once(tmp_path: Path, pg_url:
     logs.mkdir()
     keeps = make_keeps(tmp_path, pg_url, ledger, delay=0.0)
     keys = submit(keeps[0], JOBS)
-    procs = [start_worker(k, pg_url, logs, f"jk-w{i}") for i, k in enumerate(keeps)]
+    procs = [start_worker(k, pg_url, logs, f"jk-w{i}", STEADY_LEASE) for i, k in enumerate(keeps)]
     wait_all(procs, logs, timeout=60)
     assert [p.returncode for p in procs] == [0] * WORKERS
     stats = [json.loads((logs / f"jk-w{i}.out").read_text()) for i in range(WORKERS)]
@@ -174,8 +179,8 @@ def test_sigkill_and_terminated_connections_lose_nothing_and_run_nothing_twice(
     logs.mkdir()
     # A device that takes 20 ms per job: workers hold jobs in flight when the faults hit.
     keeps = make_keeps(tmp_path, pg_url, ledger, delay=0.02)
-    keys = submit(keeps[0], JOBS)
-    procs = [start_worker(k, pg_url, logs, f"jk-w{i}") for i, k in enumerate(keeps)]
+    keys = submit(keeps[0], FAULT_JOBS)
+    procs = [start_worker(k, pg_url, logs, f"jk-w{i}", SHORT_LEASE) for i, k in enumerate(keeps)]
     deadline = time.monotonic() + 30
     victim = owner_of(logs, "jk-w0", deadline)
     with PostgresStore(pg_url, create=False) as store:
@@ -183,7 +188,7 @@ def test_sigkill_and_terminated_connections_lose_nothing_and_run_nothing_twice(
         while time.monotonic() < deadline:
             done = store.counts_by_state().get("done", 0)
             held = sum(job.lease_owner == victim for job in store.list_jobs(state="running"))
-            if done >= JOBS // 5 and held > 0:
+            if done >= FAULT_JOBS // 5 and held > 0:
                 break
             time.sleep(0.05)
         assert held > 0, "the victim never held jobs mid-run"
@@ -192,7 +197,7 @@ def test_sigkill_and_terminated_connections_lose_nothing_and_run_nothing_twice(
         time.sleep(0.5)
         terminated += terminate_connections(pg_url, "jk-w1")
         assert terminated >= 1
-        assert store.counts_by_state().get("done", 0) < JOBS, "the faults came too late"
+        assert store.counts_by_state().get("done", 0) < FAULT_JOBS, "the faults came too late"
     wait_all(procs[1:], logs, timeout=60)
     procs[0].wait(timeout=10)
     assert procs[0].returncode == -signal.SIGKILL
