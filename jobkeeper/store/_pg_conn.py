@@ -261,7 +261,8 @@ def migrate(db: Database, *, create: bool) -> int:
             row = conn.execute("SELECT to_regclass('meta') IS NOT NULL").fetchone()
             if not (row and row[0]):
                 if not create:
-                    where = db.where + (f" (schema {db.schema})" if db.schema else "")
+                    path = conn.execute("SELECT current_setting('search_path')").fetchone()
+                    where = db.where + f" (search_path {path[0] if path else '?'})"
                     raise StoreUnavailable(
                         f"no archive at {where} (run 'jobkeeper init --store URL' first)"
                     )
