@@ -258,11 +258,18 @@ def migrate(db: Database, *, create: bool) -> int:
                         pg_sql.Identifier(db.schema)
                     )
                 )
+            here = conn.execute(
+                "SELECT current_schema(), current_setting('search_path')"
+            ).fetchone()
+            if here is None or here[0] is None:
+                raise ConfigError(
+                    f"the search path of {db.where} ({here[1] if here else '?'}) names no "
+                    "existing schema: create the schema first (CREATE SCHEMA name)"
+                )
             row = conn.execute("SELECT to_regclass('meta') IS NOT NULL").fetchone()
             if not (row and row[0]):
                 if not create:
-                    path = conn.execute("SELECT current_setting('search_path')").fetchone()
-                    where = db.where + f" (search_path {path[0] if path else '?'})"
+                    where = f"{db.where} (schema {here[0]})"
                     raise StoreUnavailable(
                         f"no archive at {where} (run 'jobkeeper init --store URL' first)"
                     )

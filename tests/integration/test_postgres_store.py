@@ -20,7 +20,7 @@ from jobkeeper.store._pg_conn import redact
 from jobkeeper.store.postgres import PostgresStore
 from tests.conftest import require_postgres
 from tests.integration.test_store_contract import appender, completion, new_job
-from tests.postgres_fixtures import drop_schema, fresh_postgres_store, fresh_schema
+from tests.postgres_fixtures import drop_schema, fresh_postgres_store, fresh_schema, schema_url
 
 pytestmark = pytest.mark.postgres
 
@@ -69,6 +69,11 @@ def test_an_unreachable_server_is_store_unavailable_naming_host_and_database() -
 def test_opening_without_create_an_empty_schema_says_to_run_init(url: str, schema: str) -> None:
     with fresh_schema(url, schema) as bound, pytest.raises(StoreUnavailable, match="init"):
         PostgresStore(bound, create=False)
+
+
+def test_a_search_path_naming_no_schema_is_a_config_error(url: str) -> None:
+    with pytest.raises(ConfigError, match="CREATE SCHEMA"):
+        PostgresStore(schema_url(url, f"absent_{uuid.uuid4().hex[:8]}"))
 
 
 # -- schema --------------------------------------------------------------------------------
