@@ -12,14 +12,15 @@ What is particular to PostgreSQL:
 - **Claims.** ``UPDATE … WHERE id IN (SELECT … ORDER BY not_before LIMIT n FOR UPDATE
   SKIP LOCKED) RETURNING …``: concurrent claimers skip each other's rows instead of
   waiting, and the subselect re-checks the state of a row updated since its snapshot.
-  The scan uses the partial index of due jobs (queued or waiting), which finished jobs
-  leave.
+  The scan walks the partial index of due jobs (queued or waiting), which finished jobs
+  leave, in ``not_before`` order and stops after n rows; the claim's transaction forbids
+  the sort-everything plan that stale statistics can otherwise pick.
 - **The log lock.** ``finish`` first archives its results (fenced updates, in parallel
   with other finishers), then locks the single ``log_state`` row with ``SELECT … FOR
   UPDATE`` and appends. Appends of all workers are so serialised: log indexes stay
   contiguous and the saved compact range matches them. A row lock rather than an
-  advisory lock: it belongs to this schema, and works behind a transaction-mode pooler.
-  Claims never take it.
+  advisory lock: it belongs to this schema (archives in other schemas of the database
+  do not wait for it) and is released by the commit. Claims never take it.
 - **Transactions.** Every state change is one short transaction on a pooled connection
   (a small bounded pool, 1–4 connections by default); reads are single autocommit
   statements; no connection is held between calls, so none is held while a worker waits
@@ -113,7 +114,6 @@ class PostgresStore(PostgresReads):
         max_connections: int = 4,
         idle_in_transaction_timeout: float = 30.0,
     ) -> None:
-        self.url = url
         self.location = redact(url) + (f" (schema {schema})" if schema else "")
         self.schema = schema
         self._db = Database(
