@@ -562,6 +562,7 @@ def loopback_device(
         serve(
             host, port, token=token, queue_delay=queue_delay, fault_rate=fault_rate, seed=seed,
             faults=kinds, slow_delay=slow_delay, retry_after=retry_after, max_qubits=max_qubits,
+            log_level="warning",
         )  # fmt: skip
     except (KeyboardInterrupt, click.exceptions.Abort):
         pass  # uvicorn re-raises the signal it stopped on: stopping is the normal end here

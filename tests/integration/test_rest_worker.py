@@ -139,3 +139,45 @@ def test_a_400_fails_at_once_and_a_401_names_the_variable_not_the_token(
             message = job.record.error or ""
             assert device.token_env in message and "wrong-token-value" not in message
             assert device.token not in message
+
+
+@pytest.mark.slow
+def test_a_thousand_jobs_in_flight_on_one_worker_stay_bounded(tmp_path: Path) -> None:
+    import psutil
+
+    pool = 16
+    with running_device(queue_delay=4.0, seed=9) as device:
+        keep = tmp_path / "keep"
+        keep.mkdir()
+        (keep / "config.toml").write_text(
+            "[poll]\nfirst = 2.0\nfactor = 1.5\ncap = 4.0\n\n[backends.dev]\n"
+            f'adapter = "rest"\nprofile = "loopback"\nurl = "{device.url}"\n'
+            f'token_env = "{device.token_env}"\nmax_connections = {pool}\n'
+        )
+        with Keeper.open(keep) as keeper:
+            keeper.submit_many([circuit_text(0.0001 * i) for i in range(1000)], backend="dev",
+                               shots=10)  # fmt: skip
+        worker = subprocess.Popen(
+            jobkeeper_cmd("worker", "--once", "--keep", str(keep), "--in-flight", "256"),
+            env=_env(device), stdout=subprocess.PIPE, stderr=subprocess.PIPE,
+        )  # fmt: skip
+        proc = psutil.Process(worker.pid)
+        peak_conns, peak_rss, peak_waiting = 0, 0, 0
+        deadline = time.monotonic() + 240
+        while worker.poll() is None and time.monotonic() < deadline:
+            try:
+                peak_conns = max(peak_conns, len(proc.net_connections(kind="tcp")))
+                peak_rss = max(peak_rss, proc.memory_info().rss)
+            except psutil.Error:
+                break
+            stats = device.stats()
+            peak_waiting = max(peak_waiting, stats["jobs"] - stats["states"].get("done", 0))
+            time.sleep(0.5)
+        out, err = worker.communicate(timeout=60)
+        assert worker.returncode == 0, err.decode()
+        stats = device.stats()
+    assert peak_waiting >= 900  # they really were in flight together
+    assert peak_conns <= pool + 2  # the keep-alive pool bounds connections
+    assert peak_rss < 400 * 2**20
+    assert stats["executions"] == 1000 and stats["duplicates"] == 0
+    assert device.token.encode() not in (out + err)
