@@ -94,6 +94,11 @@ def bench_kernels(n: int, rng: np.random.Generator) -> dict[str, list[float]]:
             f"{statistics.median(ratios):.2f}, worst {min(ratios):.2f}"
         )
     print("  1-qubit ratio by target: " + " ".join(f"{t_copy / t:.2f}" for t in single))
+    pairs = gate_pairs(n)
+    print(
+        "  2-qubit ratio by pair: "
+        + " ".join(f"{p[0]},{p[1]}:{t_copy / t:.2f}" for p, t in zip(pairs, double, strict=True))
+    )
     return {"single": [t_copy / t for t in single], "double": [t_copy / t for t in double]}
 
 

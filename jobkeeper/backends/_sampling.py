@@ -123,6 +123,27 @@ def counts_of(formatter: BitFormatter, record: int, drawn: Ints, into: dict[str,
         into[key] = into.get(key, 0) + value
 
 
+def sample_counts(
+    rng: np.random.Generator,
+    shots: int,
+    records: Sequence[tuple[int, Floats]],
+    formatter: BitFormatter,
+) -> dict[str, int]:
+    """Counts of ``shots`` drawn as the module docstring says, from ``records`` (sorted
+    by record; each with its weighted final-outcome probabilities)."""
+    counts: dict[str, int] = {}
+    if len(records) == 1:
+        record, probs = records[0]
+        counts_of(formatter, record, draw(rng, shots, probs), counts)
+        return counts
+    weights = np.array([float(p.sum()) for _, p in records])
+    per_record = draw(rng, shots, weights)
+    for (record, probs), record_shots in zip(records, per_record.tolist(), strict=True):
+        if record_shots:
+            counts_of(formatter, record, draw(rng, record_shots, probs), counts)
+    return counts
+
+
 def probabilities_of(
     formatter: BitFormatter, record: int, probs: Floats, into: dict[str, float]
 ) -> None:

@@ -44,10 +44,9 @@ from jobkeeper.backends._program import (
 from jobkeeper.backends._sampling import (
     BitFormatter,
     Floats,
-    counts_of,
-    draw,
     marginal,
     probabilities_of,
+    sample_counts,
 )
 from jobkeeper.circuit.ir import Circuit, Condition
 from jobkeeper.exceptions import ConfigError, PermanentBackendError
@@ -156,6 +155,8 @@ class StatevectorBackend:
         """Run ``task`` to completion; raises only PermanentBackendError."""
         if task.shots < 0:
             raise PermanentBackendError(f"shots must not be negative, got {task.shots}")
+        if task.seed is not None and task.seed < 0:
+            raise PermanentBackendError(f"a seed must not be negative, got {task.seed}")
         circuit = task.circuit
         program = compile_circuit(circuit, self.fusion_width)
         self._check_memory(circuit.num_qubits)
@@ -168,17 +169,8 @@ class StatevectorBackend:
             ) from exc
         formatter = BitFormatter(circuit.cregs, circuit.num_clbits, [c for _, c in program.final])
         rng = np.random.Generator(np.random.PCG64(seed))
-        counts: dict[str, int] = {}
         ordered = sorted(records.items())
-        if len(ordered) == 1:
-            record, probs = ordered[0]
-            counts_of(formatter, record, draw(rng, task.shots, probs), counts)
-        else:
-            weights = np.array([float(p.sum()) for _, p in ordered])
-            per_record = draw(rng, task.shots, weights)
-            for (record, probs), shots in zip(ordered, per_record.tolist(), strict=True):
-                if shots:
-                    counts_of(formatter, record, draw(rng, shots, probs), counts)
+        counts = sample_counts(rng, task.shots, ordered, formatter)
         probabilities: dict[str, float] | None = None
         if task.exact:
             probabilities = {}

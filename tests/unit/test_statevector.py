@@ -248,3 +248,5 @@ def test_opaque_and_malformed_operations_are_refused() -> None:
             StatevectorBackend().execute(Task(circuit(2, [bad]), 1))
     with pytest.raises(PermanentBackendError, match="shots"):
         StatevectorBackend().execute(Task(circuit(1, []), -1))
+    with pytest.raises(PermanentBackendError, match="seed"):
+        StatevectorBackend().execute(Task(circuit(1, []), 1, seed=-5))
