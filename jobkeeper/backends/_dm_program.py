@@ -1,0 +1,178 @@
+"""A circuit compiled for the density-matrix simulator: every operation with its noise as
+superoperator terms on the vectorised ρ, fused into small blocks between the points where
+the classical record matters.
+
+The structure is the state-vector program's (:mod:`._program`): the same validation, the
+same rule for which measurements are final (read off the final diagonal at once), and a
+step of its own for each mid-circuit measurement, reset and conditional operation. What
+differs is what a gate becomes: on ρ stored as a vector of 4^n amplitudes (row qubit q =
+vector qubit n + q, column qubit q = vector qubit q), a gate U is U on the row qubits and
+conj(U) on the column qubits, followed by its noise channels (:mod:`._noise`). The
+fuser (:mod:`._fusion`) only multiplies matrices, so it merges these terms as it merges
+gates; blocks stay within ``max_width`` vector qubits (4 by default: one two-qubit gate
+with its noise is one 16 × 16 block, one pass over ρ).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from jobkeeper.backends import _noise as noise_channels
+from jobkeeper.backends._fusion import Block, fuse
+from jobkeeper.backends._gates import Matrix, gate_matrix, u3
+from jobkeeper.backends._noise import NoiseModel
+
+# The validation and the final-measurement rule are the state-vector program's own, so
+# the two simulators accept the same circuits and read the same measurements at the end.
+from jobkeeper.backends._program import Measure, Reset, _check, _final_measurements
+from jobkeeper.circuit.ir import BARRIER, MEASURE, RESET, Circuit, Condition, Operation
+from jobkeeper.circuit.stdgates import expand_standard
+
+#: widest fused block in vector qubits (a two-qubit gate and its noise: 16 × 16).
+DEFAULT_MAX_WIDTH = 4
+#: widest fused block of a noiseless run, in physical qubits (the state-vector default).
+UNITARY_WIDTH = 3
+#: gates whose matrix is the identity: only their noise acts.
+_IDENTITY_GATES = frozenset({"id", "u0"})
+
+Term = tuple[tuple[int, ...], Matrix]
+
+
+@dataclass(frozen=True, slots=True)
+class Channel:
+    """Fused blocks, applied to every record (or only to those where ``condition``
+    holds). With ``unitary`` false the blocks are superoperators on vector qubits; with
+    ``unitary`` true they are gates U on physical qubits, applied as U ρ U† =
+    U·(U·ρ)† (ρ is Hermitian): twice on the row qubits with a conjugate transpose
+    between, because the row qubits are the high bits of ρ's index, where the kernels
+    move whole contiguous rows, while the column qubits are the low bits, where every
+    pass gathers strided entries."""
+
+    blocks: tuple[Block, ...]
+    condition: Condition | None = None
+    unitary: bool = False
+
+
+Step = Channel | Measure | Reset
+
+
+@dataclass(frozen=True, slots=True)
+class DensityProgram:
+    num_qubits: int
+    steps: tuple[Step, ...]
+    #: (qubit, clbit) of the final measurements, in circuit order.
+    final: tuple[tuple[int, int], ...]
+    #: whether the circuit measures anything at all.
+    measures: bool
+    #: operations run, by arity (a gate on ≥ 3 qubits under gate noise counts as the
+    #: primitives it runs as).
+    operations: tuple[int, int, int]
+
+
+def primitives(name: str, params: tuple[float, ...], qubits: tuple[int, ...]) -> list[Term]:
+    """A gate on ≥ 3 qubits as its published definition: ``U`` and ``CX`` matrices on
+    the qubits they act on (equal to the gate up to a global phase)."""
+    out: list[Term] = []
+    for prim, positions, values in expand_standard(name, params):
+        mapped = tuple(qubits[i] for i in positions)
+        matrix = gate_matrix("cx") if prim == "CX" else u3(*values)
+        out.append((mapped, matrix))
+    return out
+
+
+def gate_terms(
+    n: int, qubits: tuple[int, ...], matrix: Matrix | None, noise: NoiseModel
+) -> list[Term]:
+    """The superoperator terms of one gate (``matrix`` None: the identity) on ``qubits``
+    of an n-qubit register, followed by its noise, in the order they act."""
+    rows = tuple(n + q for q in qubits)
+    terms: list[Term] = []
+    if matrix is not None:
+        terms.append((rows, matrix))
+        terms.append((qubits, np.asarray(matrix.conj(), dtype=np.complex128)))
+    arity = len(qubits)
+    if arity > 2:
+        return terms
+    p = noise.depolarizing_1q if arity == 1 else noise.depolarizing_2q
+    if p > 0:
+        terms.append((rows + qubits, noise_channels.depolarizing(p, arity)))
+    if noise.relaxation:
+        duration = noise.gate_time(arity)
+        for q in qubits:
+            gamma, flip = noise.decay(q, duration)
+            if gamma > 0 or flip > 0:
+                terms.append(((n + q, q), noise_channels.relaxation(gamma, flip)))
+    return terms
+
+
+def operation_terms(n: int, op: Operation, noise: NoiseModel, counts: list[int]) -> list[Term]:
+    """The terms of a gate operation with its noise; ``counts`` (by arity − 1, capped at
+    3) gains the operations run."""
+    if len(op.qubits) >= 3 and noise.gate_noise:
+        terms: list[Term] = []
+        for qubits, matrix in primitives(op.name, op.params, op.qubits):
+            counts[len(qubits) - 1] += 1
+            terms += gate_terms(n, qubits, matrix, noise)
+        return terms
+    counts[min(len(op.qubits), 3) - 1] += 1
+    identity = op.name in _IDENTITY_GATES
+    return gate_terms(n, op.qubits, None if identity else gate_matrix(op.name, op.params), noise)
+
+
+def compile_density(circuit: Circuit, noise: NoiseModel, max_width: int) -> DensityProgram:
+    """Validate ``circuit`` (PermanentBackendError naming the first operation that cannot
+    be simulated) and turn it into steps on the vectorised ρ."""
+    for op in circuit.operations:
+        _check(circuit, op)
+    n = circuit.num_qubits
+    final_index = _final_measurements(circuit.operations)
+    steps: list[Step] = []
+    pending: list[Term] = []
+    pending_condition: list[Condition | None] = [None]
+    counts = [0, 0, 0]
+    # Without gate noise every gate is unitary: fused on the physical qubits (as the
+    # state-vector program fuses them) and applied as U ρ U† (see ``Channel``).
+    unitary = not noise.gate_noise
+
+    def flush() -> None:
+        if pending:
+            width = UNITARY_WIDTH if unitary else max_width
+            blocks = tuple(fuse(pending, width))
+            steps.append(Channel(blocks, pending_condition[0], unitary=unitary))
+            pending.clear()
+
+    final: list[tuple[int, int]] = []
+    for index, op in enumerate(circuit.operations):
+        if op.name == BARRIER:
+            continue
+        if op.name == MEASURE and op.condition is None and index in final_index:
+            if final_index[index]:
+                final.append((op.qubits[0], op.clbits[0]))
+            continue
+        if op.name == MEASURE:
+            flush()
+            steps.append(Measure(op.qubits[0], op.clbits[0], op.condition))
+        elif op.name == RESET:
+            flush()
+            steps.append(Reset(op.qubits[0], op.condition))
+        else:
+            # A run of gates under the same condition (or none) is one step: ``if`` gates
+            # come in runs (a correction is several gates), and one step fuses them.
+            if op.condition != pending_condition[0]:
+                flush()
+                pending_condition[0] = op.condition
+            if unitary:
+                counts[min(len(op.qubits), 3) - 1] += 1
+                if op.name not in _IDENTITY_GATES:
+                    pending.append((op.qubits, gate_matrix(op.name, op.params)))
+            else:
+                pending += operation_terms(n, op, noise, counts)
+    flush()
+    measures = any(op.name == MEASURE for op in circuit.operations)
+    # Outcome index bits in classical-bit order, as the state-vector program orders them.
+    final.sort(key=lambda pair: pair[1])
+    return DensityProgram(
+        n, tuple(steps), tuple(final), measures, (counts[0], counts[1], counts[2])
+    )
