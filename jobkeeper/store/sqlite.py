@@ -397,6 +397,10 @@ class SqliteStore:
             created_at=created,
         )
 
+    def all_counts(self) -> dict[str, Mapping[str, int] | None]:
+        rows = self._read("SELECT job_id, counts FROM results")
+        return {job_id: None if counts is None else json.loads(counts) for job_id, counts in rows}
+
     def log_entry_for(self, job_id: str) -> LogEntry | None:
         rows = self._read(
             "SELECT idx, job_id, envelope, leaf_hash, signer, created_at FROM log_entries "
