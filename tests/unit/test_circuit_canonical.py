@@ -50,6 +50,8 @@ class Program:
     csizes: tuple[int, ...]
     gates: tuple[UserGate, ...]
     stmts: tuple[tuple[object, ...], ...]
+    #: (parameters, qubits) of opaque gates named zap0, zap1 (names matter: not renamed)
+    opaque: tuple[tuple[int, int], ...] = ()
 
     @property
     def n_qubits(self) -> int:
@@ -80,8 +82,11 @@ def programs(draw: st.DrawFn) -> Program:
     n = sum(qsizes)
     gates = tuple(g for g in draw(st.lists(user_gates(), max_size=2)) if g.n_qubits <= n)
     stmts: list[tuple[object, ...]] = []
+    opaque = tuple(
+        (draw(st.integers(0, 2)), draw(st.integers(1, n))) for _ in range(draw(st.integers(0, 2)))
+    )
     choices = ["std", "std", "bcast", "barrier", "reset"]
-    choices += ["user"] * bool(gates) + ["measure", "if"] * bool(csizes)
+    choices += ["user"] * bool(gates) + ["measure", "if"] * bool(csizes) + ["opaque"] * bool(opaque)
     for _ in range(draw(st.integers(1, 12))):
         kind = draw(st.sampled_from(choices))
         if kind in ("std", "if"):
@@ -105,6 +110,15 @@ def programs(draw: st.DrawFn) -> Program:
                 tuple(draw(angles) for _ in range(g.n_params)),
                 tuple(draw(st.permutations(range(n)))[: g.n_qubits]),
             )
+        elif kind == "opaque":
+            k = draw(st.integers(0, len(opaque) - 1))
+            n_p, n_q = opaque[k]
+            stmt = (
+                "opaque",
+                k,
+                tuple(draw(angles) for _ in range(n_p)),
+                tuple(draw(st.permutations(range(n)))[:n_q]),
+            )
         elif kind == "bcast":
             stmt = (
                 "bcast",
@@ -118,7 +132,7 @@ def programs(draw: st.DrawFn) -> Program:
         else:
             stmt = ("measure", draw(st.integers(0, n - 1)), draw(st.integers(0, sum(csizes) - 1)))
         stmts.append(stmt)
-    return Program(qsizes, csizes, gates, tuple(stmts))
+    return Program(qsizes, csizes, gates, tuple(stmts), opaque)
 
 
 @dataclass(frozen=True)
@@ -168,6 +182,9 @@ def render(p: Program, s: Style) -> str:
         out.append("// a comment; with { punctuation } and qreg words")
     out += [f"qreg {s.qnames[k]}[{size}];" for k, size in enumerate(p.qsizes)]
     out += [f"creg {s.cnames[k]}[{size}];" for k, size in enumerate(p.csizes)]
+    for k, (n_p, n_q) in enumerate(p.opaque):
+        params = f"({','.join(s.pnames[:n_p])})" if n_p else ""
+        out.append(f"opaque zap{k}{params} {','.join(f'a{j}' for j in range(n_q))};")
     for k, g in enumerate(p.gates):
         pn = s.pnames[: g.n_params]
         qn = [f"a{j}" for j in range(g.n_qubits)]
@@ -194,6 +211,15 @@ def statement(stmt, s, qubit, bit, call, starts, p) -> list[str]:  # type: ignor
         _, name, params, qubits = stmt
         return [
             call(name, [angle_text(a, s.number_form) for a in params], [qubit(i) for i in qubits])
+        ]
+    if kind == "opaque":
+        _, k, params, qubits = stmt
+        return [
+            call(
+                f"zap{k}",
+                [angle_text(a, s.number_form) for a in params],
+                [qubit(i) for i in qubits],
+            )
         ]
     if kind == "user":
         _, k, params, qubits = stmt
@@ -223,7 +249,7 @@ def statement(stmt, s, qubit, bit, call, starts, p) -> list[str]:  # type: ignor
 
 
 identifiers = st.from_regex(r"[a-z][a-z0-9_]{0,5}", fullmatch=True).filter(
-    lambda w: w not in RESERVED and w not in STANDARD_GATES and not re.fullmatch(r"a\d", w)
+    lambda w: w not in RESERVED and w not in STANDARD_GATES and not re.fullmatch(r"(a|zap)\d", w)
 )
 
 
@@ -263,6 +289,7 @@ def test_canonical_text_round_trips(p: Program) -> None:
     text = canonical_text(circuit)
     again = parse_qasm(text)
     assert again.operations == circuit.operations
+    assert again.opaque_signatures == circuit.opaque_signatures
     assert [(r.size, r.offset) for r in again.cregs] == [(r.size, r.offset) for r in circuit.cregs]
     assert canonical_text(again) == text
 
