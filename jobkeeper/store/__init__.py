@@ -249,8 +249,9 @@ class Store(Protocol):
 
     def result(self, job_id: str) -> StoredResult | None: ...
 
-    def all_counts(self) -> dict[str, Mapping[str, int] | None]:
-        """Every archived result's counts by job id, in one read (for verifying a log)."""
+    def all_counts(self) -> dict[str, str | None]:
+        """Every archived result's counts document (RFC 8785 canonical JSON text, exactly as
+        stored) by job id, in one read: verification compares these very bytes."""
         ...
 
     def log_entry_for(self, job_id: str) -> LogEntry | None: ...
@@ -276,6 +277,14 @@ class Store(Protocol):
     def set_meta(self, key: str, value: str) -> None: ...
 
     def close(self) -> None: ...
+
+
+def counts_text(counts: Mapping[str, int]) -> str:
+    """How a store keeps counts: the counts document, RFC 8785 canonical JSON — the very
+    bytes whose SHA-256 the signed manifest names, so any change to them is detectable."""
+    from jobkeeper.hashing import canonical_json
+
+    return canonical_json(dict(counts)).decode("utf-8")
 
 
 def open_store(location: str | Path, *, create: bool = True) -> Store:
@@ -310,5 +319,6 @@ __all__ = [
     "Store",
     "StoredCheckpoint",
     "StoredResult",
+    "counts_text",
     "open_store",
 ]

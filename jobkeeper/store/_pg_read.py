@@ -5,7 +5,7 @@ transaction is held open). Part of :class:`~jobkeeper.store.postgres.PostgresSto
 from __future__ import annotations
 
 import json
-from collections.abc import Mapping, Sequence
+from collections.abc import Sequence
 from typing import Any
 
 from jobkeeper.exceptions import AmbiguousJobId, JobNotFound
@@ -112,9 +112,8 @@ class PostgresReads:
             created_at=created,
         )
 
-    def all_counts(self) -> dict[str, Mapping[str, int] | None]:
-        rows = self._read("SELECT job_id, counts FROM results")
-        return {job_id: None if counts is None else json.loads(counts) for job_id, counts in rows}
+    def all_counts(self) -> dict[str, str | None]:
+        return {job_id: counts for job_id, counts in self._read("SELECT job_id, counts FROM results")}
 
     def log_entry_for(self, job_id: str) -> LogEntry | None:
         rows = self._read(

@@ -43,6 +43,7 @@ from jobkeeper.store import (
     StoredResult,
 )
 from jobkeeper.store import _sql as sql
+from jobkeeper.store import counts_text
 
 NOW = "((julianday('now') - 2440587.5) * 86400.0)"
 BUSY_DEADLINE_SECONDS = 60.0
@@ -272,7 +273,7 @@ class SqliteStore:
                 conn.execute(
                     _q(sql.INSERT_RESULT),
                     (item.job_id,
-                     None if item.result_counts is None else json.dumps(dict(item.result_counts)),
+                     None if item.result_counts is None else counts_text(item.result_counts),
                      None if item.result_probabilities is None
                      else json.dumps(dict(item.result_probabilities)),
                      json.dumps(dict(item.metadata), sort_keys=True)),
@@ -397,9 +398,8 @@ class SqliteStore:
             created_at=created,
         )
 
-    def all_counts(self) -> dict[str, Mapping[str, int] | None]:
-        rows = self._read("SELECT job_id, counts FROM results")
-        return {job_id: None if counts is None else json.loads(counts) for job_id, counts in rows}
+    def all_counts(self) -> dict[str, str | None]:
+        return {job_id: counts for job_id, counts in self._read("SELECT job_id, counts FROM results")}
 
     def log_entry_for(self, job_id: str) -> LogEntry | None:
         rows = self._read(
