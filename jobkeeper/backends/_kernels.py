@@ -6,11 +6,14 @@ state as the view ``(2^(n-1-t_1), 2, 2^(t_1-t_2-1), 2, ..., 2, 2^(t_k))``: free 
 even positions, target axes (size 2) at odd ones. No 2^n × 2^n matrix is ever built and
 no Python loop runs over amplitudes; Python loops run over cache-sized chunks only.
 
-Why the kernels look as they do (measured with ``benchmarks/bench_statevector.py``):
-numpy's elementwise complex arithmetic costs several passes over the data per gate, and
-a BLAS product of a 2^k × 2^k matrix costs about the same for k = 1, 2 and 3. So dense
-gates go through one matrix product per chunk of about half a MiB (which stays in the
-core's cache): gathered with the target axes first, multiplied, scattered back.
+Why the kernels look as they do (measured with ``benchmarks/bench_statevector.py`` and
+interleaved runs): numpy's elementwise complex arithmetic costs several passes over the
+data per gate, while one BLAS product per cache-sized chunk (half a MiB) costs one pass
+from memory. So a dense gate takes one of three routes: on the lowest qubits, rows of the
+state times the gate widened to those qubits, as a real product of interleaved (re, im)
+floats (OpenBLAS's real kernels run up to three times faster there than its complex
+ones); on consecutive higher qubits, products on blocks of the state in place; otherwise
+each chunk is gathered with the target axes first, multiplied and scattered back.
 Diagonal gates multiply slices in place and permutation gates move slices.
 """
 
@@ -29,9 +32,12 @@ State = npt.NDArray[np.complex128]
 #: amplitudes per chunk (2^15 × 16 bytes = 512 KiB: two buffers stay in a 2 MiB cache).
 CHUNK = 1 << 15
 #: dense gates whose targets all lie below this qubit act on the low qubits as one
-#: block of rows (no gather needed); up to 2^4 × 2^4 such a product costs about what
-#: the gather does for 2 × 2, and less below that.
+#: block of rows (no gather): the gate widened to 2^4 × 2^4 costs less than a gather;
+#: below LOW_QUBITS_DENSE too when widening adds at most two qubits (measured with
+#: interleaved runs: 1-2 qubits on qubits 0-1 twice as fast as gathering, 5-qubit
+#: blocks on qubits 0-4 too).
 LOW_QUBITS = 4
+LOW_QUBITS_DENSE = 6
 #: consecutive targets t..t+k-1 with t + k at least this skip the gather: the products
 #: on (2^k × 2^t) blocks in place beat gathering once blocks reach 2^7 amplitudes.
 DIRECT_BLOCK = 7
@@ -90,10 +96,10 @@ def _chunks(shape: tuple[int, ...]) -> Iterator[tuple[slice, ...]]:
 def apply_dense(state: State, n: int, matrix: Matrix, qubits: tuple[int, ...]) -> None:
     """Apply a dense 2^k × 2^k ``matrix`` to ``qubits`` (first listed most significant)."""
     matrix, desc = reorder(matrix, qubits)
-    if desc[0] < LOW_QUBITS:
+    k = len(desc)
+    if desc[0] < LOW_QUBITS or (desc[0] < LOW_QUBITS_DENSE and desc[0] + 1 - k <= 2):
         _apply_low(state, matrix, desc)
         return
-    k = len(desc)
     if desc[0] - desc[-1] == k - 1 and desc[-1] + k >= DIRECT_BLOCK:
         # Consecutive targets with enough amplitudes below them: (D × D) times (D × 2^t)
         # blocks straight from the state, no gather.
@@ -119,17 +125,40 @@ def apply_dense(state: State, n: int, matrix: Matrix, qubits: tuple[int, ...]) -
             np.copyto(chunk[pattern], result[p])
 
 
+def _real_right(matrix: Matrix) -> npt.NDArray[np.float64]:
+    """The real 2D × 2D matrix R with real(x) @ R = real(x @ matrix.T) for complex rows x
+    seen as interleaved (re, im) floats. OpenBLAS's real product of long rows with R runs
+    up to three times faster than its complex product with a small matrix (measured for
+    D ≤ 4, on par above); in the gathered layout the complex product wins."""
+    right = matrix.T
+    dim = right.shape[0]
+    out = np.empty((2 * dim, 2 * dim))
+    out[0::2, 0::2] = right.real
+    out[1::2, 0::2] = -right.imag
+    out[0::2, 1::2] = right.imag
+    out[1::2, 1::2] = right.real
+    return out
+
+
+def _rows_times(rows: State, right: npt.NDArray[np.float64], out: State) -> None:
+    """out = rows @ matrix.T for contiguous complex rows, via the real form."""
+    width = right.shape[0]
+    np.matmul(
+        rows.view(np.float64).reshape(-1, width), right, out=out.view(np.float64).reshape(-1, width)
+    )
+
+
 def _apply_low(state: State, matrix: Matrix, desc: tuple[int, ...]) -> None:
     # Rows of 2^w amplitudes times the gate widened to the w lowest qubits.
     width = desc[0] + 1
-    block = embed(matrix, tuple(width - 1 - q for q in desc), width).T.copy()
+    right = _real_right(embed(matrix, tuple(width - 1 - q for q in desc), width))
     rows = state.reshape(-1, 1 << width)
     step = max(1, CHUNK >> width)
     buf = np.empty((min(step, rows.shape[0]), 1 << width), dtype=np.complex128)
     for start in range(0, rows.shape[0], step):
         part = rows[start : start + step]
         out = buf[: part.shape[0]]
-        np.matmul(part, block, out=out)
+        _rows_times(np.ascontiguousarray(part), right, out)
         part[...] = out
 
 

@@ -15,6 +15,7 @@ import pickle
 import subprocess
 import sys
 import tracemalloc
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -191,7 +192,11 @@ def seeded_circuit():  # type: ignore[no-untyped-def]
 def test_same_seed_same_counts_in_another_process() -> None:
     # Reproducibility across processes (common practice for seeded generators).
     run = subprocess.run(
-        [sys.executable, "-c", _SUBPROCESS, "12345"], capture_output=True, text=True, check=True
+        [sys.executable, "-c", _SUBPROCESS, "12345"],
+        capture_output=True,
+        text=True,
+        check=True,
+        cwd=Path(__file__).resolve().parents[2],
     )
     here = StatevectorBackend().execute(Task(seeded_circuit(), 4000, seed=12345)).counts
     assert json.loads(run.stdout) == dict(sorted(here.items()))
