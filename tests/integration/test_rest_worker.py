@@ -6,6 +6,7 @@ counts every execution, so "0 duplicate executions" is measured on the device it
 
 from __future__ import annotations
 
+import base64
 import json
 import os
 import random
@@ -181,3 +182,42 @@ def test_a_thousand_jobs_in_flight_on_one_worker_stay_bounded(tmp_path: Path) ->
     assert peak_rss < 400 * 2**20
     assert stats["executions"] == 1000 and stats["duplicates"] == 0
     assert device.token.encode() not in (out + err)
+
+
+def test_the_token_appears_nowhere_in_the_keep_the_bundle_or_the_output(
+    tmp_path: Path, monkeypatch, capsys
+) -> None:
+    from jobkeeper.cli import main
+
+    token = "tok-" + "7e3a9c1f" * 4  # distinctive, so a stray copy cannot hide
+    with running_device(token=token, queue_delay=0.05, fault_rate=0.2, seed=2) as device:
+        monkeypatch.setenv(device.token_env, token)
+        keep = rest_keep(tmp_path, device)
+        assert main(["submit", *[str(p) for p in _circuit_files(tmp_path, 6)], "-b", "dev",
+                     "--keep", str(keep)]) == 0  # fmt: skip
+        assert main(["worker", "--once", "--keep", str(keep), "--json"]) == 0
+        assert main(["jobs", "--keep", str(keep)]) == 0
+        bundle = tmp_path / "audit.json"
+        ids = [j.id for j in Keeper.open(keep).jobs()]
+        assert main(["bundle", *ids, "--keep", str(keep), "-o", str(bundle)]) == 0
+        assert main(["show", ids[0], "--keep", str(keep), "--json"]) == 0
+        assert main(["verify", "--all", "--keep", str(keep)]) == 0
+    out, err = capsys.readouterr()
+    needles = [token.encode(), base64.b64encode(token.encode())]
+    files = [p for p in tmp_path.rglob("*") if p.is_file()]
+    assert any(p.name == "archive.db" for p in files)
+    for path in files:
+        data = path.read_bytes()
+        for needle in needles:
+            assert needle not in data, f"the token leaked into {path}"
+    for needle in needles:
+        assert needle.decode() not in out + err
+
+
+def _circuit_files(folder: Path, n: int) -> list[Path]:
+    paths = []
+    for i in range(n):
+        path = folder / f"c{i}.qasm"
+        path.write_text(circuit_text(0.3 * i))
+        paths.append(path)
+    return paths
