@@ -474,7 +474,8 @@ def verify(
         raise ConfigError("give job ids, a bundle file, or --all")
     keeper = _open(keep, store, create=False)
     ids = None if all_jobs else [keeper.job(t).id for t in targets]
-    _print_report(verify_jobs(keeper, ids, trusted=key), json_out, "jobs")
+    what = "log entries (jobs and comparisons)" if all_jobs else "jobs"
+    _print_report(verify_jobs(keeper, ids, trusted=key), json_out, what)
 
 
 @app.command()
@@ -506,6 +507,68 @@ def bundle(
     else:
         typer.echo(f"wrote {count} job(s) to {output}")
         typer.echo(f"a referee verifies it with: jobkeeper verify {output} --key {fp}")
+
+
+def _print_judgement(judgement: Any, json_out: bool) -> None:
+    if json_out:
+        _echo_json(judgement.to_json())
+    else:
+        typer.echo(judgement.summary())
+        typer.echo(f"archived and signed as comparison {judgement.record.id[:12]}")
+    if judgement.record.verdict == "different":
+        raise typer.Exit(1)
+
+
+AlphaOpt = Annotated[
+    float, typer.Option("--alpha", min=1e-9, max=0.5, help="Significance level of the test.")
+]
+
+
+@app.command()
+def rerun(
+    job_id: Annotated[str, typer.Argument(metavar="JOB", help="The job to run again.")],
+    backend: BackendOpt = None,
+    seed: Annotated[
+        int | None, typer.Option("--seed", help="Another seed [default: the one used].")
+    ] = None,
+    alpha: AlphaOpt = 0.01,
+    keep: KeepOpt = None,
+    store: StoreOpt = None,
+    json_out: JsonOpt = False,
+) -> None:
+    """Run a job again from its signed manifest alone, and judge the two results."""
+    from jobkeeper.judging import rerun as do_rerun
+
+    keeper = _open(keep, store, create=False)
+    _print_judgement(do_rerun(keeper, keeper.job(job_id), backend=backend, seed=seed,
+                              alpha=alpha), json_out)  # fmt: skip
+
+
+@app.command()
+def compare(
+    job_a: Annotated[str, typer.Argument(metavar="A", help="A job.")],
+    job_b: Annotated[str | None, typer.Argument(metavar="[B]", help="Another job.")] = None,
+    ideal: Annotated[
+        bool, typer.Option("--ideal", help="Compare A with its circuit's exact distribution.")
+    ] = False,
+    alpha: AlphaOpt = 0.01,
+    keep: KeepOpt = None,
+    store: StoreOpt = None,
+    json_out: JsonOpt = False,
+) -> None:
+    """Are two jobs' counts (or a job and the ideal) consistent? Exit 1 if different."""
+    from jobkeeper.judging import compare_ideal, compare_jobs
+
+    if (job_b is None) == (not ideal):
+        raise ConfigError("give two jobs, or one job and --ideal")
+    keeper = _open(keep, store, create=False)
+    a = keeper.job(job_a)
+    if ideal:
+        judgement = compare_ideal(keeper, a, alpha=alpha)
+    else:
+        assert job_b is not None
+        judgement = compare_jobs(keeper, a, keeper.job(job_b), alpha=alpha)
+    _print_judgement(judgement, json_out)
 
 
 @app.command("loopback-device")

@@ -39,6 +39,12 @@ def describe_job(keeper: Keeper, job: Job) -> JobDetails:
             None if result.probabilities is None else dict(result.probabilities)
         )
         data["result_metadata"] = dict(result.metadata)
+    data["rerun_of"] = record.spec.get("rerunOf")
+    data["comparisons"] = [
+        {"id": c.id, "kind": c.kind, "job_a": c.job_a, "job_b": c.job_b, "verdict": c.verdict,
+         "result": json.loads(c.report).get("result", {})}
+        for c in keeper.store.comparisons(record.id)
+    ]  # fmt: skip
     entry = job.log_entry
     if entry is not None:
         data["envelope"] = json.loads(entry.envelope)
@@ -83,6 +89,15 @@ def _text(d: dict[str, Any]) -> str:
         warning = shots_warning(int(d["shots"]))
         if warning:
             lines.append("  " + warning)
+    if d.get("rerun_of"):
+        lines.append(f"  rerun of   job {d['rerun_of'][:12]}")
+    for c in d.get("comparisons", []):
+        other = c["job_b"] if c["job_a"] == d["id"] else c["job_a"]
+        against = "the ideal distribution" if other is None else f"job {other[:12]}"
+        tvd = c["result"].get("tvd")
+        extra = f", TVD {tvd:.4f}" if isinstance(tvd, float) else ""
+        lines.append(f"  {c['kind']:<10} with {against}: {c['verdict']}{extra} "
+                     f"(comparison {c['id'][:12]})")  # fmt: skip
     if "verification" in d:
         v = d["verification"]
         status = "verified" if v["ok"] else "VERIFICATION FAILED"

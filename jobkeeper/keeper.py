@@ -270,6 +270,7 @@ class Keeper:
         options: Mapping[str, Any] | None = None,
         over_budget: bool = False,
         code_dir: str | os.PathLike[str] | None = None,
+        rerun_of: str | None = None,
     ) -> list[Submitted]:
         """Queue jobs in one transaction. A job whose key is already done or queued is not
         queued again: the existing job comes back with ``deduplicated=True``."""
@@ -287,7 +288,7 @@ class Keeper:
             circuit = self.load_circuit(item)
             spec = JobSpec(
                 circuit=circuit, backend=name, shots=shots, seed=seed, repeat=repeat,
-                exact=exact, options=dict(options or {}),
+                exact=exact, options=dict(options or {}), rerun_of=rerun_of,
             )  # fmt: skip
             text = canonical_text(circuit)
             chash = circuit_hash(circuit)
@@ -310,6 +311,7 @@ class Keeper:
                         "exact": exact,
                         "options": dict(options or {}),
                         "codeVersion": code_version,
+                        "rerunOf": rerun_of,
                     },
                     max_attempts=self.config.defaults.max_attempts,
                     cost=cost,

@@ -24,7 +24,13 @@ from jobkeeper.backend import BackendInfo, Result
 from jobkeeper.provenance.checkpoint import format_checkpoint, sign_note
 from jobkeeper.provenance.dsse import PAYLOAD_TYPE, envelope_bytes, sign_envelope
 from jobkeeper.provenance.keys import fingerprint
-from jobkeeper.provenance.manifest import build_statement, statement_bytes
+from jobkeeper.provenance.manifest import (
+    COMPARISON_NAME,
+    COMPARISON_PREDICATE_TYPE,
+    STATEMENT_TYPE,
+    build_statement,
+    statement_bytes,
+)
 from jobkeeper.provenance.merkle import leaf_hash, node_hash
 from jobkeeper.store import Attempt, Claim, Completion
 
@@ -157,6 +163,20 @@ class Sealer:
             envelope=envelope_bytes(envelope),
             signer=self.fingerprint,
         )
+
+    def seal_comparison(self, report: bytes, predicate: dict[str, Any]) -> bytes:
+        """A signed envelope whose subject is a comparison's report document."""
+        import hashlib
+
+        statement = {
+            "_type": STATEMENT_TYPE,
+            "subject": [
+                {"name": COMPARISON_NAME, "digest": {"sha256": hashlib.sha256(report).hexdigest()}}
+            ],
+            "predicateType": COMPARISON_PREDICATE_TYPE,
+            "predicate": predicate,
+        }
+        return envelope_bytes(sign_envelope(statement_bytes(statement), PAYLOAD_TYPE, self.key))
 
     def appender(
         self, state: bytes | None, size: int, envelopes: Sequence[bytes]

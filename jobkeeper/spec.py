@@ -34,6 +34,8 @@ class JobSpec:
     repeat: int = 0
     exact: bool = False
     options: Mapping[str, Any] = field(default_factory=dict)
+    #: the job this one re-executes (``jobkeeper rerun``): a rerun must run, not dedup.
+    rerun_of: str | None = None
 
     def __post_init__(self) -> None:
         if self.shots <= 0:
@@ -45,7 +47,7 @@ class JobSpec:
 
     def key_document(self, *, circuit_hash: str, backend_config_hash: str) -> dict[str, Any]:
         """The JSON object whose canonical form is hashed into the job key."""
-        return {
+        document: dict[str, Any] = {
             "keyVersion": KEY_VERSION,
             "circuitHash": circuit_hash,
             "backend": self.backend,
@@ -56,6 +58,9 @@ class JobSpec:
             "exact": self.exact,
             "options": dict(self.options),
         }
+        if self.rerun_of is not None:
+            document["rerunOf"] = self.rerun_of
+        return document
 
 
 def job_key(spec: JobSpec, *, circuit_hash: str, backend_config_hash: str) -> str:

@@ -27,7 +27,12 @@ from jobkeeper.provenance.dsse import (
 )
 from jobkeeper.provenance.keys import fingerprint, load_public_key
 from jobkeeper.provenance.manifest import (
+    COMPARISON_NAME,
+    COUNTS_NAME,
+    PREDICATE_TYPE,
+    PREDICATE_TYPES,
     RunPredicate,
+    check_subject_document,
     build_statement,
     check_subject,
     parse_statement,
@@ -66,7 +71,10 @@ class LogEntry:
 
     envelope: bytes  # stored envelope bytes (the leaf)
     signer: str  # fingerprint recorded as the signer
-    counts: Mapping[str, int] | None = None  # stored counts document, if kept apart
+    counts: Mapping[str, int] | None = None  # stored counts, if kept apart
+    # The stored subject document itself (the counts document of a run, the report of a
+    # comparison): when given, its exact bytes must have the subject's digest.
+    document: bytes | None = None
 
 
 def check_public_keys(keys: Mapping[str, bytes], report: VerifyReport) -> dict[str, bytes]:
@@ -92,8 +100,11 @@ def check_envelope(
     *,
     signer: str | None = None,
     counts: Mapping[str, int] | None = None,
+    document: bytes | None = None,
 ) -> bool:
-    """Signature, statement shape and subject digest of one envelope; problems appended."""
+    """Signature, statement shape and subject digest of one envelope; problems appended.
+    ``document`` is the stored subject document (counts or comparison report), checked
+    byte for byte; without it, ``counts`` (or the predicate's own counts) are checked."""
     try:
         verified = verify_envelope_detailed(envelope, keys)
     except VerificationError as exc:
@@ -107,11 +118,15 @@ def check_envelope(
         )
         ok = False
     try:
-        statement = parse_statement(verified.payload)
-        if counts is None:
-            counts = statement["predicate"].get("counts")
-        if counts is not None:
-            check_subject(statement, counts)
+        statement = parse_statement(verified.payload, predicate_types=PREDICATE_TYPES)
+        is_run = statement["predicateType"] == PREDICATE_TYPE
+        if document is not None:
+            check_subject_document(statement, COUNTS_NAME if is_run else COMPARISON_NAME, document)
+        elif is_run:
+            if counts is None:
+                counts = statement["predicate"].get("counts")
+            if counts is not None:
+                check_subject(statement, counts)
     except VerificationError as exc:
         report.problems.append(f"{label}: {exc}")
         ok = False
@@ -152,6 +167,7 @@ def verify_log(
             report,
             signer=entry.signer,
             counts=entry.counts,
+            document=entry.document,
         )
         report.checked += 1
     _check_checkpoints(tree, checkpoints, list(good_keys.values()), origin, report)

@@ -26,6 +26,11 @@ STATEMENT_TYPE = "https://in-toto.io/Statement/v1"
 # A namespace we control; in-toto asks only for a URI with the major version at its end.
 PREDICATE_TYPE = "https://jobkeeper.dev/attestation/run/v1"
 COUNTS_NAME = "counts.json"
+# Comparisons (reruns, backend against backend, against the ideal) are attested too: their
+# subject is the comparison report document (RFC 8785 canonical JSON).
+COMPARISON_PREDICATE_TYPE = "https://jobkeeper.dev/attestation/comparison/v1"
+COMPARISON_NAME = "comparison.json"
+PREDICATE_TYPES = (PREDICATE_TYPE, COMPARISON_PREDICATE_TYPE)
 MAX_SAFE_INT = 2**53 - 1
 
 _HEX64 = re.compile(r"[0-9a-f]{64}")
@@ -239,6 +244,19 @@ def check_subject(statement: Mapping[str, Any], counts: Mapping[str, int]) -> No
 
 # ---------------------------------------------------------------------------------------
 # The submitter's code version
+
+
+def check_subject_document(statement: Mapping[str, Any], name: str, document: bytes) -> None:
+    """The subject called ``name`` has the SHA-256 of exactly these stored bytes."""
+    named = [s for s in statement["subject"] if s.get("name") == name]
+    if not named:
+        raise VerificationError(f"statement has no {name!r} subject")
+    got = named[0]["digest"].get("sha256")
+    want = hashlib.sha256(document).hexdigest()
+    if got != want:
+        raise VerificationError(
+            f"{name} digest mismatch: statement says sha256:{got}, stored bytes give sha256:{want}"
+        )
 
 
 def git_code_version(path: str | os.PathLike[str], *, timeout: float = 5.0) -> dict[str, Any]:

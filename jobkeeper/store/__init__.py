@@ -146,6 +146,20 @@ class Completion:
     signer: str
 
 
+@dataclass(frozen=True)
+class ComparisonRecord:
+    """An archived comparison: ``report`` is its canonical JSON document (the signed
+    subject); ``job_b`` is None for a comparison against the ideal distribution."""
+
+    id: str
+    kind: str  # "rerun", "pair" or "ideal"
+    job_a: str
+    job_b: str | None
+    verdict: str
+    report: str
+    created_at: float = 0.0
+
+
 class LogAppender(Protocol):
     """Provenance hook the store calls inside a finishing transaction: given the log's saved
     state (None for an empty log), its size and the new envelopes, it returns the leaf
@@ -216,6 +230,16 @@ class Store(Protocol):
         """Archive results, append their envelopes to the log and sign a checkpoint, all
         in one transaction. Each completion is fenced on its token: one whose lease was
         lost is skipped (False) and archives nothing."""
+        ...
+
+    def record_comparison(
+        self, comparison: ComparisonRecord, envelope: bytes, signer: str, appender: LogAppender
+    ) -> None:
+        """Archive a comparison and append its signed envelope to the log, one transaction."""
+        ...
+
+    def comparisons(self, job_id: str | None = None) -> list[ComparisonRecord]:
+        """Comparisons that involve a job (all of them when ``job_id`` is None)."""
         ...
 
     def release(self, owner: str, leases: Sequence[tuple[str, int]]) -> None:
@@ -311,6 +335,7 @@ __all__ = [
     "WAITING",
     "Attempt",
     "Claim",
+    "ComparisonRecord",
     "Completion",
     "JobRecord",
     "LogAppender",

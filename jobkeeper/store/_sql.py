@@ -5,7 +5,7 @@ PostgreSQL store translates them."""
 
 from __future__ import annotations
 
-SCHEMA_VERSION = 1
+SCHEMA_VERSION = 2
 
 LIVE = "('queued', 'running', 'waiting')"
 KEYED = "('queued', 'running', 'waiting', 'done')"
@@ -93,6 +93,34 @@ MIGRATIONS: list[list[str]] = [
             created_at DOUBLE PRECISION NOT NULL
         )""",
     ],
+    # 2: comparisons (reruns, backend against backend, against the ideal) are archived and
+    # logged like jobs, so a log entry's subject is a job or a comparison: the log table is
+    # rebuilt without its reference to jobs (SQLite cannot drop a foreign key in place).
+    [
+        """CREATE TABLE comparisons (
+            id TEXT PRIMARY KEY,
+            kind TEXT NOT NULL CHECK (kind IN ('rerun', 'pair', 'ideal')),
+            job_a TEXT NOT NULL REFERENCES jobs (id),
+            job_b TEXT REFERENCES jobs (id),
+            verdict TEXT NOT NULL,
+            report TEXT NOT NULL,
+            created_at DOUBLE PRECISION NOT NULL
+        )""",
+        "CREATE INDEX comparisons_a ON comparisons (job_a)",
+        "CREATE INDEX comparisons_b ON comparisons (job_b)",
+        """CREATE TABLE log_entries_v2 (
+            idx BIGINT PRIMARY KEY,
+            job_id TEXT NOT NULL UNIQUE,
+            envelope BYTEA NOT NULL,
+            leaf_hash BYTEA NOT NULL,
+            signer TEXT NOT NULL,
+            created_at DOUBLE PRECISION NOT NULL
+        )""",
+        "INSERT INTO log_entries_v2 SELECT idx, job_id, envelope, leaf_hash, signer, created_at "
+        "FROM log_entries",
+        "DROP TABLE log_entries",
+        "ALTER TABLE log_entries_v2 RENAME TO log_entries",
+    ],
 ]
 
 INSERT_JOB = f"""
@@ -166,6 +194,13 @@ INSERT_RESULT = """
 INSERT INTO results (job_id, counts, probabilities, metadata, created_at)
 VALUES (?, ?, ?, ?, {now})
 """
+
+INSERT_COMPARISON = """
+INSERT INTO comparisons (id, kind, job_a, job_b, verdict, report, created_at)
+VALUES (?, ?, ?, ?, ?, ?, {now})
+"""
+
+COMPARISON_COLUMNS = "id, kind, job_a, job_b, verdict, report, created_at"
 
 INSERT_LOG_ENTRY = """
 INSERT INTO log_entries (idx, job_id, envelope, leaf_hash, signer, created_at)

@@ -33,6 +33,7 @@ from jobkeeper.exceptions import (
 )
 from jobkeeper.store import (
     Attempt,
+    ComparisonRecord,
     Claim,
     Completion,
     JobRecord,
@@ -280,19 +281,43 @@ class SqliteStore:
                 )  # fmt: skip
                 accepted.append(item)
             if accepted:
-                self._append_log(conn, accepted, appender)
+                self._append_log(
+                    conn, [(c.job_id, c.envelope, c.signer) for c in accepted], appender
+                )
         return done
 
+    def record_comparison(
+        self, comparison: ComparisonRecord, envelope: bytes, signer: str, appender: LogAppender
+    ) -> None:
+        c = comparison
+        with self._write() as conn:
+            conn.execute(
+                _q(sql.INSERT_COMPARISON), (c.id, c.kind, c.job_a, c.job_b, c.verdict, c.report)
+            )
+            self._append_log(conn, [(c.id, envelope, signer)], appender)
+
+    def comparisons(self, job_id: str | None = None) -> list[ComparisonRecord]:
+        where, params = ("WHERE job_a = ? OR job_b = ?", (job_id, job_id)) if job_id else ("", ())
+        rows = self._read(
+            f"SELECT {sql.COMPARISON_COLUMNS} FROM comparisons {where} ORDER BY created_at",
+            params,
+        )
+        return [ComparisonRecord(*row) for row in rows]
+
     def _append_log(
-        self, conn: sqlite3.Connection, items: Sequence[Completion], appender: LogAppender
+        self,
+        conn: sqlite3.Connection,
+        items: Sequence[tuple[str, bytes, str]],
+        appender: LogAppender,
     ) -> None:
         row = conn.execute("SELECT size, state FROM log_state WHERE id = 1").fetchone()
         size, state = (int(row[0]), bytes(row[1])) if row else (0, None)
-        leaves, new_state, root, note = appender(state, size, [c.envelope for c in items])
-        for offset, (item, leaf) in enumerate(zip(items, leaves, strict=True)):
+        leaves, new_state, root, note = appender(state, size, [env for _, env, _ in items])
+        for offset, ((subject, envelope, signer), leaf) in enumerate(
+            zip(items, leaves, strict=True)
+        ):
             conn.execute(
-                _q(sql.INSERT_LOG_ENTRY),
-                (size + offset, item.job_id, item.envelope, leaf, item.signer),
+                _q(sql.INSERT_LOG_ENTRY), (size + offset, subject, envelope, leaf, signer)
             )
         new_size = size + len(items)
         conn.execute(
