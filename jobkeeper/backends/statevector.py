@@ -185,7 +185,8 @@ class StatevectorBackend:
             "branches": branches,
             "classical_records": len(ordered),
             "measured": program.measures,
-            "sampling": "multinomial over records, then over final outcomes (see docs)",
+            "sampling": "PCG64 multinomial over records, then over final outcomes "
+            "(jobkeeper.backends._sampling)",
         }
         if not program.measures:
             metadata["note"] = "the circuit measures nothing: every classical bit reads 0"
