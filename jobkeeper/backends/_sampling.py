@@ -8,8 +8,9 @@ indexed in ascending order of the outcome index (bit j of the index = the final
 measurement into the j-th smallest classical bit written by a final measurement). With
 several records (mid-circuit measurements), first one ``multinomial`` over the records in
 ascending order of their bits as an integer (clbit c = bit c), then, for each record in
-that order with shots, one ``multinomial`` over its final outcomes as above. The same
-seed and numpy version give the same counts anywhere.
+that order with shots, one ``multinomial`` over its final outcomes as above. Each draw's
+probabilities are normalised and rounded to 13 decimal places first. The same seed and
+numpy version give the same counts anywhere.
 """
 
 from __future__ import annotations
@@ -25,6 +26,10 @@ from jobkeeper.circuit.ir import Register
 Floats = npt.NDArray[np.float64]
 Ints = npt.NDArray[np.int64]
 
+#: probabilities are rounded to this many decimal places before sampling: rounding noise
+#: in the last bits (which differs between BLAS builds, kernels and simulators) must not
+#: change counts; near p = 1/2 it would, since numpy's binomial branches on p < 1/2.
+SAMPLING_DECIMALS = 13
 #: exact probabilities below this are floating-point residue of amplitudes that cancel
 #: (a sum of 2^20 of them stays below 1e-9); they are left out of exact results.
 NOISE_FLOOR = 1e-15
@@ -44,11 +49,13 @@ def marginal(state: State, n: int, qubits: Sequence[int]) -> Floats:
 
 
 def draw(rng: np.random.Generator, shots: int, probs: Floats) -> Ints:
-    """One multinomial draw of ``shots`` over ``probs`` (renormalised against rounding)."""
+    """One multinomial draw of ``shots`` over ``probs``, normalised and rounded to
+    SAMPLING_DECIMALS places first."""
     total = float(probs.sum())
     if shots == 0 or total <= 0:
         return np.zeros(len(probs), dtype=np.int64)
-    return rng.multinomial(shots, probs / total).astype(np.int64, copy=False)
+    rounded = np.round(probs / total, SAMPLING_DECIMALS)
+    return rng.multinomial(shots, rounded / rounded.sum()).astype(np.int64, copy=False)
 
 
 #: row b: the ASCII digits of byte b, most significant bit first.
