@@ -166,9 +166,10 @@ def random_circuit(
     rng: np.random.Generator, n: int = 3, length: int = 14, wide: bool = True
 ) -> Circuit:
     """A random circuit with gates (some on three qubits), mid-circuit measurements,
-    resets and ``if``, ending with a measurement of every qubit."""
+    resets and ``if`` (on gates, measurements and resets), ending with a measurement of
+    every qubit."""
     regs = cregs(2, n)
-    kinds = ["u3", "cx", "h", "rzz", "measure", "reset", "if", "id"] + (
+    kinds = ["u3", "cx", "h", "rzz", "measure", "reset", "if", "id", "if-measure", "if-reset"] + (
         ["ccx", "cswap"] if wide else []
     )
     ops: list[Operation] = []
@@ -190,6 +191,11 @@ def random_circuit(
             ops.append(measure(q, int(rng.integers(2))))
         elif kind == "reset":
             ops.append(op("reset", q))
+        elif kind == "if-measure":
+            target = int(rng.integers(2))
+            ops.append(op("measure", q, clbits=[target], cond=(regs[0], int(rng.integers(4)))))
+        elif kind == "if-reset":
+            ops.append(op("reset", q, cond=(regs[0], int(rng.integers(4)))))
         else:
             gate = str(rng.choice(["x", "h", "z"]))
             ops.append(op(gate, q, cond=(regs[0], int(rng.integers(4)))))
