@@ -65,14 +65,6 @@ def embed(matrix: Matrix, positions: tuple[int, ...], width: int) -> Matrix:
     return np.ascontiguousarray(out.reshape(1 << width, 1 << width))
 
 
-def compose(width: int, steps: list[tuple[Matrix, tuple[int, ...]]]) -> Matrix:
-    """The matrix of a sequence of gates (applied in order) on a ``width``-qubit register."""
-    total = np.eye(1 << width, dtype=np.complex128)
-    for matrix, positions in steps:
-        total = embed(matrix, positions, width) @ total
-    return total
-
-
 _X = _m([[0, 1], [1, 0]])
 _Y = _m([[0, -1j], [1j, 0]])
 _Z = _m([[1, 0], [0, -1]])

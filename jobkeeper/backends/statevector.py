@@ -227,10 +227,11 @@ class StatevectorBackend:
         """Exact outcome weights per classical record (before the final measurements),
         each as a vector over the final measurements' outcomes; and the branch count."""
         n = program.num_qubits
-        initial = _initial_state(n)
         final_qubits = [q for q, _ in program.final]
         records: dict[int, Floats] = {}
-        stack: list[tuple[int, kernels.State, float, int]] = [(0, initial, 1.0, 0)]
+        # Depth first, and no other reference to a state: a finished branch's memory is
+        # free before the next one starts (the memory check counts the stack).
+        stack: list[tuple[int, kernels.State, float, int]] = [(0, _initial_state(n), 1.0, 0)]
         branches = 1
         while stack:
             index, state, weight, record = stack.pop()
