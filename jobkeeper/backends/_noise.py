@@ -13,7 +13,8 @@ The model (every figure per qubit where a list is given, qubit q being entry q):
   is how a device runs them: a Toffoli costs six two-qubit gates, not one.
 * **Readout error** ``e``: the classical outcome of a measurement is flipped with
   probability ``e`` (symmetric), independently per measurement. The qubit itself
-  collapses to the true outcome. A ``reset`` is a measurement followed by an X when it
+  collapses to the true outcome; a later ``if`` reads the recorded (possibly flipped)
+  bit, as a device's classical control would. A ``reset`` is a measurement followed by an X when it
   reads 1, so its readout error leaves the qubit in |1⟩ with probability ``e``.
 * **Relaxation** (optional, needs ``t1`` and/or ``t2`` and both gate times): during
   each gate's duration, on the qubits the gate acts on (idle qubits do not decay: the

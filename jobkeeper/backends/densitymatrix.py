@@ -10,8 +10,10 @@ Configuration (``[backends.NAME]`` with ``adapter = "densitymatrix"``)::
     t2 = 8e-5                        # optional, seconds (or per qubit), ≤ 2·t1
     gate_time_1q = 2e-8              # seconds, required with t1/t2
     gate_time_2q = 2e-7
-    max_qubits = 12                  # default 12: ρ of 12 qubits is 256 MiB
+    max_qubits = 12                  # default 12 (at most 16): ρ of 12 qubits is 256 MiB
     pricing = { per_task = 0.0, per_shot = 0.001, currency = "credits" }   # optional
+    # also: max_memory_bytes, max_branches (live classical records, default 1024),
+    # fusion_width (vector qubits per fused noisy block, default 4)
 
 or the noise figures in a ``calibration`` table of the same keys (a device's
 calibration snapshot, see :func:`noise_model_from_calibration`). What each figure does is
@@ -19,7 +21,9 @@ in :mod:`._noise`; ``info.calibration`` is the model as a JSON-ready table.
 
 How a task runs: the circuit is compiled with its noise (:mod:`._dm_program`), memory is
 checked before anything is allocated, ρ evolves in place as a vector of 4^n entries (the
-state-vector kernels on 2n qubits), and the classical records are tracked exactly: one
+state-vector kernels on 2n qubits: a noisy gate is one superoperator block, a run of
+noiseless gates U is applied as U·(U·ρ)†, on the row qubits only, which the kernels
+handle several times faster), and the classical records are tracked exactly: one
 unnormalised ρ per record, split by each mid-circuit measurement (with its readout
 error), merged when records coincide, conditioned by ``if``; ``reset`` is an exact channel
 and never splits. Final measurements are read off each record's diagonal with the readout
@@ -77,6 +81,7 @@ _NO_HANDLES = "the densitymatrix backend finishes inside start: there is no hand
 
 class _PricingTable(BaseModel):
     model_config = ConfigDict(extra="forbid", frozen=True)
+
     per_task: float = Field(default=0.0, ge=0)
     per_shot: float = Field(default=0.0, ge=0)
     currency: str = "credits"

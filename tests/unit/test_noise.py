@@ -262,3 +262,12 @@ def test_a_certain_error_is_minus_infinity() -> None:
         backend.success_probability(_circuit(1, [Operation("measure", (0,), clbits=(0,))]))
         == -math.inf
     )
+
+
+def test_qubits_beyond_the_per_qubit_lists_are_estimated_at_the_worst_listed_figure() -> None:
+    # Pre-flight still gives a figure for a circuit too wide for the model (it reports
+    # separately that the circuit does not fit); the simulator itself refuses it.
+    backend = from_config("x", {"adapter": "densitymatrix", "readout_error": [0.1, 0.3]})
+    circ = _circuit(3, [Operation("measure", (2,), clbits=(2,))])
+    assert backend.success_probability(circ) == pytest.approx(math.log10(0.7), rel=1e-12)
+    assert backend.info.max_qubits == 2
