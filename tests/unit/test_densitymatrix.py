@@ -22,6 +22,7 @@ from jobkeeper.backend import LocalBackend, Task
 from jobkeeper.backends import _dm_state
 from jobkeeper.backends._gates import gate_matrix
 from jobkeeper.backends.densitymatrix import DensityMatrixBackend, NoiseModel
+from jobkeeper.backends.statevector import StatevectorBackend
 from jobkeeper.circuit.ir import Circuit
 from jobkeeper.exceptions import PermanentBackendError
 from tests.unit.test_densitymatrix_helpers import distribution, random_circuit, reference
@@ -258,15 +259,26 @@ def test_counts_are_consistent_with_the_exact_distribution() -> None:
 def test_counts_are_the_documented_draw_from_the_exact_distribution() -> None:
     # The state-vector backend's documented method (jobkeeper.backends._sampling): one
     # multinomial over the outcomes in ascending index order (bit j = the j-th smallest
-    # classical bit), numpy.random.Generator(PCG64(seed)). Redone here by hand.
+    # classical bit), probabilities normalised and rounded to 13 decimal places,
+    # numpy.random.Generator(PCG64(seed)). Redone here by hand.
     b = backend(**CONFIG)
     ops = [op("h", 0), op("cx", 0, 1), op("u3", 2, params=[0.7, 0.1, 0.2])]
     circ = circuit(3, [*ops, measure(0, 0), measure(1, 1), measure(2, 2)], [3])
     result = b.execute(Task(circ, 10_000, seed=77, exact=True))
     assert result.probabilities is not None and len(result.probabilities) == 8
     probs = np.array([result.probabilities[format(i, "03b")] for i in range(8)])
-    drawn = np.random.Generator(np.random.PCG64(77)).multinomial(10_000, probs / probs.sum())
+    rounded = np.round(probs / probs.sum(), 13)
+    drawn = np.random.Generator(np.random.PCG64(77)).multinomial(10_000, rounded / rounded.sum())
     assert result.counts == {format(i, "03b"): int(k) for i, k in enumerate(drawn) if k}
+
+
+@pytest.mark.parametrize("seed", [0, 7, 11])
+def test_noiseless_counts_equal_the_state_vector_backends_for_the_same_seed(seed: int) -> None:
+    # The same documented draw over the same distribution (equal to rounding, which the
+    # draw's rounding to 13 places absorbs) gives the same counts, records and all.
+    circ = random_circuit(np.random.default_rng(seed), wide=False)
+    task = Task(circ, 3000, seed=99)
+    assert backend().execute(task).counts == StatevectorBackend().execute(task).counts
 
 
 def test_a_circuit_without_measurements_reports_all_zero_bits() -> None:
