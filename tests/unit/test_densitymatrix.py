@@ -342,3 +342,23 @@ def test_noise_model_constructor_equals_configuration() -> None:
         "depolarizing_2q": 0.0,
         "readout_error": [0.1, 0.2],
     }
+
+
+def test_too_many_live_records_are_refused() -> None:
+    # Three mid-circuit measurements of |+⟩ into three bits make 8 live records (the
+    # x after each makes them mid-circuit rather than final).
+    ops = [op("h", q) for q in range(3)] + [measure(q, q) for q in range(3)]
+    ops += [op("x", q) for q in range(3)]
+    circ = circuit(3, ops, [3])
+    assert backend(max_branches=8).execute(Task(circ, 10, seed=1)).counts
+    with pytest.raises(PermanentBackendError, match="more than 4 classical records"):
+        backend(max_branches=4).execute(Task(circ, 10, seed=1))
+
+
+def test_metadata_counts_a_noisy_toffoli_as_its_decomposition() -> None:
+    circ = circuit(3, [op("h", 0), op("ccx", 0, 1, 2), measure(2, 0)], [1])
+    noisy = backend(depolarizing_2q=0.01).execute(Task(circ, 10, seed=1)).metadata
+    assert noisy["operations"] == {"1q": 10, "2q": 6, "wider": 0}
+    clean = backend().execute(Task(circ, 10, seed=1)).metadata
+    assert clean["operations"] == {"1q": 1, "2q": 0, "wider": 1}
+    assert noisy["noise"] == {"depolarizing_1q": 0.0, "depolarizing_2q": 0.01, "readout_error": 0.0}
