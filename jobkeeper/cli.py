@@ -129,8 +129,8 @@ def check(
     report = preflight(keeper, file, backend=backend, shots=shots)
     if json_out:
         _echo_json(report.to_json())
-        return
-    typer.echo(report.summary())
+    else:
+        typer.echo(report.summary())
     if not report.fits:
         raise typer.Exit(1)
 

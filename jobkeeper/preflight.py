@@ -32,6 +32,7 @@ class PreflightReport:
     cost: float | None = None
     currency: str | None = None
     shots: int = 0
+    duration_seconds: float | None = None
 
     def to_json(self) -> dict[str, Any]:
         return {
@@ -46,6 +47,7 @@ class PreflightReport:
             "shots": self.shots,
             "cost": self.cost,
             "currency": self.currency,
+            "duration_seconds": self.duration_seconds,
             "warnings": self.warnings,
         }
 
@@ -64,6 +66,11 @@ class PreflightReport:
             lines.append(f"  estimated probability of an error-free run: {_prob(self)}")
         if self.cost is not None:
             lines.append(f"  estimated cost for {self.shots} shots: {self.cost:.4g} {self.currency}")
+        if self.duration_seconds is not None:
+            lines.append(
+                f"  estimated device time for {self.shots} shots: about "
+                f"{self.duration_seconds:.3g} s (depth × slowest gate time, no queueing)"
+            )
         lines += [f"  WARNING: {w}" for w in self.warnings]
         return "\n".join(lines)
 
@@ -122,6 +129,12 @@ def preflight(
     if info.pricing is not None:
         report.cost = info.pricing.cost(shots)
         report.currency = info.pricing.currency
+    calibration = info.calibration or {}
+    gate_times = [calibration.get(k) for k in ("gate_time_1q", "gate_time_2q")]
+    known = [float(t) for t in gate_times if isinstance(t, (int, float)) and t > 0]
+    if known:
+        # A rough upper estimate: every layer as slow as the slowest gate.
+        report.duration_seconds = m.depth * max(known) * shots
     if shots < 100:
         report.warnings.append(f"{shots} shots is a small sample: only large effects will show")
     return report

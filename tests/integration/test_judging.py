@@ -119,3 +119,19 @@ def test_budget_refuses_with_the_amount_left_and_queues_nothing(tmp_path: Path, 
         over = keeper.submit(BELL, backend="paid", shots=1000, seed=2, label="paper",
                              over_budget=True)  # fmt: skip
         assert over.state == "queued" and len(keeper.jobs()) == 2
+
+
+def test_rerun_on_a_noisy_backend_with_another_seed_is_consistent(tmp_path: Path) -> None:
+    keep = tmp_path / "keep"
+    keep.mkdir()
+    (keep / "config.toml").write_text(
+        '[backends.noisy]\nadapter = "densitymatrix"\ndepolarizing_1q = 0.002\n'
+        "depolarizing_2q = 0.02\nreadout_error = 0.03\n"
+    )
+    with Keeper.open(keep) as keeper:
+        job = keeper.run(BELL, backend="noisy", shots=4000, seed=1)
+        judgement = rerun(keeper, job, seed=2)
+        assert judgement.record.verdict == "consistent"
+        # Noise shows: some shots land on 01 and 10, which the ideal Bell pair never gives.
+        assert set(job.counts) == {"00", "01", "10", "11"}
+        assert compare_ideal(keeper, job).record.verdict == "different"
