@@ -40,7 +40,7 @@ def main() -> None:
         with Keeper.open(keep) as keeper:
             start = time.perf_counter()
             texts = [
-                "OPENQASM 2.0;\ninclude \"qelib1.inc\";\nqreg q[3];\ncreg c[3];\n"
+                'OPENQASM 2.0;\ninclude "qelib1.inc";\nqreg q[3];\ncreg c[3];\n'
                 f"rz({0.0001 * i!r}) q[0];\nh q[0];\ncx q[0],q[1];\ncx q[1],q[2];\nmeasure q -> c;\n"
                 for i in range(n)
             ]

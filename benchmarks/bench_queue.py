@@ -21,7 +21,7 @@ TARGET = 0.25
 
 def circuits(n: int) -> list[str]:
     return [
-        "OPENQASM 2.0;\ninclude \"qelib1.inc\";\nqreg q[2];\ncreg c[2];\n"
+        'OPENQASM 2.0;\ninclude "qelib1.inc";\nqreg q[2];\ncreg c[2];\n'
         f"rz({0.001 * i!r}) q[0];\nh q[0];\ncx q[0],q[1];\nmeasure q -> c;\n"
         for i in range(n)
     ]
@@ -47,7 +47,9 @@ def bare_sqlite_rate(n: int) -> float:
         start = time.perf_counter()
         for i in range(n):
             conn.execute("BEGIN IMMEDIATE")
-            conn.execute("INSERT INTO t (id, state, payload) VALUES (?, 'queued', ?)", (i, "x" * 200))
+            conn.execute(
+                "INSERT INTO t (id, state, payload) VALUES (?, 'queued', ?)", (i, "x" * 200)
+            )
             conn.execute("UPDATE t SET state = 'done' WHERE id = ?", (i,))
             conn.execute("COMMIT")
         elapsed = time.perf_counter() - start

@@ -28,7 +28,7 @@ QUEUE_DELAY = 20.0
 
 def circuit(i: int) -> str:
     return (
-        "OPENQASM 2.0;\ninclude \"qelib1.inc\";\nqreg q[2];\ncreg c[2];\n"
+        'OPENQASM 2.0;\ninclude "qelib1.inc";\nqreg q[2];\ncreg c[2];\n'
         f"rz({0.0001 * i!r}) q[0];\nh q[0];\ncx q[0],q[1];\nmeasure q -> c;\n"
     )
 
@@ -60,7 +60,9 @@ def run(jobs: int) -> dict[str, float]:
             except psutil.Error:
                 break
             stats = device.stats()
-            in_flight_peak = max(in_flight_peak, stats["jobs"] - stats.get("states", {}).get("done", 0))
+            in_flight_peak = max(
+                in_flight_peak, stats["jobs"] - stats.get("states", {}).get("done", 0)
+            )
             time.sleep(0.2)
         if worker.poll() is None:
             worker.kill()

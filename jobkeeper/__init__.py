@@ -12,7 +12,7 @@ from __future__ import annotations
 
 __version__ = "0.1.0"
 
-from jobkeeper.backend import (  # noqa: E402
+from jobkeeper.backend import (
     Backend,
     BackendInfo,
     LocalBackend,
@@ -22,7 +22,7 @@ from jobkeeper.backend import (  # noqa: E402
     Started,
     Task,
 )
-from jobkeeper.exceptions import (  # noqa: E402
+from jobkeeper.exceptions import (
     BackendError,
     BudgetExceeded,
     CircuitError,
@@ -35,8 +35,8 @@ from jobkeeper.exceptions import (  # noqa: E402
     TransientBackendError,
     VerificationError,
 )
-from jobkeeper.keeper import Job, Keeper, Submitted  # noqa: E402
-from jobkeeper.spec import JobSpec, job_key  # noqa: E402
+from jobkeeper.keeper import Job, Keeper, Submitted
+from jobkeeper.spec import JobSpec, job_key
 
 __all__ = [
     "Backend",

@@ -8,6 +8,7 @@ usage, 3 a backend or store could not be reached.
 
 from __future__ import annotations
 
+import contextlib
 import csv
 import io
 import json
@@ -37,7 +38,9 @@ KeepOpt = Annotated[
 ]
 StoreOpt = Annotated[
     str | None,
-    typer.Option("--store", envvar="JOBKEEPER_STORE", help="Archive location: a postgresql:// URL."),
+    typer.Option(
+        "--store", envvar="JOBKEEPER_STORE", help="Archive location: a postgresql:// URL."
+    ),
 ]
 JsonOpt = Annotated[bool, typer.Option("--json", help="Print JSON for scripts.")]
 BackendOpt = Annotated[
@@ -337,7 +340,9 @@ def show(
 @app.command()
 def wait(
     job_ids: Annotated[list[str], typer.Argument(metavar="JOB...", help="Job ids or prefixes.")],
-    timeout: Annotated[float | None, typer.Option("--timeout", help="Give up after seconds.")] = None,
+    timeout: Annotated[
+        float | None, typer.Option("--timeout", help="Give up after seconds.")
+    ] = None,
     keep: KeepOpt = None,
     store: StoreOpt = None,
     json_out: JsonOpt = False,
@@ -407,7 +412,9 @@ def cancel(
 
 @app.command()
 def keys(
-    export: Annotated[Path | None, typer.Option("--export", help="Write the public key here.")] = None,
+    export: Annotated[
+        Path | None, typer.Option("--export", help="Write the public key here.")
+    ] = None,
     rotate: Annotated[bool, typer.Option("--rotate", help="Make a new active key.")] = False,
     keep: KeepOpt = None,
     store: StoreOpt = None,
@@ -423,13 +430,17 @@ def keys(
     record = keeper.keyring.active_record()
     public = base64.b64encode(record.raw).decode()
     if export is not None:
-        export.write_text(json.dumps({"fingerprint": record.fingerprint, "public_key": public}) + "\n")
+        export.write_text(
+            json.dumps({"fingerprint": record.fingerprint, "public_key": public}) + "\n"
+        )
     if json_out:
         _echo_json({"fingerprint": record.fingerprint, "public_key": public})
         return
     typer.echo(f"fingerprint: {record.fingerprint}")
     typer.echo(f"public key (base64, raw Ed25519): {public}")
-    others = [r.fingerprint for r in keeper.keyring.public_keys() if r.fingerprint != record.fingerprint]
+    others = [
+        r.fingerprint for r in keeper.keyring.public_keys() if r.fingerprint != record.fingerprint
+    ]
     if others:
         typer.echo(f"earlier keys still trusted for old entries: {', '.join(others)}")
 
@@ -480,11 +491,13 @@ def verify(
 
 @app.command()
 def bundle(
-    job_ids: Annotated[list[str] | None, typer.Argument(metavar="[JOB...]", help="Jobs to export.")] = None,
+    job_ids: Annotated[
+        list[str] | None, typer.Argument(metavar="[JOB...]", help="Jobs to export.")
+    ] = None,
     label: LabelOpt = None,
-    output: Annotated[Path, typer.Option("-o", "--output", help="The bundle file to write.")] = Path(
-        "jobkeeper-bundle.json"
-    ),
+    output: Annotated[
+        Path, typer.Option("-o", "--output", help="The bundle file to write.")
+    ] = Path("jobkeeper-bundle.json"),
     keep: KeepOpt = None,
     store: StoreOpt = None,
     json_out: JsonOpt = False,
@@ -577,7 +590,8 @@ def loopback_device(
     token: Annotated[
         str | None,
         typer.Option(
-            "--token", envvar="JOBKEEPER_LOOPBACK_TOKEN",
+            "--token",
+            envvar="JOBKEEPER_LOOPBACK_TOKEN",
             help="Bearer token clients must send (better from the environment variable).",
         ),
     ] = None,
@@ -621,14 +635,13 @@ def loopback_device(
         f"fault rate {fault_rate}, seed {seed}); stats at /stats; Ctrl-C stops it",
         err=True,
     )
-    try:
+    # uvicorn re-raises the signal it stopped on: stopping is the normal end here.
+    with contextlib.suppress(KeyboardInterrupt, click.exceptions.Abort):
         serve(
             host, port, token=token, queue_delay=queue_delay, fault_rate=fault_rate, seed=seed,
             faults=kinds, slow_delay=slow_delay, retry_after=retry_after, max_qubits=max_qubits,
             log_level="warning",
         )  # fmt: skip
-    except (KeyboardInterrupt, click.exceptions.Abort):
-        pass  # uvicorn re-raises the signal it stopped on: stopping is the normal end here
 
 
 @app.callback(invoke_without_command=True)

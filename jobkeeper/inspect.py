@@ -35,9 +35,7 @@ def describe_job(keeper: Keeper, job: Job) -> JobDetails:
     result = job.result
     if result is not None:
         data["counts"] = None if result.counts is None else dict(result.counts)
-        data["probabilities"] = (
-            None if result.probabilities is None else dict(result.probabilities)
-        )
+        data["probabilities"] = None if result.probabilities is None else dict(result.probabilities)
         data["result_metadata"] = dict(result.metadata)
     data["rerun_of"] = record.spec.get("rerunOf")
     data["comparisons"] = [
@@ -101,7 +99,9 @@ def _text(d: dict[str, Any]) -> str:
     if "verification" in d:
         v = d["verification"]
         status = "verified" if v["ok"] else "VERIFICATION FAILED"
-        lines.append(f"  provenance {status}: log entry {d['log_index']}, signed by {d['signer'][:16]}…")
+        lines.append(
+            f"  provenance {status}: log entry {d['log_index']}, signed by {d['signer'][:16]}…"
+        )
         lines += [f"    - {p}" for p in v["problems"]]
     elif d["state"] == "done":
         lines.append("  provenance MISSING: no log entry for this done job")

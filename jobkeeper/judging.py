@@ -46,8 +46,14 @@ class Judgement:
 
     def summary(self) -> str:
         r = self.record
-        what = {"rerun": "rerun of", "pair": "comparison of", "ideal": "comparison with the ideal of"}
-        head = f"{what[r.kind]} job {r.job_a[:12]}" + (f" and job {r.job_b[:12]}" if r.job_b else "")
+        what = {
+            "rerun": "rerun of",
+            "pair": "comparison of",
+            "ideal": "comparison with the ideal of",
+        }
+        head = f"{what[r.kind]} job {r.job_a[:12]}" + (
+            f" and job {r.job_b[:12]}" if r.job_b else ""
+        )
         return f"{head}: {r.verdict}\n{self.comparison.summary()}"
 
 
@@ -138,7 +144,9 @@ def rerun(
     )[0]  # fmt: skip
     again = item.job
     if again.state != "done":
-        raise JobkeeperError(f"the rerun (job {again.id[:12]}) ended {again.state}: {again.record.error}")
+        raise JobkeeperError(
+            f"the rerun (job {again.id[:12]}) ended {again.state}: {again.record.error}"
+        )
     same_setup = name == predicate["backend"]["name"] and new_seed == used_seed
     deterministic = same_setup and keeper.backend(name).info.deterministic
     comparison = compare_counts(_counts(original), _counts(again), alpha=alpha,

@@ -125,7 +125,9 @@ class Job:
     @property
     def probabilities(self) -> dict[str, float] | None:
         result = self.result
-        return None if result is None or result.probabilities is None else dict(result.probabilities)
+        return (
+            None if result is None or result.probabilities is None else dict(result.probabilities)
+        )
 
     @property
     def attempts(self) -> list[Attempt]:
@@ -353,7 +355,9 @@ class Keeper:
         (retry and poll policies default to the keep's config.toml)."""
         options.setdefault("retry", self.config.retry)
         options.setdefault("poll", self.config.poll)
-        return Worker(store=self.store, resolve_backend=self.backend, sealer=self.sealer(), **options)
+        return Worker(
+            store=self.store, resolve_backend=self.backend, sealer=self.sealer(), **options
+        )
 
     def work(
         self,

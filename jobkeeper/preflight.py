@@ -65,7 +65,9 @@ class PreflightReport:
         if self.success_probability is not None:
             lines.append(f"  estimated probability of an error-free run: {_prob(self)}")
         if self.cost is not None:
-            lines.append(f"  estimated cost for {self.shots} shots: {self.cost:.4g} {self.currency}")
+            lines.append(
+                f"  estimated cost for {self.shots} shots: {self.cost:.4g} {self.currency}"
+            )
         if self.duration_seconds is not None:
             lines.append(
                 f"  estimated device time for {self.shots} shots: about "

@@ -82,9 +82,7 @@ def verify_jobs(
             # Canonical JSON (RFC 8785) writes the member exactly so, and a quote inside a
             # string value is always escaped, so this finds the statement's own field.
             if b'"jobKey":' + json.dumps(job.job_key).encode() not in payload:
-                report.problems.append(
-                    f"job {job.id[:12]}: its log entry attests another job key"
-                )
+                report.problems.append(f"job {job.id[:12]}: its log entry attests another job key")
         except (ValueError, KeyError, TypeError):
             pass  # verify_log has already reported an unreadable envelope
     if ids is not None:

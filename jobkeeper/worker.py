@@ -294,9 +294,13 @@ class Worker:
             await self._archive(held, backend, started.result)
             return
         if started.handle is None:
-            raise PermanentBackendError(f"backend {claim.job.backend} returned neither a result nor a handle")
+            raise PermanentBackendError(
+                f"backend {claim.job.backend} returned neither a result nor a handle"
+            )
         delay = self.poll.next_delay(0, hint=started.poll_after)
-        await self._store(self.store.record_handle, claim.job.id, claim.token, started.handle, delay)
+        await self._store(
+            self.store.record_handle, claim.job.id, claim.token, started.handle, delay
+        )
 
     async def _poll(self, held: _Held, backend: Backend) -> None:
         claim = held.claim

@@ -40,7 +40,9 @@ def vectors_dir() -> Path:
 
 # -- stores: one contract suite, run against every implementation ---------------------------
 
-POSTGRES_URL = os.environ.get("JOBKEEPER_TEST_POSTGRES", "postgresql://postgres@127.0.0.1:5432/test")
+POSTGRES_URL = os.environ.get(
+    "JOBKEEPER_TEST_POSTGRES", "postgresql://postgres@127.0.0.1:5432/test"
+)
 
 
 def postgres_available() -> bool:

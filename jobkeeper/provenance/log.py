@@ -32,9 +32,9 @@ from jobkeeper.provenance.manifest import (
     PREDICATE_TYPE,
     PREDICATE_TYPES,
     RunPredicate,
-    check_subject_document,
     build_statement,
     check_subject,
+    check_subject_document,
     parse_statement,
     statement_bytes,
 )

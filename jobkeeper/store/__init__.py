@@ -200,7 +200,9 @@ class Store(Protocol):
         jobs with the given ids."""
         ...
 
-    def renew(self, owner: str, leases: Sequence[tuple[str, int]], lease_seconds: float) -> set[str]:
+    def renew(
+        self, owner: str, leases: Sequence[tuple[str, int]], lease_seconds: float
+    ) -> set[str]:
         """Extend leases still held; return the ids whose lease this owner still holds."""
         ...
 
@@ -224,9 +226,7 @@ class Store(Protocol):
         """Record the attempt and end the job ``failed``."""
         ...
 
-    def finish(
-        self, completions: Sequence[Completion], appender: LogAppender
-    ) -> list[bool]:
+    def finish(self, completions: Sequence[Completion], appender: LogAppender) -> list[bool]:
         """Archive results, append their envelopes to the log and sign a checkpoint, all
         in one transaction. Each completion is fenced on its token: one whose lease was
         lost is skipped (False) and archives nothing."""

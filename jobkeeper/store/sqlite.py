@@ -17,7 +17,7 @@ import random
 import sqlite3
 import threading
 import time
-from collections.abc import Iterator, Mapping, Sequence
+from collections.abc import Iterator, Sequence
 from contextlib import contextmanager
 from pathlib import Path
 from typing import Any
@@ -33,8 +33,8 @@ from jobkeeper.exceptions import (
 )
 from jobkeeper.store import (
     Attempt,
-    ComparisonRecord,
     Claim,
+    ComparisonRecord,
     Completion,
     JobRecord,
     LogAppender,
@@ -42,24 +42,48 @@ from jobkeeper.store import (
     NewJob,
     StoredCheckpoint,
     StoredResult,
+    counts_text,
 )
 from jobkeeper.store import _sql as sql
-from jobkeeper.store import counts_text
 
 NOW = "((julianday('now') - 2440587.5) * 86400.0)"
 BUSY_DEADLINE_SECONDS = 60.0
 
 
 def _q(statement: str, **extra: str) -> str:
-    return statement.replace("{now}", NOW).format(**extra) if extra else statement.replace(
-        "{now}", NOW
+    return (
+        statement.replace("{now}", NOW).format(**extra)
+        if extra
+        else statement.replace("{now}", NOW)
     )
 
 
 def _record(row: Sequence[Any]) -> JobRecord:
-    (id_, key, state, backend, shots, seed, repeat, label, spec, created, updated, not_before,
-     attempts, max_attempts, owner, token, expires, handle, started, finished, error,
-     cancel, cost) = row
+    (
+        id_,
+        key,
+        state,
+        backend,
+        shots,
+        seed,
+        repeat,
+        label,
+        spec,
+        created,
+        updated,
+        not_before,
+        attempts,
+        max_attempts,
+        owner,
+        token,
+        expires,
+        handle,
+        started,
+        finished,
+        error,
+        cancel,
+        cost,
+    ) = row
     return JobRecord(
         id=id_, job_key=key, state=state, backend=backend, shots=shots, seed=seed,
         repeat=repeat, label=label, spec=json.loads(spec), created_at=created,
@@ -224,7 +248,9 @@ class SqliteStore:
             for job in claims
         ]
 
-    def renew(self, owner: str, leases: Sequence[tuple[str, int]], lease_seconds: float) -> set[str]:
+    def renew(
+        self, owner: str, leases: Sequence[tuple[str, int]], lease_seconds: float
+    ) -> set[str]:
         held: set[str] = set()
         with self._write() as conn:
             for job_id, token in leases:
@@ -316,9 +342,7 @@ class SqliteStore:
         for offset, ((subject, envelope, signer), leaf) in enumerate(
             zip(items, leaves, strict=True)
         ):
-            conn.execute(
-                _q(sql.INSERT_LOG_ENTRY), (size + offset, subject, envelope, leaf, signer)
-            )
+            conn.execute(_q(sql.INSERT_LOG_ENTRY), (size + offset, subject, envelope, leaf, signer))
         new_size = size + len(items)
         conn.execute(
             "INSERT INTO log_state (id, size, state) VALUES (1, ?, ?) "
@@ -424,7 +448,9 @@ class SqliteStore:
         )
 
     def all_counts(self) -> dict[str, str | None]:
-        return {job_id: counts for job_id, counts in self._read("SELECT job_id, counts FROM results")}
+        return {
+            job_id: counts for job_id, counts in self._read("SELECT job_id, counts FROM results")
+        }
 
     def log_entry_for(self, job_id: str) -> LogEntry | None:
         rows = self._read(
@@ -491,5 +517,3 @@ class SqliteStore:
 def _entry(row: Sequence[Any]) -> LogEntry:
     idx, job_id, envelope, leaf, signer, created = row
     return LogEntry(int(idx), job_id, bytes(envelope), bytes(leaf), signer, created)
-
-

@@ -52,7 +52,7 @@ def test_hundred_thousand_two_qubit_operations_are_mostly_noise(capsys, keep, tm
 
 
 def test_twenty_two_qubit_operations_are_estimated_at_0_90(capsys, keep, tmp_path) -> None:
-    code, report = run_check(capsys, str(_circuit(tmp_path / "s.qasm", 20)), "-b", "noisy",
+    _, report = run_check(capsys, str(_circuit(tmp_path / "s.qasm", 20)), "-b", "noisy",
                              "--keep", keep, "--shots", "1000")  # fmt: skip
     assert report["success_probability"] == pytest.approx(0.995**20, rel=1e-9)  # ≈ 0.905
     assert report["cost"] == pytest.approx(0.3 + 1000 * 0.001)  # the backend's own pricing

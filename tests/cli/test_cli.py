@@ -36,7 +36,9 @@ def jobs_in(keep: str, capsys: pytest.CaptureFixture[str]) -> list[dict]:
 
 
 def test_run_json_has_counts_shots_seed_hash_backend(capsys, keep) -> None:
-    code, out, _ = jk(capsys, "run", str(BELL), "--keep", keep, "--shots", "500", "--seed", "9", "--json")
+    code, out, _ = jk(
+        capsys, "run", str(BELL), "--keep", keep, "--shots", "500", "--seed", "9", "--json"
+    )
     assert code == 0
     data = json.loads(out)
     assert set(data) >= {"counts", "shots", "seed", "circuit_hash", "backend", "id"}
@@ -60,7 +62,9 @@ def test_submit_twice_reports_the_done_job(capsys, keep) -> None:
     assert item["deduplicated"] is True and item["state"] == "done"
     code, out, _ = jk(capsys, "submit", str(BELL), "--keep", keep, "--seed", "1")
     assert "already done" in out and "nothing queued" in out
-    code, out, _ = jk(capsys, "submit", str(BELL), "--keep", keep, "--seed", "1", "--repeat", "1", "--json")
+    code, out, _ = jk(
+        capsys, "submit", str(BELL), "--keep", keep, "--seed", "1", "--repeat", "1", "--json"
+    )
     assert json.loads(out)[0]["deduplicated"] is False
 
 
@@ -87,7 +91,7 @@ def test_cancel_a_queued_job(capsys, keep) -> None:
     assert code == 0 and json.loads(out)["state"] == "cancelled"
 
 
-BAD_CIRCUIT = "OPENQASM 2.0;\ninclude \"qelib1.inc\";\nqreg q[2];\nh q[0]\ncx q[0],q[1];\n"
+BAD_CIRCUIT = 'OPENQASM 2.0;\ninclude "qelib1.inc";\nqreg q[2];\nh q[0]\ncx q[0],q[1];\n'
 
 
 @pytest.mark.parametrize(
@@ -100,7 +104,7 @@ BAD_CIRCUIT = "OPENQASM 2.0;\ninclude \"qelib1.inc\";\nqreg q[2];\nh q[0]\ncx q[
     ],
 )
 def test_bad_options_exit_2_with_one_line_and_queue_nothing(capsys, keep, args, message) -> None:
-    code, out, err = jk(capsys, "submit", str(BELL), "--keep", keep, *args)
+    code, _, err = jk(capsys, "submit", str(BELL), "--keep", keep, *args)
     assert code == 2, err
     assert message in err and err.count("\n") == 1 and "Traceback" not in err
     assert jobs_in(keep, capsys) == []
@@ -117,8 +121,10 @@ def test_malformed_circuit_names_file_line_column(capsys, keep, tmp_path) -> Non
 
 def test_too_many_qubits_fails_the_job_at_run_time_with_the_reason(capsys, keep, tmp_path) -> None:
     big = tmp_path / "big.qasm"
-    big.write_text("OPENQASM 2.0;\ninclude \"qelib1.inc\";\nqreg q[40];\ncreg c[40];\nh q[0];\nmeasure q -> c;\n")
-    code, out, err = jk(capsys, "run", str(big), "--keep", keep, "--json")
+    big.write_text(
+        'OPENQASM 2.0;\ninclude "qelib1.inc";\nqreg q[40];\ncreg c[40];\nh q[0];\nmeasure q -> c;\n'
+    )
+    code, out, _ = jk(capsys, "run", str(big), "--keep", keep, "--json")
     assert code == 1
     data = json.loads(out)
     assert data["state"] == "failed" and "40 qubits" in data["error"]

@@ -14,13 +14,15 @@ REPO = Path(__file__).resolve().parents[2]
 def circuit_text(angle: float, qubits: int = 2) -> str:
     """A distinct small circuit per angle (an invented family for load tests)."""
     return (
-        "OPENQASM 2.0;\ninclude \"qelib1.inc\";\n"
+        'OPENQASM 2.0;\ninclude "qelib1.inc";\n'
         f"qreg q[{qubits}];\ncreg c[{qubits}];\n"
         f"rz({angle!r}) q[0];\nh q[0];\ncx q[0],q[1];\nmeasure q -> c;\n"
     )
 
 
-def write_recording_keep(keep: Path, ledger: Path, *, delay: float = 0.0, store: str | None = None) -> None:
+def write_recording_keep(
+    keep: Path, ledger: Path, *, delay: float = 0.0, store: str | None = None
+) -> None:
     keep.mkdir(parents=True, exist_ok=True)
     lines = []
     if store:
@@ -38,7 +40,9 @@ def jobkeeper_cmd(*args: str) -> list[str]:
     return [sys.executable, "-m", "jobkeeper", *args]
 
 
-def start_worker(keep: Path, *args: str, stderr_path: Path | None = None) -> subprocess.Popen[bytes]:
+def start_worker(
+    keep: Path, *args: str, stderr_path: Path | None = None
+) -> subprocess.Popen[bytes]:
     if stderr_path is None:
         return subprocess.Popen(
             jobkeeper_cmd("worker", "--keep", str(keep), *args),

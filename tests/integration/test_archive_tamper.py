@@ -61,11 +61,15 @@ def test_a_thousand_random_single_byte_changes_are_all_detected(archive: Path) -
     missed = []
     for trial in range(1000):
         table, key_col, col, key = cells[trial % len(cells)]
-        (original,) = conn.execute(f"SELECT {col} FROM {table} WHERE {key_col} = ?", (key,)).fetchone()
+        (original,) = conn.execute(
+            f"SELECT {col} FROM {table} WHERE {key_col} = ?", (key,)
+        ).fetchone()
         data = bytearray(original if isinstance(original, bytes) else original.encode())
         pos = rng.randrange(len(data))
         data[pos] = (data[pos] + rng.randrange(1, 256)) % 256
-        changed = bytes(data) if isinstance(original, bytes) else bytes(data).decode("utf-8", "replace")
+        changed = (
+            bytes(data) if isinstance(original, bytes) else bytes(data).decode("utf-8", "replace")
+        )
         if changed == original:
             continue
         conn.execute(f"UPDATE {table} SET {col} = ? WHERE {key_col} = ?", (changed, key))
@@ -111,7 +115,9 @@ def test_rewriting_the_log_is_caught(archive: Path, tmp_path: Path, damage: str)
         # signature holds, but the checkpoints signed earlier no longer match the log.
         with Keeper.open(copy) as keeper:
             key = keeper.keyring.load_active()
-        (job_id, stored) = conn.execute("SELECT job_id, envelope FROM log_entries WHERE idx = 4").fetchone()
+        (job_id, stored) = conn.execute(
+            "SELECT job_id, envelope FROM log_entries WHERE idx = 4"
+        ).fetchone()
         envelope = json.loads(stored)
         statement = json.loads(base64.b64decode(envelope["payload"]))
         counts = {"00": statement["predicate"]["shots"]}

@@ -76,7 +76,9 @@ def test_two_hundred_jobs_at_fault_rate_0_3_all_done_once_each(tmp_path: Path, m
     assert sum(stats["faults"].values()) > 50  # the faults really happened
     with Keeper.open(keep) as keeper:
         jobs = keeper.jobs()
-        failed = [(j.record.error, [a.message for a in j.attempts]) for j in jobs if j.state != "done"]
+        failed = [
+            (j.record.error, [a.message for a in j.attempts]) for j in jobs if j.state != "done"
+        ]
         assert not failed, failed[:3]
         total: dict[str, int] = {}
         for job in jobs:
@@ -90,7 +92,9 @@ def test_two_hundred_jobs_at_fault_rate_0_3_all_done_once_each(tmp_path: Path, m
 
 
 @pytest.mark.slow
-def test_sigkill_five_times_with_a_hundred_remote_jobs_in_flight(tmp_path: Path, monkeypatch) -> None:
+def test_sigkill_five_times_with_a_hundred_remote_jobs_in_flight(
+    tmp_path: Path, monkeypatch
+) -> None:
     with running_device(queue_delay=3.0, seed=5) as device:
         monkeypatch.setenv(device.token_env, device.token)
         keep = rest_keep(tmp_path, device)
@@ -128,7 +132,7 @@ def test_a_400_fails_at_once_and_a_401_names_the_variable_not_the_token(
     with running_device(queue_delay=0.05, max_qubits=5) as device:
         monkeypatch.setenv(device.token_env, device.token)
         keep = rest_keep(tmp_path, device)
-        wide = "OPENQASM 2.0;\ninclude \"qelib1.inc\";\nqreg q[6];\ncreg c[6];\nh q[0];\nmeasure q -> c;\n"
+        wide = 'OPENQASM 2.0;\ninclude "qelib1.inc";\nqreg q[6];\ncreg c[6];\nh q[0];\nmeasure q -> c;\n'
         with Keeper.open(keep) as keeper:
             job = keeper.run(wide, backend="dev", shots=10)
             assert job.state == "failed" and len(job.attempts) == 1

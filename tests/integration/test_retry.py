@@ -5,8 +5,8 @@ history. Real SQLite file, real worker loop."""
 
 from __future__ import annotations
 
-import json
 import base64
+import json
 from pathlib import Path
 
 from jobkeeper import Keeper

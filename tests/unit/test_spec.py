@@ -18,7 +18,9 @@ CIRCUIT = parse_qasm(BELL)
 
 def key(**fields) -> str:
     spec = JobSpec(**{"circuit": CIRCUIT, "backend": "statevector", "shots": 100, **fields})
-    return job_key(spec, circuit_hash="sha256:" + "a" * 64, backend_config_hash="sha256:" + "b" * 64)
+    return job_key(
+        spec, circuit_hash="sha256:" + "a" * 64, backend_config_hash="sha256:" + "b" * 64
+    )
 
 
 def test_key_is_sha256_of_the_canonical_key_document() -> None:
