@@ -225,3 +225,33 @@ def _circuit_files(folder: Path, n: int) -> list[Path]:
         path.write_text(circuit_text(0.3 * i))
         paths.append(path)
     return paths
+
+
+def test_cancel_of_a_waiting_job_reaches_the_device(tmp_path: Path, monkeypatch) -> None:
+    with running_device(queue_delay=60.0, seed=3) as device:
+        monkeypatch.setenv(device.token_env, device.token)
+        keep = rest_keep(tmp_path, device)
+        with Keeper.open(keep) as keeper:
+            job = keeper.submit(circuit_text(0.5), backend="dev", shots=10)
+        log = tmp_path / "w.log"
+        os.environ[device.token_env] = device.token
+        worker = start_worker(keep, stderr_path=log)
+        try:
+            with Keeper.open(keep) as keeper:
+                assert _wait_state(keeper, job.id, "waiting")
+                keeper.cancel(job.id)
+                assert _wait_state(keeper, job.id, "cancelled")
+        finally:
+            worker.send_signal(signal.SIGTERM)
+            worker.communicate(timeout=60)
+        stats = device.stats()
+    assert stats["cancels"] == 1 and stats["executions"] == 0
+
+
+def _wait_state(keeper: Keeper, job_id: str, state: str, timeout: float = 60.0) -> bool:
+    deadline = time.monotonic() + timeout
+    while time.monotonic() < deadline:
+        if keeper.store.get(job_id).state == state:
+            return True
+        time.sleep(0.1)
+    return False
