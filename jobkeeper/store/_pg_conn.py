@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import os
 import random
+import select
 import time
 from collections.abc import Callable
 from typing import Any, TypeVar
@@ -23,10 +24,11 @@ from urllib.parse import quote, urlsplit, urlunsplit
 
 import psycopg
 from psycopg import errors as pg_errors
+from psycopg import pq
 from psycopg import sql as pg_sql
 from psycopg.conninfo import conninfo_to_dict, make_conninfo
 from psycopg.rows import TupleRow
-from psycopg_pool import ConnectionPool, PoolTimeout
+from psycopg_pool import ConnectionPool, PoolClosed, PoolTimeout
 
 from jobkeeper.exceptions import ConfigError, StoreError, StoreUnavailable
 from jobkeeper.store import _sql as sql
@@ -139,11 +141,25 @@ class Database:
             max_size=max_size,
             kwargs={"autocommit": True},
             configure=self.configure,
+            check=self.check,
             open=False,
             name="jobkeeper",
             timeout=RECONNECT_DEADLINE,
             reconnect_timeout=RECONNECT_DEADLINE * 10,
         )
+
+    @staticmethod
+    def check(conn: Conn) -> None:
+        """Before a pooled connection is handed out: refuse one the server has ended. An
+        idle connection (ours never LISTEN) has nothing to read unless the server sent
+        its goodbye (terminated backend, restart) and closed it; the test costs no round
+        trip, unlike a probe query."""
+        if conn.closed or conn.broken:
+            raise psycopg.OperationalError("the connection is closed")
+        readable, _, _ = select.select([conn.fileno()], [], [], 0)
+        if readable:
+            conn.close()  # so the pool discards it (an open one would be handed out again)
+            raise psycopg.OperationalError("the server ended this session")
 
     def configure(self, conn: Conn) -> None:
         """Session settings for every new connection: a transaction left idle (a stuck or
@@ -195,9 +211,13 @@ class Database:
                                 return work(conn)
                         return work(conn)
                     except psycopg.Error as exc:
-                        if conn.broken or conn.closed:
-                            raise _Broken(exc) from exc
-                        raise
+                        if _is_rollback(exc) or not _in_doubt(conn, exc):
+                            raise
+                        # Never hand a connection in doubt back to the pool: one cut in
+                        # pipeline mode can look alive ("cannot exit pipeline mode while
+                        # busy") yet be unusable.
+                        conn.close()
+                        raise _Broken(exc) from exc
             except _Broken as wrapped:
                 # The pool may hold more dead connections (all of this process's were
                 # terminated): try again at once a few times, then back off.
@@ -211,6 +231,10 @@ class Database:
                     f"no connection to the PostgreSQL archive at {self.where} within "
                     f"{RECONNECT_DEADLINE:.0f} s (is the server running and reachable?)"
                 ) from None
+            except PoolClosed:
+                raise StoreUnavailable(
+                    f"the store of the PostgreSQL archive at {self.where} is closed"
+                ) from None
             except psycopg.Error as exc:
                 if _is_rollback(exc) and rolled_back < ROLLBACK_RETRIES:
                     rolled_back += 1
@@ -221,6 +245,26 @@ class Database:
                 raise StoreError(
                     f"archive error at {self.where}: {scrub(str(exc), self.url)}"
                 ) from None
+
+
+_CONNECTION_TROUBLE = (
+    psycopg.OperationalError,
+    psycopg.InterfaceError,
+    pg_errors.IdleInTransactionSessionTimeout,
+)
+
+
+def _in_doubt(conn: Conn, exc: psycopg.Error) -> bool:
+    """Whether the connection may be dead or unusable after ``exc``: it says so, the
+    error is about the connection or the server (operational, interface), or the session
+    was ended by the server (an idle transaction timed out, an administrator)."""
+    return (
+        conn.broken
+        or conn.closed
+        or isinstance(exc, _CONNECTION_TROUBLE)
+        or conn.info.transaction_status
+        in (pq.TransactionStatus.ACTIVE, pq.TransactionStatus.UNKNOWN)
+    )
 
 
 class _Broken(Exception):
@@ -238,7 +282,7 @@ NOW = "extract(epoch from statement_timestamp())::float8"
 LOG_STATE_SEED = (
     b"INSERT INTO log_state (id, size, state) VALUES (1, 0, '') ON CONFLICT (id) DO NOTHING"
 )
-PG_EXTRAS: list[list[str]] = [[LOG_STATE_SEED.decode()]]
+PG_EXTRAS: dict[int, list[str]] = {0: [LOG_STATE_SEED.decode()]}
 
 
 def migrate(db: Database, *, create: bool) -> int:
@@ -282,7 +326,7 @@ def migrate(db: Database, *, create: bool) -> int:
                     f"this jobkeeper understands ({sql.SCHEMA_VERSION}); upgrade jobkeeper"
                 )
             for step in range(version, sql.SCHEMA_VERSION):
-                for statement in sql.MIGRATIONS[step] + PG_EXTRAS[step]:
+                for statement in sql.MIGRATIONS[step] + PG_EXTRAS.get(step, []):
                     conn.execute(statement.encode())
             conn.execute(
                 "INSERT INTO meta (key, value) VALUES ('schema_version', %s) "

@@ -9,7 +9,14 @@ from collections.abc import Sequence
 from typing import Any
 
 from jobkeeper.exceptions import AmbiguousJobId, JobNotFound
-from jobkeeper.store import Attempt, JobRecord, LogEntry, StoredCheckpoint, StoredResult
+from jobkeeper.store import (
+    Attempt,
+    ComparisonRecord,
+    JobRecord,
+    LogEntry,
+    StoredCheckpoint,
+    StoredResult,
+)
 from jobkeeper.store import _sql as sql
 from jobkeeper.store._pg_conn import Conn, Database
 
@@ -83,6 +90,14 @@ class PostgresReads:
         )
         return [_record(row) for row in rows]
 
+    def comparisons(self, job_id: str | None = None) -> list[ComparisonRecord]:
+        where, params = ("WHERE job_a = %s OR job_b = %s", (job_id, job_id)) if job_id else ("", ())
+        rows = self._read(
+            f"SELECT {sql.COMPARISON_COLUMNS} FROM comparisons {where} ORDER BY created_at, id",
+            params,
+        )
+        return [ComparisonRecord(*row) for row in rows]
+
     def counts_by_state(self) -> dict[str, int]:
         rows = self._read("SELECT state, COUNT(*) FROM jobs GROUP BY state")
         return {row[0]: int(row[1]) for row in rows}
@@ -113,7 +128,9 @@ class PostgresReads:
         )
 
     def all_counts(self) -> dict[str, str | None]:
-        return {job_id: counts for job_id, counts in self._read("SELECT job_id, counts FROM results")}
+        return {
+            job_id: counts for job_id, counts in self._read("SELECT job_id, counts FROM results")
+        }
 
     def log_entry_for(self, job_id: str) -> LogEntry | None:
         rows = self._read(

@@ -49,10 +49,12 @@ import psycopg
 from jobkeeper.exceptions import LeaseLost
 from jobkeeper.store import (
     Claim,
+    ComparisonRecord,
     Completion,
     JobRecord,
     LogAppender,
     NewJob,
+    counts_text,
 )
 from jobkeeper.store import _sql as sql
 from jobkeeper.store._pg_conn import (
@@ -289,19 +291,36 @@ class PostgresStore(PostgresReads):
                         [
                             (item.job_id,
                              None if item.result_counts is None
-                             else json.dumps(dict(item.result_counts)),
+                             else counts_text(item.result_counts),
                              None if item.result_probabilities is None
                              else json.dumps(dict(item.result_probabilities)),
                              json.dumps(dict(item.metadata), sort_keys=True))
                             for item in accepted
                         ],
                     )  # fmt: skip
-                self._append_log(conn, accepted, appender)
+                self._append_log(
+                    conn, [(c.job_id, c.envelope, c.signer) for c in accepted], appender
+                )
             return done
 
         return self._db.run(work, write=True)
 
-    def _append_log(self, conn: Conn, items: Sequence[Completion], appender: LogAppender) -> None:
+    def record_comparison(
+        self, comparison: ComparisonRecord, envelope: bytes, signer: str, appender: LogAppender
+    ) -> None:
+        c = comparison
+        params = (c.id, c.kind, c.job_a, c.job_b, c.verdict, c.report)
+
+        def work(conn: Conn) -> None:
+            conn.execute(_q(sql.INSERT_COMPARISON).encode(), params)
+            self._append_log(conn, [(c.id, envelope, signer)], appender)
+
+        self._db.run(work, write=True)
+
+    def _append_log(
+        self, conn: Conn, items: Sequence[tuple[str, bytes, str]], appender: LogAppender
+    ) -> None:
+        """Append (subject id, envelope, signer) entries under the log lock."""
         # The log lock: held from here to the commit, by one finisher at a time.
         row = conn.execute(LOCK_LOG).fetchone()
         if row is None:  # an archive whose row went missing: recreate it, then lock it
@@ -310,15 +329,17 @@ class PostgresStore(PostgresReads):
             assert row is not None
         size = int(row[0])
         state = bytes(row[1]) if size else None
-        leaves, new_state, root, note = appender(state, size, [c.envelope for c in items])
+        leaves, new_state, root, note = appender(state, size, [env for _, env, _ in items])
         new_size = size + len(items)
         # Everything else the lock covers goes in one round trip.
         with conn.pipeline(), conn.cursor() as cur:
             cur.executemany(
                 _q(sql.INSERT_LOG_ENTRY).encode(),
                 [
-                    (size + offset, item.job_id, item.envelope, leaf, item.signer)
-                    for offset, (item, leaf) in enumerate(zip(items, leaves, strict=True))
+                    (size + offset, subject, envelope, leaf, signer)
+                    for offset, ((subject, envelope, signer), leaf) in enumerate(
+                        zip(items, leaves, strict=True)
+                    )
                 ],
             )
             cur.execute(b"UPDATE log_state SET size = %s, state = %s WHERE id = 1",

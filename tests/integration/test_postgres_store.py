@@ -17,6 +17,7 @@ from jobkeeper.exceptions import ConfigError, StoreUnavailable
 from jobkeeper.provenance.merkle import root
 from jobkeeper.store import open_store
 from jobkeeper.store._pg_conn import redact
+from jobkeeper.store._sql import SCHEMA_VERSION
 from jobkeeper.store.postgres import PostgresStore
 from tests.conftest import require_postgres
 from tests.integration.test_store_contract import appender, completion, new_job
@@ -89,7 +90,7 @@ def test_workers_starting_at_once_migrate_the_schema_once(url: str, schema: str)
 
     with ThreadPoolExecutor(6) as pool:
         versions = list(pool.map(open_one, range(6)))
-    assert versions == ["1"] * 6
+    assert versions == [str(SCHEMA_VERSION)] * 6
 
 
 def test_a_newer_schema_is_refused(url: str, schema: str) -> None:
@@ -97,6 +98,61 @@ def test_a_newer_schema_is_refused(url: str, schema: str) -> None:
         first.set_meta("schema_version", "99")
     with pytest.raises(ConfigError, match="newer"):
         PostgresStore(url, schema=schema)
+
+
+def test_schema_1_archive_migrates_forward_keeping_its_rows(url: str, schema: str) -> None:
+    from jobkeeper.store import _sql as sql
+    from jobkeeper.store._pg_conn import PG_EXTRAS
+
+    with fresh_schema(url, schema) as bound, psycopg.connect(bound, autocommit=True) as conn:
+        conn.execute("CREATE TABLE meta (key TEXT PRIMARY KEY, value TEXT)")
+        for statement in sql.MIGRATIONS[0] + PG_EXTRAS.get(0, []):
+            conn.execute(statement.encode())
+        conn.execute("INSERT INTO meta VALUES ('schema_version', '1')")
+        conn.execute(
+            "INSERT INTO jobs (id, job_key, state, backend, shots, repeat, spec, created_at, "
+            "updated_at, not_before, max_attempts) "
+            "VALUES ('ab', 'k', 'done', 'sv', 1, 0, '{}', 0, 0, 0, 1)"
+        )
+        conn.execute("INSERT INTO log_entries VALUES (0, 'ab', '\\x00', '\\x01', 'f', 0)")
+        conn.execute("UPDATE log_state SET size = 1, state = '\\x00' WHERE id = 1")
+        with PostgresStore(bound) as store:
+            assert store.get_meta("schema_version") == str(sql.SCHEMA_VERSION)
+            assert store.get("ab").state == "done"
+            [entry] = store.log_entries()
+            assert entry.job_id == "ab" and entry.envelope == b"\x00"
+            assert store.comparisons() == []
+        with PostgresStore(bound) as again:  # opening twice applies nothing twice
+            assert len(again.log_entries()) == 1
+
+
+def test_comparisons_are_archived_and_logged_under_the_same_lock(store: PostgresStore) -> None:
+    from jobkeeper.store import ComparisonRecord, counts_text
+
+    store.enqueue([new_job(), new_job()])
+    claims = store.claim("w", limit=2, lease_seconds=60)
+    assert store.finish([completion(c, {"1": 2, "0": 1}) for c in claims], appender) == [True] * 2
+    a, b = (c.job.id for c in claims)
+    judged = ComparisonRecord(
+        id="c" * 32, kind="pair", job_a=a, job_b=b, verdict="consistent", report="{}"
+    )
+    store.record_comparison(judged, b"comparison-envelope", "f" * 64, appender)
+    [listed] = store.comparisons(b)
+    assert (listed.id, listed.kind, listed.job_a, listed.verdict) == (
+        judged.id,
+        "pair",
+        a,
+        "consistent",
+    )
+    assert store.comparisons() == [listed] and store.comparisons("0" * 32) == []
+    entries = store.log_entries()
+    assert [e.job_id for e in entries] == [a, b, judged.id] and entries[2].index == 2
+    assert store.checkpoints()[-1].root == root([e.leaf_hash for e in entries])
+    # Counts are kept as the canonical counts document, byte for byte what was signed.
+    assert store.all_counts() == {
+        a: counts_text({"0": 1, "1": 2}),
+        b: counts_text({"1": 2, "0": 1}),
+    }
 
 
 def test_open_store_takes_a_url_whose_options_name_the_schema(url: str, schema: str) -> None:
@@ -211,3 +267,61 @@ def test_wait_for_work_wakes_on_enqueue_and_times_out_without(
         timer.join()
     finally:
         other.close()
+
+
+def test_connections_cut_at_random_moments_lose_nothing_and_archive_nothing_twice(
+    url: str,
+) -> None:
+    """A worker loop (claims, pipelined finishes) while its connections are terminated
+    again and again, also mid-pipeline: every call still succeeds, and the archive ends
+    complete, each job once, the log contiguous."""
+    name = f"jk-cut-{uuid.uuid4().hex[:8]}"
+    schema = f"t_{uuid.uuid4().hex[:12]}"
+    jobs = 200  # more in waves of 100 until the connections were cut often enough
+    with (
+        fresh_schema(url, schema) as bound,
+        PostgresStore(f"{bound}&application_name={name}") as store,
+    ):
+        store.enqueue([new_job() for _ in range(jobs)])
+        stop = threading.Event()
+        cuts = 0
+
+        def cut() -> None:
+            nonlocal cuts
+            with psycopg.connect(url, autocommit=True) as admin:
+                while not stop.is_set():
+                    time.sleep(0.01)
+                    # Sessions at work (mid-statement, mid-transaction, mid-pipeline);
+                    # every fifth cut also the idle ones waiting in the pool.
+                    row = admin.execute(
+                        "SELECT count(pg_terminate_backend(pid)) FROM pg_stat_activity "
+                        "WHERE application_name = %s AND (state <> 'idle' OR %s)",
+                        (name, cuts % 5 == 4),
+                    ).fetchone()
+                    if row and row[0]:
+                        cuts += row[0]
+                        time.sleep(0.2)  # about five cuts a second
+
+        killer = threading.Thread(target=cut)
+        killer.start()
+        deadline = time.monotonic() + 60
+        try:
+            while (done := store.counts_by_state().get("done", 0)) < jobs or cuts < 8:
+                assert time.monotonic() < deadline, (store.counts_by_state(), cuts)
+                if done == jobs and jobs < 2000:
+                    store.enqueue([new_job() for _ in range(100)])
+                    jobs += 100
+                claims = store.claim("w", limit=5, lease_seconds=1.0)
+                if claims:
+                    store.finish([completion(c) for c in claims], appender)
+                else:  # claims whose commit we never heard of come back after 1 s
+                    time.sleep(0.2)
+                    store.requeue_expired()
+        finally:
+            stop.set()
+            killer.join()
+        assert store.counts_by_state() == {"done": jobs}
+        entries = store.log_entries()
+        assert [e.index for e in entries] == list(range(jobs))
+        assert len({e.job_id for e in entries}) == jobs
+        assert store.checkpoints()[-1].root == root([e.leaf_hash for e in entries])
