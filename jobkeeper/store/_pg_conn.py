@@ -18,7 +18,7 @@ import os
 import random
 import select
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from typing import Any, TypeVar
 from urllib.parse import quote, urlsplit, urlunsplit
 
@@ -351,3 +351,29 @@ def translate(statement: str, **extra: Any) -> str:
     if extra:
         text = text.format(**extra)
     return text.replace("%", "%%").replace("?", "%s")
+
+
+_CACHE: dict[str, str] = {}
+
+
+def dialect(statement: str) -> str:
+    """A shared statement in PostgreSQL's dialect (cached: the hot ones run often)."""
+    text = _CACHE.get(statement)
+    if text is None:
+        text = _CACHE[statement] = translate(statement)
+    return text
+
+
+def each_row(conn: Conn, statement: str, rows: Sequence[Sequence[Any]]) -> list[Any]:
+    """Run one statement once per row in a single pipelined round trip; the first row each
+    run returned (None when it returned none)."""
+    out: list[Any] = []
+    if not rows:
+        return out
+    with conn.cursor() as cur:
+        cur.executemany(statement.encode(), rows, returning=True)
+        while True:
+            out.append(cur.fetchone())
+            if not cur.nextset():
+                break
+    return out

@@ -62,6 +62,8 @@ from jobkeeper.store._pg_conn import (
     NOW,
     Conn,
     Database,
+    dialect,
+    each_row,
     migrate,
     redact,
     translate,
@@ -71,30 +73,6 @@ from jobkeeper.store._pg_read import PostgresReads, _record
 WAKE_CHANNEL = "jobkeeper_work"
 LOCK_LOG = b"SELECT size, state FROM log_state WHERE id = 1 FOR UPDATE"
 INSERT_CHECKPOINT = "INSERT INTO checkpoints (size, root, note, created_at) VALUES (?, ?, ?, {now})"
-_CACHE: dict[str, str] = {}
-
-
-def _q(statement: str) -> str:
-    """A shared statement in PostgreSQL's dialect (cached: the hot ones run often)."""
-    text = _CACHE.get(statement)
-    if text is None:
-        text = _CACHE[statement] = translate(statement)
-    return text
-
-
-def _each(conn: Conn, statement: str, rows: Sequence[Sequence[Any]]) -> list[Any]:
-    """Run one statement once per row in a single pipelined round trip; the first row each
-    run returned (None when it returned none)."""
-    out: list[Any] = []
-    if not rows:
-        return out
-    with conn.cursor() as cur:
-        cur.executemany(statement.encode(), rows, returning=True)
-        while True:
-            out.append(cur.fetchone())
-            if not cur.nextset():
-                break
-    return out
 
 
 def _lost(job_id: str) -> LeaseLost:
@@ -130,7 +108,7 @@ class PostgresStore(PostgresReads):
 
     def _fenced(self, statement: str, params: Sequence[Any], job_id: str) -> None:
         def work(conn: Conn) -> None:
-            if conn.execute(_q(statement).encode(), params).rowcount != 1:
+            if conn.execute(dialect(statement).encode(), params).rowcount != 1:
                 raise _lost(job_id)
 
         self._db.run(work, write=True)
@@ -153,7 +131,7 @@ class PostgresStore(PostgresReads):
             out: list[tuple[JobRecord, bool]] = []
             # Each INSERT … ON CONFLICT DO NOTHING returns its row, or none when a live
             # job has the key.
-            inserted = _each(conn, _q(sql.INSERT_JOB), rows)
+            inserted = each_row(conn, dialect(sql.INSERT_JOB), rows)
             for job, row in zip(jobs, inserted, strict=True):
                 if row is not None:
                     out.append((_record(row), True))
@@ -166,19 +144,21 @@ class PostgresStore(PostgresReads):
         return self._db.run(work, write=True)
 
     def _existing_or_insert(self, conn: Conn, job: NewJob) -> JobRecord:
-        existing = conn.execute(_q(sql.SELECT_LIVE_BY_KEY).encode(), (job.job_key,)).fetchone()
+        existing = conn.execute(dialect(sql.SELECT_LIVE_BY_KEY).encode(), (job.job_key,)).fetchone()
         if existing is None:
             # The conflicting job left the keyed states between our insert and this read
             # (cancelled or failed meanwhile): the key is free again, so insert ours.
             row = conn.execute(
-                _q(sql.INSERT_JOB).encode(),
+                dialect(sql.INSERT_JOB).encode(),
                 (job.id, job.job_key, job.backend, job.shots, job.seed, job.repeat,
                  job.label, json.dumps(dict(job.spec), sort_keys=True), job.max_attempts,
                  job.cost),
             ).fetchone()  # fmt: skip
             if row is not None:
                 return _record(row)
-            existing = conn.execute(_q(sql.SELECT_LIVE_BY_KEY).encode(), (job.job_key,)).fetchone()
+            existing = conn.execute(
+                dialect(sql.SELECT_LIVE_BY_KEY).encode(), (job.job_key,)
+            ).fetchone()
             if existing is None:  # pragma: no cover - would need two flips in one statement
                 raise psycopg.errors.SerializationFailure("job key kept changing; try again")
         return _record(existing)
@@ -234,7 +214,7 @@ class PostgresStore(PostgresReads):
 
         def work(conn: Conn) -> set[str]:
             rows = [(float(lease_seconds), job_id, token, owner) for job_id, token in leases]
-            kept = _each(conn, _q(sql.RENEW + " RETURNING id"), rows)
+            kept = each_row(conn, dialect(sql.RENEW + " RETURNING id"), rows)
             return {row[0] for row in kept if row is not None}
 
         return self._db.run(work, write=True)
@@ -248,11 +228,11 @@ class PostgresStore(PostgresReads):
     def retry(self, job_id: str, token: int, error_class: str, message: str, delay: float) -> str:
         def work(conn: Conn) -> str:
             inserted = conn.execute(
-                _q(sql.INSERT_ATTEMPT).encode(),
+                dialect(sql.INSERT_ATTEMPT).encode(),
                 (error_class, message, float(delay), job_id, token),
             ).rowcount
             row = conn.execute(
-                _q(sql.RETRY).encode(), (message, float(delay), job_id, token)
+                dialect(sql.RETRY).encode(), (message, float(delay), job_id, token)
             ).fetchone()
             if inserted != 1 or row is None:
                 raise _lost(job_id)
@@ -263,11 +243,11 @@ class PostgresStore(PostgresReads):
     def fail(self, job_id: str, token: int, error_class: str, message: str) -> None:
         def work(conn: Conn) -> None:
             inserted = conn.execute(
-                _q(sql.INSERT_ATTEMPT).encode(), (error_class, message, None, job_id, token)
+                dialect(sql.INSERT_ATTEMPT).encode(), (error_class, message, None, job_id, token)
             ).rowcount
             if (
                 inserted != 1
-                or conn.execute(_q(sql.FAIL).encode(), (message, job_id, token)).rowcount != 1
+                or conn.execute(dialect(sql.FAIL).encode(), (message, job_id, token)).rowcount != 1
             ):
                 raise _lost(job_id)
 
@@ -279,15 +259,17 @@ class PostgresStore(PostgresReads):
 
         def work(conn: Conn) -> list[bool]:
             # Fenced on each token; all in one pipelined round trip.
-            finished = _each(
-                conn, _q(sql.FINISH + " RETURNING id"), [(c.job_id, c.token) for c in completions]
+            finished = each_row(
+                conn,
+                dialect(sql.FINISH + " RETURNING id"),
+                [(c.job_id, c.token) for c in completions],
             )
             done = [row is not None for row in finished]
             accepted = [item for item, ok in zip(completions, done, strict=True) if ok]
             if accepted:
                 with conn.cursor() as cur:
                     cur.executemany(
-                        _q(sql.INSERT_RESULT).encode(),
+                        dialect(sql.INSERT_RESULT).encode(),
                         [
                             (item.job_id,
                              None if item.result_counts is None
@@ -312,7 +294,7 @@ class PostgresStore(PostgresReads):
         params = (c.id, c.kind, c.job_a, c.job_b, c.verdict, c.report)
 
         def work(conn: Conn) -> None:
-            conn.execute(_q(sql.INSERT_COMPARISON).encode(), params)
+            conn.execute(dialect(sql.INSERT_COMPARISON).encode(), params)
             self._append_log(conn, [(c.id, envelope, signer)], appender)
 
         self._db.run(work, write=True)
@@ -334,7 +316,7 @@ class PostgresStore(PostgresReads):
         # Everything else the lock covers goes in one round trip.
         with conn.pipeline(), conn.cursor() as cur:
             cur.executemany(
-                _q(sql.INSERT_LOG_ENTRY).encode(),
+                dialect(sql.INSERT_LOG_ENTRY).encode(),
                 [
                     (size + offset, subject, envelope, leaf, signer)
                     for offset, ((subject, envelope, signer), leaf) in enumerate(
@@ -344,7 +326,7 @@ class PostgresStore(PostgresReads):
             )
             cur.execute(b"UPDATE log_state SET size = %s, state = %s WHERE id = 1",
                         (new_size, new_state))  # fmt: skip
-            cur.execute(_q(INSERT_CHECKPOINT).encode(), (new_size, root, note))
+            cur.execute(dialect(INSERT_CHECKPOINT).encode(), (new_size, root, note))
 
     def release(self, owner: str, leases: Sequence[tuple[str, int]]) -> None:
         if not leases:
@@ -353,21 +335,22 @@ class PostgresStore(PostgresReads):
         def work(conn: Conn) -> None:
             with conn.cursor() as cur:
                 cur.executemany(
-                    _q(sql.RELEASE).encode(), [(job_id, token, owner) for job_id, token in leases]
+                    dialect(sql.RELEASE).encode(),
+                    [(job_id, token, owner) for job_id, token in leases],
                 )
 
         self._db.run(work, write=True)
 
     def requeue_expired(self) -> int:
         def work(conn: Conn) -> int:
-            return int(conn.execute(_q(sql.REQUEUE_EXPIRED).encode()).rowcount)
+            return int(conn.execute(dialect(sql.REQUEUE_EXPIRED).encode()).rowcount)
 
         return self._db.run(work, write=True)
 
     def request_cancel(self, job_id: str) -> JobRecord:
         def work(conn: Conn) -> None:
-            if conn.execute(_q(sql.CANCEL_QUEUED).encode(), (job_id,)).rowcount == 0:
-                conn.execute(_q(sql.REQUEST_CANCEL).encode(), (job_id,))
+            if conn.execute(dialect(sql.CANCEL_QUEUED).encode(), (job_id,)).rowcount == 0:
+                conn.execute(dialect(sql.REQUEST_CANCEL).encode(), (job_id,))
 
         self._db.run(work, write=True)
         return self.get(job_id)
@@ -395,7 +378,7 @@ class PostgresStore(PostgresReads):
     def register_key(self, fingerprint: str, public_key_b64: str) -> None:
         def work(conn: Conn) -> None:
             conn.execute(
-                _q("INSERT INTO public_keys (fingerprint, public_key, created_at) "
+                dialect("INSERT INTO public_keys (fingerprint, public_key, created_at) "
                    "VALUES (?, ?, {now}) ON CONFLICT (fingerprint) DO NOTHING").encode(),
                 (fingerprint, public_key_b64),
             )  # fmt: skip
