@@ -17,8 +17,10 @@ $(STAMP): pyproject.toml | $(BIN)/python
 demo: $(STAMP)
 	$(BIN)/python examples/demo.py
 
+# One BLAS thread per process in tests: several test processes share two cores, and
+# threaded small matrix products then run several times slower, not faster.
 test: $(STAMP)
-	$(BIN)/python -m pytest -q
+	OPENBLAS_NUM_THREADS=1 OMP_NUM_THREADS=1 $(BIN)/python -m pytest -q
 
 bench: $(STAMP)
 	$(BIN)/python benchmarks/run_all.py

@@ -39,6 +39,15 @@ def build_task(job: JobRecord) -> Task:
     )
 
 
+def one_blas_thread() -> None:
+    """Process-pool initializer: one BLAS thread per worker process. The pool already runs
+    one simulation per core; BLAS threads on top of that fight for the same cores (small
+    matrix products were measured 5-20x slower so on a busy 2-core machine)."""
+    from threadpoolctl import threadpool_limits
+
+    threadpool_limits(limits=1, user_api="blas")
+
+
 def run_local(backend: LocalBackend, task: Task) -> Result:
     """Module-level so a process pool can pickle it."""
     return backend.execute(task)

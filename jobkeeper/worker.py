@@ -28,7 +28,7 @@ from concurrent.futures.process import BrokenProcessPool
 from dataclasses import dataclass, field
 from typing import Any, TypeVar
 
-from jobkeeper._execution import build_task, run_local
+from jobkeeper._execution import build_task, one_blas_thread, run_local
 from jobkeeper.backend import Backend, LocalBackend, Result
 from jobkeeper.exceptions import (
     JobkeeperError,
@@ -134,7 +134,9 @@ class Worker:
     def _executor(self) -> Executor:
         if self._pool is None:
             if self.local_executor == "process":
-                self._pool = ProcessPoolExecutor(max_workers=self.concurrency)
+                self._pool = ProcessPoolExecutor(
+                    max_workers=self.concurrency, initializer=one_blas_thread
+                )
             else:
                 self._pool = ThreadPoolExecutor(max_workers=self.concurrency)
         return self._pool
