@@ -180,3 +180,31 @@ def test_console_entry_point_runs_in_a_subprocess(tmp_path) -> None:
     )  # fmt: skip
     assert proc.returncode == 0, proc.stderr
     assert sum(json.loads(proc.stdout)["counts"].values()) == 1024
+
+
+def test_keys_json_export_and_rotation_keep_old_entries_verifying(capsys, keep, tmp_path) -> None:
+    import base64
+    import hashlib
+
+    assert main(["run", str(BELL), "--keep", keep, "--seed", "1"]) == 0
+    capsys.readouterr()
+    code, out, _ = jk(
+        capsys, "keys", "--keep", keep, "--json", "--export", str(tmp_path / "k.json")
+    )
+    first = json.loads(out)
+    raw = base64.b64decode(first["public_key"])
+    # The fingerprint is SHA-256 of the raw 32-byte Ed25519 key (RFC 8032 §5.1.5 key size).
+    assert len(raw) == 32 and first["fingerprint"] == hashlib.sha256(raw).hexdigest()
+    assert json.loads((tmp_path / "k.json").read_text()) == first
+    code, out, _ = jk(capsys, "keys", "--keep", keep, "--rotate", "--json")
+    second = json.loads(out)
+    assert second["fingerprint"] != first["fingerprint"]
+    assert main(["run", str(BELL), "--keep", keep, "--seed", "2"]) == 0
+    capsys.readouterr()
+    code, out, _ = jk(capsys, "verify", "--all", "--keep", keep, "--json")
+    assert code == 0 and json.loads(out)["ok"] is True
+    # Pinning only the new key: the entry signed before the rotation no longer verifies.
+    code, out, _ = jk(
+        capsys, "verify", "--all", "--keep", keep, "--json", "--key", second["fingerprint"]
+    )
+    assert code == 1 and json.loads(out)["problems"]
