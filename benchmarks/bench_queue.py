@@ -60,19 +60,26 @@ def bare_sqlite_rate(n: int) -> float:
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__)
     parser.add_argument("--quick", action="store_true", help="200 jobs instead of 1,000")
+    parser.add_argument("--rounds", type=int, default=3, help="interleaved rounds (median)")
     args = parser.parse_args()
     n = 200 if args.quick else 1000
-    bare = bare_sqlite_rate(n)
-    for executor in ("process", "thread"):
-        rate, checkpoints = keeper_rate(n, executor)
-        ratio = rate / bare
-        verdict = "PASS" if ratio >= TARGET else "MISS"
-        print(
-            f"queue: {n} jobs end to end ({executor} pool): {rate:8.1f} jobs/s "
-            f"({checkpoints} group commits); bare SQLite (insert+update per txn, WAL, "
-            f"synchronous=FULL): {bare:8.1f} txn/s; ratio {ratio:.2f} "
-            f"(target >= {TARGET}) {verdict}"
-        )
+    # The disk's sync rate drifts with whatever else the machine does: bare and keeper
+    # runs are interleaved and each round's ratio uses that round's own bare figure.
+    rows = []
+    for _ in range(args.rounds):
+        bare = bare_sqlite_rate(n)
+        rate, checkpoints = keeper_rate(n, "process")
+        rows.append((rate / bare, rate, bare, checkpoints))
+    rows.sort()
+    ratio, rate, bare, checkpoints = rows[len(rows) // 2]
+    verdict = "PASS" if ratio >= TARGET else "MISS"
+    print(
+        f"queue: {n} distinct 2-qubit jobs submitted, run and archived by one worker with its "
+        f"defaults: {rate:8.1f} jobs/s ({checkpoints} group commits); bare SQLite (one "
+        f"insert+update transaction per job, WAL, synchronous=FULL): {bare:8.1f} txn/s; "
+        f"median ratio of {len(rows)} rounds {ratio:.2f} (target >= {TARGET}) {verdict}; "
+        f"all rounds: {', '.join(f'{r[0]:.2f}' for r in sorted(rows, key=lambda r: r[2]))}"
+    )
 
 
 if __name__ == "__main__":

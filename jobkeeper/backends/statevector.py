@@ -22,8 +22,10 @@ How a task runs:
 
 from __future__ import annotations
 
+import functools
 import os
 import secrets
+import time
 from collections.abc import Mapping
 from importlib.metadata import PackageNotFoundError, version
 from typing import Any
@@ -68,8 +70,23 @@ _CONFIG_KEYS = frozenset(
 _NO_HANDLES = "the statevector backend finishes inside start: there is no handle {handle!r}"
 
 
+_MEMORY_SEEN: list[tuple[float, int]] = []
+MEMORY_RECHECK_SECONDS = 2.0
+
+
 def available_memory() -> int:
-    """Bytes the system can give without swapping (MemAvailable), or its free pages."""
+    """Bytes the system can give without swapping (MemAvailable), or its free pages.
+    Read again at most every couple of seconds: a worker running thousands of small jobs
+    would otherwise spend a good share of its time reading /proc/meminfo."""
+    now = time.monotonic()
+    if _MEMORY_SEEN and now - _MEMORY_SEEN[0][0] < MEMORY_RECHECK_SECONDS:
+        return _MEMORY_SEEN[0][1]
+    value = _read_available_memory()
+    _MEMORY_SEEN[:] = [(now, value)]
+    return value
+
+
+def _read_available_memory() -> int:
     try:
         with open("/proc/meminfo", encoding="ascii") as meminfo:
             for line in meminfo:
@@ -80,6 +97,7 @@ def available_memory() -> int:
     return int(os.sysconf("SC_PAGE_SIZE") * os.sysconf("SC_AVPHYS_PAGES"))
 
 
+@functools.cache
 def _jobkeeper_version() -> str:
     try:
         return version("jobkeeper")

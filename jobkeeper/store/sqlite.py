@@ -121,31 +121,43 @@ class SqliteStore:
     # -- plumbing -----------------------------------------------------------------------
 
     @contextmanager
-    def _write(self) -> Iterator[sqlite3.Connection]:
+    def _write(self, *, durable: bool = True) -> Iterator[sqlite3.Connection]:
         """One write transaction, opened with BEGIN IMMEDIATE, retried on a busy database
-        with short random sleeps until a deadline."""
-        deadline = time.monotonic() + BUSY_DEADLINE_SECONDS
+        with short random sleeps until a deadline.
+
+        ``durable=False`` skips the sync at commit, for writes whose loss on power failure
+        only sends a job back to the queue (claims, lease renewals, rescues). In WAL mode
+        the next synced commit syncs every earlier frame too, so nothing is reordered."""
         with self._lock:
-            while True:
-                try:
-                    self._conn.execute("BEGIN IMMEDIATE")
-                    break
-                except sqlite3.OperationalError as exc:
-                    if "locked" not in str(exc) and "busy" not in str(exc):
-                        raise StoreUnavailable(f"archive error: {exc}") from exc
-                    if time.monotonic() > deadline:
-                        raise StoreUnavailable(
-                            f"the archive at {self.path} stayed locked for "
-                            f"{BUSY_DEADLINE_SECONDS:.0f} s"
-                        ) from exc
-                    time.sleep(random.uniform(0.0005, 0.004))
+            if not durable:
+                self._conn.execute("PRAGMA synchronous=NORMAL")
             try:
-                yield self._conn
-            except BaseException:
-                self._conn.execute("ROLLBACK")
-                raise
-            else:
+                self._begin()
+                try:
+                    yield self._conn
+                except BaseException:
+                    self._conn.execute("ROLLBACK")
+                    raise
                 self._commit()
+            finally:
+                if not durable:
+                    self._conn.execute("PRAGMA synchronous=FULL")
+
+    def _begin(self) -> None:
+        deadline = time.monotonic() + BUSY_DEADLINE_SECONDS
+        while True:
+            try:
+                self._conn.execute("BEGIN IMMEDIATE")
+                return
+            except sqlite3.OperationalError as exc:
+                if "locked" not in str(exc) and "busy" not in str(exc):
+                    raise StoreUnavailable(f"archive error: {exc}") from exc
+                if time.monotonic() > deadline:
+                    raise StoreUnavailable(
+                        f"the archive at {self.path} stayed locked for "
+                        f"{BUSY_DEADLINE_SECONDS:.0f} s"
+                    ) from exc
+                time.sleep(random.uniform(0.0005, 0.004))
 
     def _commit(self) -> None:
         deadline = time.monotonic() + BUSY_DEADLINE_SECONDS
@@ -239,7 +251,7 @@ class SqliteStore:
             params.extend(values)
         params.append(limit)
         statement = _q(sql.CLAIM, backend_filter=backend_filter, lock="")
-        with self._write() as conn:
+        with self._write(durable=False) as conn:
             rows = conn.execute(statement, params).fetchall()
         claims = [_record(row) for row in rows]
         claims.sort(key=lambda job: job.not_before)
@@ -252,7 +264,7 @@ class SqliteStore:
         self, owner: str, leases: Sequence[tuple[str, int]], lease_seconds: float
     ) -> set[str]:
         held: set[str] = set()
-        with self._write() as conn:
+        with self._write(durable=False) as conn:
             for job_id, token in leases:
                 cur = conn.execute(_q(sql.RENEW), (lease_seconds, job_id, token, owner))
                 if cur.rowcount == 1:
@@ -355,12 +367,12 @@ class SqliteStore:
         )
 
     def release(self, owner: str, leases: Sequence[tuple[str, int]]) -> None:
-        with self._write() as conn:
+        with self._write(durable=False) as conn:
             for job_id, token in leases:
                 conn.execute(_q(sql.RELEASE), (job_id, token, owner))
 
     def requeue_expired(self) -> int:
-        with self._write() as conn:
+        with self._write(durable=False) as conn:
             return int(conn.execute(_q(sql.REQUEUE_EXPIRED)).rowcount)
 
     def request_cancel(self, job_id: str) -> JobRecord:
