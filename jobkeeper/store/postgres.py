@@ -294,8 +294,10 @@ class PostgresStore(PostgresReads):
         params = (c.id, c.kind, c.job_a, c.job_b, c.verdict, c.report)
 
         def work(conn: Conn) -> None:
-            conn.execute(dialect(sql.INSERT_COMPARISON).encode(), params)
-            self._append_log(conn, [(c.id, envelope, signer)], appender)
+            # Idempotent, so a retry after a commit whose answer was lost adds nothing.
+            statement = sql.INSERT_COMPARISON.rstrip() + " ON CONFLICT (id) DO NOTHING RETURNING id"
+            if conn.execute(dialect(statement).encode(), params).fetchone() is not None:
+                self._append_log(conn, [(c.id, envelope, signer)], appender)
 
         self._db.run(work, write=True)
 

@@ -145,6 +145,7 @@ def test_comparisons_are_archived_and_logged_under_the_same_lock(store: Postgres
         "consistent",
     )
     assert store.comparisons() == [listed] and store.comparisons("0" * 32) == []
+    store.record_comparison(judged, b"comparison-envelope", "f" * 64, appender)  # a retry
     entries = store.log_entries()
     assert [e.job_id for e in entries] == [a, b, judged.id] and entries[2].index == 2
     assert store.checkpoints()[-1].root == root([e.leaf_hash for e in entries])
