@@ -181,7 +181,7 @@ class Keeper:
         if keyring.exists():
             keeper._register_keys()
         if the_store.get_meta("origin") is None:
-            the_store.set_meta("origin", f"jobkeeper/{uuid.uuid4().hex[:16]}")
+            the_store.ensure_meta("origin", f"jobkeeper/{uuid.uuid4().hex[:16]}")
         return keeper
 
     @staticmethod

@@ -34,6 +34,7 @@ from jobkeeper.exceptions import (
     JobkeeperError,
     LeaseLost,
     PermanentBackendError,
+    StoreUnavailable,
     TransientBackendError,
 )
 from jobkeeper.queue import (
@@ -76,6 +77,7 @@ class _Held:
     claim: Claim
     task: asyncio.Task[None] | None = None
     lost: bool = False
+    archiving: bool = False
 
 
 class Worker:
@@ -97,6 +99,7 @@ class Worker:
         local_executor: str = "process",  # or "thread": no worker processes at all
         idle_sleep: float = 0.5,
         grace: float = 30.0,
+        store_patience: float = 300.0,
     ) -> None:
         if concurrency < 1 or in_flight < 1:
             raise ValueError("concurrency and in_flight must be at least 1")
@@ -113,6 +116,7 @@ class Worker:
         self.local_executor = local_executor
         self.idle_sleep = idle_sleep
         self.grace = grace
+        self.store_patience = store_patience
         self.owner = f"{uuid.uuid4().hex[:12]}"
         self.stats = WorkerStats()
         self._held: dict[str, _Held] = {}
@@ -184,15 +188,26 @@ class Worker:
         heartbeat = asyncio.create_task(self._heartbeat())
         self._finisher = asyncio.create_task(self._finish_loop())
         next_sweep = 0.0
+        unreachable_since: float | None = None
         try:
-            await self._store(self.store.requeue_expired)
             while not self._stopping.is_set():
                 now = loop.time()
-                if now >= next_sweep:
-                    await self._store(self.store.requeue_expired)
-                    next_sweep = now + self.lease.sweep
-                claimed = await self._claim_more()
-                if once and not claimed and not self._held and await self._drained():
+                try:
+                    if now >= next_sweep:
+                        await self._store(self.store.requeue_expired)
+                        next_sweep = now + self.lease.sweep
+                    claimed = await self._claim_more()
+                    drained = once and not claimed and not self._held and await self._drained()
+                    unreachable_since = None
+                except StoreUnavailable as exc:
+                    # A database restart or a network blip: wait and try again, for a while.
+                    unreachable_since = unreachable_since or now
+                    if now - unreachable_since > self.store_patience:
+                        raise
+                    log.warning("archive unreachable, retrying: %s", exc)
+                    await asyncio.sleep(min(5.0, self.idle_sleep * 4))
+                    continue
+                if drained:
                     break
                 self._wake.clear()
                 if not claimed:
@@ -257,7 +272,9 @@ class Worker:
                 continue
             for job_id, _ in leases:
                 held = self._held.get(job_id)
-                if held is not None and job_id not in kept:
+                # A job whose result is being archived may have been committed just before
+                # this renewal: that is no lost lease (the archive's fence decides).
+                if held is not None and job_id not in kept and not held.archiving:
                     # Another worker owns it now: stop, archive nothing.
                     held.lost = True
                     self.stats.lost_leases += 1
@@ -283,6 +300,12 @@ class Worker:
                 await self._start(held, backend)
         except LeaseLost:
             self.stats.lost_leases += 1
+        except StoreUnavailable as exc:
+            # The archive is out of reach: leave the job as it is. Its lease lapses and it
+            # is taken up again (a device sees the same client key); failing it would
+            # need the very store that is missing.
+            log.warning("job %s: archive unreachable, left to its lease: %s", job.id, exc)
+            self.stats.errors.append(str(exc))
         except asyncio.CancelledError:
             if not held.lost and self._stopping.is_set():
                 # Shutdown: hand the job back untouched.
@@ -359,6 +382,7 @@ class Worker:
         )
         completion = self.sealer.seal(claim, result, backend.info, attempts)
         future: asyncio.Future[bool] = asyncio.get_running_loop().create_future()
+        held.archiving = True
         self._finishing.append((completion, future))
         self._wake_finisher.set()
         if await future:

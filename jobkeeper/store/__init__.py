@@ -300,6 +300,11 @@ class Store(Protocol):
 
     def set_meta(self, key: str, value: str) -> None: ...
 
+    def ensure_meta(self, key: str, value: str) -> str:
+        """Set ``key`` only if it is absent, in one statement; return the value it has
+        (two keeps opened at once on a fresh database agree on one value)."""
+        ...
+
     def close(self) -> None: ...
 
 

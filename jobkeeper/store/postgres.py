@@ -410,6 +410,18 @@ class PostgresStore(PostgresReads):
 
         self._db.run(work, write=True)
 
+    def ensure_meta(self, key: str, value: str) -> str:
+        def work(conn: Conn) -> str:
+            conn.execute(
+                "INSERT INTO meta (key, value) VALUES (%s, %s) ON CONFLICT (key) DO NOTHING",
+                (key, value),
+            )
+            row = conn.execute("SELECT value FROM meta WHERE key = %s", (key,)).fetchone()
+            assert row is not None
+            return str(row[0])
+
+        return self._db.run(work, write=True)
+
     def close(self) -> None:
         if self._listener is not None:
             self._listener.close()

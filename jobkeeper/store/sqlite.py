@@ -515,6 +515,15 @@ class SqliteStore:
                 (key, value),
             )
 
+    def ensure_meta(self, key: str, value: str) -> str:
+        with self._write() as conn:
+            conn.execute(
+                "INSERT INTO meta (key, value) VALUES (?, ?) ON CONFLICT (key) DO NOTHING",
+                (key, value),
+            )
+            row = conn.execute("SELECT value FROM meta WHERE key = ?", (key,)).fetchone()
+        return str(row[0])
+
     def close(self) -> None:
         with self._lock:
             self._conn.close()

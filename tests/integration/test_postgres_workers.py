@@ -206,6 +206,9 @@ def test_sigkill_and_terminated_connections_lose_nothing_and_run_nothing_twice(
     assert procs[0].returncode == -signal.SIGKILL
     assert [p.returncode for p in procs[1:]] == [0] * (WORKERS - 1)  # w1 rode it out
     found = check_archive(pg_url, keys, ledger, keeps[0])
-    # Only jobs the victim had started may be started again (and the device replays them).
-    assert found["replayed"] <= 64
+    # Only jobs the victim had started, and jobs w1 held while its connections were cut
+    # for longer than its 3 s lease, may be started again (the device replays them, it
+    # does not run them again: the ledger above holds one execution per job). Each of
+    # the two held at most its in-flight limit of 64.
+    assert found["replayed"] <= 2 * 64
     print(f"victim held {held} jobs; {terminated} connections terminated; {found}")

@@ -200,3 +200,34 @@ def test_spent_sums_costs_of_live_and_done_jobs(store: Store) -> None:
     store.request_cancel(cancelled.id)
     assert store.spent() == pytest.approx(3.5)
     assert store.spent("x") == pytest.approx(2.5)
+
+
+def test_comparisons_are_archived_with_a_log_entry(store: Store) -> None:
+    from jobkeeper.store import ComparisonRecord
+
+    [(a, _)] = store.enqueue([new_job()])
+    [(b, _)] = store.enqueue([new_job()])
+    record = ComparisonRecord(id="c" * 32, kind="pair", job_a=a.id, job_b=b.id,
+                              verdict="consistent", report='{"kind":"pair"}')  # fmt: skip
+    store.record_comparison(record, b"comparison-envelope", "f" * 64, appender)
+    [got] = store.comparisons(a.id)
+    assert (got.id, got.kind, got.job_b, got.verdict, got.report) == (
+        record.id, "pair", b.id, "consistent", '{"kind":"pair"}')  # fmt: skip
+    assert store.comparisons(b.id) == [got] and store.comparisons("0" * 32) == []
+    [entry] = store.log_entries()
+    assert entry.job_id == record.id and entry.envelope == b"comparison-envelope"
+    assert [cp.size for cp in store.checkpoints()] == [1]
+
+
+def test_counts_are_kept_as_the_canonical_counts_document(store: Store) -> None:
+    store.enqueue([new_job()])
+    [claim] = store.claim("w", limit=1, lease_seconds=60)
+    store.finish([completion(claim, {"11": 7, "00": 5})], appender)
+    # RFC 8785 §3.2.3: members sorted by key, no whitespace.
+    assert store.all_counts() == {claim.job.id: '{"00":5,"11":7}'}
+
+
+def test_ensure_meta_sets_once(store: Store) -> None:
+    assert store.ensure_meta("origin", "first") == "first"
+    assert store.ensure_meta("origin", "second") == "first"
+    assert store.get_meta("origin") == "first"
