@@ -75,6 +75,8 @@ class LogEntry:
     # The stored subject document itself (the counts document of a run, the report of a
     # comparison): when given, its exact bytes must have the subject's digest.
     document: bytes | None = None
+    # The job key the archive's row holds for this entry's job, when it is a run.
+    job_key: str | None = None
 
 
 def check_public_keys(keys: Mapping[str, bytes], report: VerifyReport) -> dict[str, bytes]:
@@ -101,6 +103,7 @@ def check_envelope(
     signer: str | None = None,
     counts: Mapping[str, int] | None = None,
     document: bytes | None = None,
+    job_key: str | None = None,
 ) -> bool:
     """Signature, statement shape and subject digest of one envelope; problems appended.
     ``document`` is the stored subject document (counts or comparison report), checked
@@ -120,6 +123,8 @@ def check_envelope(
     try:
         statement = parse_statement(verified.payload, predicate_types=PREDICATE_TYPES)
         is_run = statement["predicateType"] == PREDICATE_TYPE
+        if job_key is not None and (not is_run or statement["predicate"].get("jobKey") != job_key):
+            raise VerificationError("it attests another job key than the archive's job has")
         if document is not None:
             check_subject_document(statement, COUNTS_NAME if is_run else COMPARISON_NAME, document)
         elif is_run:
@@ -168,6 +173,7 @@ def verify_log(
             signer=entry.signer,
             counts=entry.counts,
             document=entry.document,
+            job_key=entry.job_key,
         )
         report.checked += 1
     _check_checkpoints(tree, checkpoints, list(good_keys.values()), origin, report)

@@ -273,6 +273,10 @@ class Store(Protocol):
 
     def result(self, job_id: str) -> StoredResult | None: ...
 
+    def job_keys(self, state: str) -> dict[str, str]:
+        """Job id → job key of every job in ``state``, in one read."""
+        ...
+
     def all_counts(self) -> dict[str, str | None]:
         """Every archived result's counts document (RFC 8785 canonical JSON text, exactly as
         stored) by job id, in one read: verification compares these very bytes."""

@@ -127,6 +127,10 @@ class PostgresReads:
             created_at=created,
         )
 
+    def job_keys(self, state: str) -> dict[str, str]:
+        rows = self._read("SELECT id, job_key FROM jobs WHERE state = %s", (state,))
+        return {job_id: key for job_id, key in rows}
+
     def all_counts(self) -> dict[str, str | None]:
         return {
             job_id: counts for job_id, counts in self._read("SELECT job_id, counts FROM results")

@@ -92,7 +92,7 @@ def _swap_rows(conn: sqlite3.Connection, a: int, b: int) -> None:
                      "VALUES (?, ?, ?, ?, ?, 0)", (i, *rows[other]))  # fmt: skip
 
 
-@pytest.mark.parametrize("damage", ["delete", "reorder", "duplicate", "re-sign"])
+@pytest.mark.parametrize("damage", ["delete", "reorder", "duplicate", "re-sign", "rekey"])
 def test_rewriting_the_log_is_caught(archive: Path, tmp_path: Path, damage: str) -> None:
     copy = tmp_path / "keep"
     copy.mkdir()
@@ -105,6 +105,10 @@ def test_rewriting_the_log_is_caught(archive: Path, tmp_path: Path, damage: str)
         conn.execute("DELETE FROM log_entries WHERE idx = 3")
     elif damage == "reorder":
         _swap_rows(conn, 2, 5)
+    elif damage == "rekey":
+        # The job row is made to claim another job key than the one its manifest attests.
+        conn.execute("UPDATE jobs SET job_key = 'sha256:' || hex(randomblob(32)) "
+                     "WHERE id = (SELECT job_id FROM log_entries WHERE idx = 2)")  # fmt: skip
     elif damage == "duplicate":
         row = conn.execute("SELECT job_id, envelope, leaf_hash, signer FROM log_entries "
                            "WHERE idx = 1").fetchone()  # fmt: skip
