@@ -68,7 +68,8 @@ from jobkeeper.store._pg_conn import (
     redact,
     translate,
 )
-from jobkeeper.store._pg_read import PostgresReads, _record
+from jobkeeper.store._pg_read import PostgresReads
+from jobkeeper.store._reads import record_of as _record
 
 WAKE_CHANNEL = "jobkeeper_work"
 LOCK_LOG = b"SELECT size, state FROM log_state WHERE id = 1 FOR UPDATE"
@@ -386,19 +387,6 @@ class PostgresStore(PostgresReads):
             )  # fmt: skip
 
         self._db.run(work, write=True)
-
-    def public_keys(self) -> dict[str, str]:
-        rows = self._read(
-            "SELECT fingerprint, public_key FROM public_keys ORDER BY created_at, fingerprint"
-        )
-        return {fp: key for fp, key in rows}
-
-    def spent(self, label: str | None = None) -> float:
-        clause, params = "WHERE state IN ('queued', 'running', 'waiting', 'done')", []
-        if label is not None:
-            clause += " AND label = %s"
-            params.append(label)
-        return float(self._read(f"SELECT COALESCE(SUM(cost), 0) FROM jobs {clause}", params)[0][0])
 
     def set_meta(self, key: str, value: str) -> None:
         def work(conn: Conn) -> None:
