@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import asyncio
 import concurrent.futures
+import json
 import os
 import time
 import uuid
@@ -58,6 +59,22 @@ from jobkeeper.worker import Worker, WorkerStats
 
 T = TypeVar("T")
 CircuitInput = str | os.PathLike[str] | Circuit
+
+
+def _config_text(store: str | None) -> str:
+    """A new keep's config.toml; a store URL given at creation is remembered there, so
+    later commands need no --store (a URL holding a password is not written down)."""
+    if store is None:
+        return CONFIG_TEMPLATE
+    from urllib.parse import urlsplit
+
+    if urlsplit(store).password:
+        return CONFIG_TEMPLATE.replace(
+            "# jobkeeper keep configuration.",
+            "# jobkeeper keep configuration. Its store URL holds a password, so it is not\n"
+            "# written here: pass --store or set JOBKEEPER_STORE (or use ~/.pgpass).\n#",
+        )
+    return f"store = {json.dumps(store)}\n\n" + CONFIG_TEMPLATE
 
 
 def run_coroutine(coro: Coroutine[Any, Any, T]) -> T:
@@ -166,7 +183,8 @@ class Keeper:
             raise ConfigError(f"{keep} is not a directory")
         config = load_config(keep)
         if not (keep / CONFIG_NAME).exists() and create:
-            cls._write(keep / CONFIG_NAME, CONFIG_TEMPLATE)
+            cls._write(keep / CONFIG_NAME, _config_text(store))
+            config = load_config(keep)
         location = store or config.store or str(keep / ARCHIVE_NAME)
         if not create and not location.startswith("postgres") and not Path(location).exists():
             raise StoreUnavailable(f"no archive at {location} (run 'jobkeeper init' first)")
