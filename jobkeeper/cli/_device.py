@@ -1,0 +1,72 @@
+"""The loopback device command: a real HTTP device on this machine for rehearsal."""
+
+from __future__ import annotations
+
+import contextlib
+from typing import Annotated
+
+import click
+import typer
+
+from jobkeeper.cli._app import app
+from jobkeeper.exceptions import ConfigError
+
+
+@app.command("loopback-device")
+def loopback_device(
+    port: Annotated[int, typer.Option("--port", help="Port on 127.0.0.1.")] = 8765,
+    token: Annotated[
+        str | None,
+        typer.Option(
+            "--token",
+            envvar="JOBKEEPER_LOOPBACK_TOKEN",
+            help="Bearer token clients must send (better from the environment variable).",
+        ),
+    ] = None,
+    queue_delay: Annotated[
+        float, typer.Option("--queue-delay", help="Seconds each job waits before it runs.")
+    ] = 2.0,
+    fault_rate: Annotated[
+        float, typer.Option("--fault-rate", help="Share of requests given an injected fault.")
+    ] = 0.0,
+    seed: Annotated[int, typer.Option("--seed", help="Seed of faults and device choices.")] = 0,
+    faults: Annotated[
+        str | None,
+        typer.Option("--faults", help="Fault kinds to inject, comma-separated [default: all]."),
+    ] = None,
+    slow_delay: Annotated[
+        float, typer.Option("--slow-delay", help="Seconds a 'slow' fault stalls.")
+    ] = 35.0,
+    retry_after: Annotated[
+        int, typer.Option("--retry-after", help="Seconds the device asks for on 429/503.")
+    ] = 1,
+    max_qubits: Annotated[int, typer.Option("--max-qubits", help="Largest circuit taken.")] = 20,
+    host: Annotated[str, typer.Option("--host", help="A loopback address.")] = "127.0.0.1",
+) -> None:
+    """Run the loopback device: a real HTTP device on this machine for rehearsal."""
+    from jobkeeper.loopback import ALL_FAULTS, serve
+
+    kinds = tuple(ALL_FAULTS) if faults is None else tuple(
+        k.strip() for k in faults.split(",") if k.strip()
+    )  # fmt: skip
+    unknown = sorted(set(kinds) - set(ALL_FAULTS))
+    if unknown:
+        raise ConfigError(
+            f"unknown fault kinds {', '.join(unknown)}; known: {', '.join(ALL_FAULTS)}"
+        )
+    if not token:
+        raise ConfigError("give the device a token: --token or JOBKEEPER_LOOPBACK_TOKEN")
+    if not 0.0 <= fault_rate <= 1.0:
+        raise ConfigError("--fault-rate must be between 0 and 1")
+    typer.echo(
+        f"loopback device on http://{host}:{port} (queue delay {queue_delay} s, "
+        f"fault rate {fault_rate}, seed {seed}); stats at /stats; Ctrl-C stops it",
+        err=True,
+    )
+    # uvicorn re-raises the signal it stopped on: stopping is the normal end here.
+    with contextlib.suppress(KeyboardInterrupt, click.exceptions.Abort):
+        serve(
+            host, port, token=token, queue_delay=queue_delay, fault_rate=fault_rate, seed=seed,
+            faults=kinds, slow_delay=slow_delay, retry_after=retry_after, max_qubits=max_qubits,
+            log_level="warning",
+        )  # fmt: skip

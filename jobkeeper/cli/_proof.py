@@ -1,0 +1,195 @@
+"""Commands of proof and judgement: keys, verify, bundle, rerun, compare."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+from typing import Annotated, Any
+
+import typer
+
+from jobkeeper.cli._app import (
+    BackendOpt,
+    JsonOpt,
+    KeepOpt,
+    LabelOpt,
+    StoreOpt,
+    app,
+    echo_json,
+    open_keeper,
+)
+from jobkeeper.exceptions import ConfigError
+
+
+@app.command()
+def keys(
+    export: Annotated[
+        Path | None, typer.Option("--export", help="Write the public key here.")
+    ] = None,
+    rotate: Annotated[bool, typer.Option("--rotate", help="Make a new active key.")] = False,
+    keep: KeepOpt = None,
+    store: StoreOpt = None,
+    json_out: JsonOpt = False,
+) -> None:
+    """Show the signing key's public half and fingerprint; export or rotate it."""
+    import base64
+
+    keeper = open_keeper(keep, store)
+    if rotate:
+        keeper.keyring.rotate()
+        keeper._register_keys()
+    record = keeper.keyring.active_record()
+    public = base64.b64encode(record.raw).decode()
+    if export is not None:
+        export.write_text(
+            json.dumps({"fingerprint": record.fingerprint, "public_key": public}) + "\n"
+        )
+    if json_out:
+        echo_json({"fingerprint": record.fingerprint, "public_key": public})
+        return
+    typer.echo(f"fingerprint: {record.fingerprint}")
+    typer.echo(f"public key (base64, raw Ed25519): {public}")
+    others = [
+        r.fingerprint for r in keeper.keyring.public_keys() if r.fingerprint != record.fingerprint
+    ]
+    if others:
+        typer.echo(f"earlier keys still trusted for old entries: {', '.join(others)}")
+
+
+def _print_report(report: Any, json_out: bool, what: str) -> None:
+    if json_out:
+        echo_json(report.to_dict())
+    else:
+        verdict = "everything holds" if report.ok else f"{len(report.problems)} problem(s) found"
+        typer.echo(f"verified {report.checked} {what}: {verdict}")
+        for problem in report.problems:
+            typer.echo(f"  PROBLEM: {problem}")
+    for warning in report.warnings:
+        typer.echo(f"jobkeeper: warning: {warning}", err=True)
+    if not report.ok:
+        raise typer.Exit(1)
+
+
+@app.command()
+def verify(
+    targets: Annotated[
+        list[str] | None, typer.Argument(metavar="[JOB...|BUNDLE]", help="Jobs, or a bundle file.")
+    ] = None,
+    all_jobs: Annotated[bool, typer.Option("--all", help="Every done job in the keep.")] = False,
+    key: Annotated[
+        list[str] | None,
+        typer.Option("--key", help="Trust only this key fingerprint (repeatable)."),
+    ] = None,
+    keep: KeepOpt = None,
+    store: StoreOpt = None,
+    json_out: JsonOpt = False,
+) -> None:
+    """Check signatures, counts digests, log inclusion and checkpoint consistency."""
+    from jobkeeper.verification import verify_bundle_file, verify_jobs
+
+    targets = targets or []
+    if len(targets) == 1 and Path(targets[0]).is_file():
+        report = verify_bundle_file(Path(targets[0]), trusted=key)
+        _print_report(report, json_out, "bundle entries")
+        return
+    if not targets and not all_jobs:
+        raise ConfigError("give job ids, a bundle file, or --all")
+    keeper = open_keeper(keep, store, create=False)
+    ids = None if all_jobs else [keeper.job(t).id for t in targets]
+    what = "log entries (jobs and comparisons)" if all_jobs else "jobs"
+    _print_report(verify_jobs(keeper, ids, trusted=key), json_out, what)
+
+
+@app.command()
+def bundle(
+    job_ids: Annotated[
+        list[str] | None, typer.Argument(metavar="[JOB...]", help="Jobs to export.")
+    ] = None,
+    label: LabelOpt = None,
+    output: Annotated[
+        Path, typer.Option("-o", "--output", help="The bundle file to write.")
+    ] = Path("jobkeeper-bundle.json"),
+    keep: KeepOpt = None,
+    store: StoreOpt = None,
+    json_out: JsonOpt = False,
+) -> None:
+    """Export done jobs as one file that a referee can verify offline."""
+    from jobkeeper.verification import export_bundle
+
+    keeper = open_keeper(keep, store, create=False)
+    if label is None and not job_ids:
+        raise ConfigError("give job ids or --label")
+    ids = [keeper.job(j).id for j in job_ids or []]
+    if label is not None:
+        ids += [j.id for j in keeper.jobs(label=label, state="done")]
+    if not ids:
+        raise ConfigError(f"no done job with label {label!r}")
+    count = export_bundle(keeper, sorted(set(ids)), output)
+    fp = keeper.keyring.active_record().fingerprint
+    if json_out:
+        echo_json({"bundle": str(output), "jobs": count, "fingerprint": fp})
+    else:
+        typer.echo(f"wrote {count} job(s) to {output}")
+        typer.echo(f"a referee verifies it with: jobkeeper verify {output} --key {fp}")
+
+
+def _print_judgement(judgement: Any, json_out: bool) -> None:
+    if json_out:
+        echo_json(judgement.to_json())
+    else:
+        typer.echo(judgement.summary())
+        typer.echo(f"archived and signed as comparison {judgement.record.id[:12]}")
+    if judgement.record.verdict == "different":
+        raise typer.Exit(1)
+
+
+AlphaOpt = Annotated[
+    float, typer.Option("--alpha", min=1e-9, max=0.5, help="Significance level of the test.")
+]
+
+
+@app.command()
+def rerun(
+    job_id: Annotated[str, typer.Argument(metavar="JOB", help="The job to run again.")],
+    backend: BackendOpt = None,
+    seed: Annotated[
+        int | None, typer.Option("--seed", help="Another seed [default: the one used].")
+    ] = None,
+    alpha: AlphaOpt = 0.01,
+    keep: KeepOpt = None,
+    store: StoreOpt = None,
+    json_out: JsonOpt = False,
+) -> None:
+    """Run a job again from its signed manifest alone, and judge the two results."""
+    from jobkeeper.judging import rerun as do_rerun
+
+    keeper = open_keeper(keep, store, create=False)
+    _print_judgement(do_rerun(keeper, keeper.job(job_id), backend=backend, seed=seed,
+                              alpha=alpha), json_out)  # fmt: skip
+
+
+@app.command()
+def compare(
+    job_a: Annotated[str, typer.Argument(metavar="A", help="A job.")],
+    job_b: Annotated[str | None, typer.Argument(metavar="[B]", help="Another job.")] = None,
+    ideal: Annotated[
+        bool, typer.Option("--ideal", help="Compare A with its circuit's exact distribution.")
+    ] = False,
+    alpha: AlphaOpt = 0.01,
+    keep: KeepOpt = None,
+    store: StoreOpt = None,
+    json_out: JsonOpt = False,
+) -> None:
+    """Are two jobs' counts (or a job and the ideal) consistent? Exit 1 if different."""
+    from jobkeeper.judging import compare_ideal, compare_jobs
+
+    if (job_b is None) == (not ideal):
+        raise ConfigError("give two jobs, or one job and --ideal")
+    keeper = open_keeper(keep, store, create=False)
+    a = keeper.job(job_a)
+    if ideal:
+        judgement = compare_ideal(keeper, a, alpha=alpha)
+    else:
+        assert job_b is not None
+        judgement = compare_jobs(keeper, a, keeper.job(job_b), alpha=alpha)
+    _print_judgement(judgement, json_out)
