@@ -151,7 +151,8 @@ def test_a_thousand_jobs_in_flight_on_one_worker_stay_bounded(tmp_path: Path) ->
     import psutil
 
     pool = 16
-    with running_device(queue_delay=4.0, seed=9) as device:
+    # A queue delay long enough that all 1,000 are accepted before the first is done.
+    with running_device(queue_delay=10.0, seed=9) as device:
         keep = tmp_path / "keep"
         keep.mkdir()
         (keep / "config.toml").write_text(
