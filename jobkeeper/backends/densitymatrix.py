@@ -42,7 +42,7 @@ import numpy as np
 import numpy.typing as npt
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, model_validator
 
-from jobkeeper.backend import BackendInfo, Polled, Pricing, Result, Started, Task
+from jobkeeper.backend import BackendInfo, Pricing, Result, Task
 from jobkeeper.backends import _dm_state as dm
 from jobkeeper.backends import _kernels as kernels
 from jobkeeper.backends._dm_program import (
@@ -51,6 +51,7 @@ from jobkeeper.backends._dm_program import (
     DensityProgram,
     compile_density,
 )
+from jobkeeper.backends._local import RunsLocally
 from jobkeeper.backends._noise import (
     NOISE_KEYS,
     NoiseModel,
@@ -76,7 +77,6 @@ DEFAULT_MAX_BRANCHES = 1024
 BRANCH_FLOOR = 1e-12
 #: bytes per entry of ρ (complex128).
 BYTES_PER_ENTRY = 16
-_NO_HANDLES = "the densitymatrix backend finishes inside start: there is no handle {handle!r}"
 
 
 class _PricingTable(BaseModel):
@@ -130,7 +130,7 @@ def _parse(name: str, config: Mapping[str, Any]) -> tuple[_Config, NoiseModel]:
     return table, noise
 
 
-class DensityMatrixBackend:
+class DensityMatrixBackend(RunsLocally):
     """Exact noisy simulation of OpenQASM 2.0 circuits on this machine (picklable).
 
     Build it from configuration with :func:`from_config`, or directly from a
@@ -281,20 +281,6 @@ class DensityMatrixBackend:
         each operation contributes log10(1 − its error probability), see
         :func:`._noise.log10_success_probability` for the terms. 0.0 means no noise."""
         return log10_success_probability(circuit, self.noise)
-
-    async def start(self, task: Task, *, client_key: str) -> Started:
-        """Runs the task at once (idempotent: the same task and seed give the same
-        result); the client key is not needed."""
-        return Started(result=self.execute(task))
-
-    async def poll(self, handle: str) -> Polled:
-        raise PermanentBackendError(_NO_HANDLES.format(handle=handle))
-
-    async def cancel(self, handle: str) -> None:
-        raise PermanentBackendError(_NO_HANDLES.format(handle=handle))
-
-    async def aclose(self) -> None:
-        return None
 
     def _simulate(self, program: DensityProgram) -> dict[int, kernels.State]:
         """One unnormalised ρ per classical record (clbit c = bit c), its trace being

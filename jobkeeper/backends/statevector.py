@@ -32,9 +32,10 @@ from typing import Any
 
 import numpy as np
 
-from jobkeeper.backend import BackendInfo, Polled, Result, Started, Task
+from jobkeeper.backend import BackendInfo, Result, Task
 from jobkeeper.backends import _kernels as kernels
 from jobkeeper.backends._fusion import DEFAULT_MAX_WIDTH
+from jobkeeper.backends._local import RunsLocally
 from jobkeeper.backends._program import (
     Conditional,
     Gates,
@@ -67,7 +68,6 @@ BYTES_PER_AMPLITUDE = 32
 _CONFIG_KEYS = frozenset(
     {"adapter", "max_qubits", "max_memory_bytes", "max_branches", "fusion_width"}
 )
-_NO_HANDLES = "the statevector backend finishes inside start: there is no handle {handle!r}"
 
 
 _MEMORY_SEEN: list[tuple[float, int]] = []
@@ -114,7 +114,7 @@ def _int_option(config: Mapping[str, Any], key: str, default: int | None) -> int
     return value
 
 
-class StatevectorBackend:
+class StatevectorBackend(RunsLocally):
     """Exact simulation of OpenQASM 2.0 circuits on this machine (picklable)."""
 
     def __init__(self, name: str = "statevector", config: Mapping[str, Any] | None = None):
@@ -226,20 +226,6 @@ class StatevectorBackend:
             for block in step.blocks:
                 kernels.apply(state, circuit.num_qubits, block.matrix, block.qubits, block.kind)
         return state
-
-    async def start(self, task: Task, *, client_key: str) -> Started:
-        """Runs the task at once (idempotent: the same task and seed give the same
-        result); the client key is not needed."""
-        return Started(result=self.execute(task))
-
-    async def poll(self, handle: str) -> Polled:
-        raise PermanentBackendError(_NO_HANDLES.format(handle=handle))
-
-    async def cancel(self, handle: str) -> None:
-        raise PermanentBackendError(_NO_HANDLES.format(handle=handle))
-
-    async def aclose(self) -> None:
-        return None
 
     def _simulate(self, program: Program) -> tuple[dict[int, Floats], int]:
         """Exact outcome weights per classical record (before the final measurements),
