@@ -15,12 +15,14 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from jobkeeper.backends._gates import Matrix, embed
+from jobkeeper.backends._gates import Matrix, embed, kron
 from jobkeeper.backends._kernels import classify
 
 #: widest fused block: on a random layered 24-qubit circuit 5 beat 4 and 3 (fewer passes
 #: outweigh the dearer 32 × 32 products).
 DEFAULT_MAX_WIDTH = 5
+
+_I2 = np.eye(2, dtype=np.complex128)
 
 
 @dataclass(frozen=True, slots=True)
@@ -47,7 +49,7 @@ def _merge(blocks: list[_Open]) -> _Open:
     matrix: Matrix = np.ones((1, 1), dtype=np.complex128)
     for blk in blocks:
         qubits += blk.qubits
-        matrix = np.asarray(np.kron(matrix, blk.matrix), dtype=np.complex128)
+        matrix = kron(matrix, blk.matrix)
     return _Open(qubits, matrix)
 
 
@@ -55,6 +57,9 @@ def fuse(
     gates: list[tuple[tuple[int, ...], Matrix]], max_width: int = DEFAULT_MAX_WIDTH
 ) -> list[Block]:
     """Blocks whose product, applied in order, equals the gates applied in order."""
+    every = sorted({q for qubits, _ in gates for q in qubits}, reverse=True)
+    if len(every) <= max_width:
+        return [_one_block(gates, tuple(every))]
     out: list[Block] = []
     open_on: dict[int, _Open] = {}
 
@@ -78,7 +83,7 @@ def fuse(
         for q in qubits:
             if q not in merged.qubits:
                 merged.qubits.append(q)
-                merged.matrix = np.asarray(np.kron(merged.matrix, np.eye(2)), dtype=np.complex128)
+                merged.matrix = kron(merged.matrix, _I2)
         for blk in touched:
             for q in blk.qubits:
                 del open_on[q]
@@ -92,3 +97,16 @@ def fuse(
             seen.add(id(blk))
             out.append(_block(tuple(blk.qubits), blk.matrix))
     return out
+
+
+def _one_block(gates: list[tuple[tuple[int, ...], Matrix]], qubits: tuple[int, ...]) -> Block:
+    """All ``gates`` as one block on ``qubits`` (highest first, as the kernels order them):
+    what the general fuser ends with when everything fits one block, without its merging
+    bookkeeping (which cost more than simulating a small circuit)."""
+    place = {q: i for i, q in enumerate(qubits)}
+    matrix: Matrix | None = None
+    for gate_qubits, gate in gates:
+        full = embed(gate, tuple(place[q] for q in gate_qubits), len(qubits))
+        matrix = full if matrix is None else full @ matrix
+    assert matrix is not None
+    return _block(qubits, matrix)
