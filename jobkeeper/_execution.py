@@ -7,7 +7,7 @@ seed, options), never from the user's files: what ran is exactly what the manife
 from __future__ import annotations
 
 from jobkeeper.backend import LocalBackend, Result, Task
-from jobkeeper.circuit import parse_qasm
+from jobkeeper.circuit.canonical_read import read_canonical
 from jobkeeper.hashing import digest_of
 from jobkeeper.spec import effective_seed
 from jobkeeper.store import JobRecord
@@ -28,7 +28,7 @@ def seed_for(job: JobRecord) -> int:
 def build_task(job: JobRecord) -> Task:
     spec = job.spec
     text = str(spec["circuit"])
-    circuit = parse_qasm(text, filename=f"job {job.id}")
+    circuit = read_canonical(text, filename=f"job {job.id}")
     return Task(
         circuit=circuit,
         shots=job.shots,

@@ -19,6 +19,7 @@ from jobkeeper.circuit import (
     metrics,
     parse_qasm,
 )
+from jobkeeper.circuit.canonical_read import read_canonical
 from jobkeeper.exceptions import CircuitError
 from tests.conftest import SHARED
 
@@ -75,6 +76,8 @@ def test_corpus_file(corpus_dir: Path, rel: str) -> None:
     assert same_circuit(circuit, again)
     assert canonical_text(again) == text
     assert circuit_hash(again) == circuit_hash(circuit)
+    # The worker's fast reader of canonical text gives exactly what the parser gives.
+    assert read_canonical(text, filename="job") == parse_qasm(text, filename="job")
     m = metrics(circuit)
     assert sum(m.operation_counts.values()) == len(circuit.operations)
 
