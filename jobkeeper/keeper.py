@@ -23,7 +23,7 @@ from typing import Any, TypeVar
 
 from jobkeeper.backend import Backend, BackendInfo
 from jobkeeper.backends import DEFAULT_BACKENDS, create_backend
-from jobkeeper.circuit import Circuit, canonical_text, circuit_hash, load_qasm, parse_qasm
+from jobkeeper.circuit import Circuit, canonical_text, load_qasm, parse_qasm
 from jobkeeper.config import (
     ARCHIVE_NAME,
     CONFIG_NAME,
@@ -40,6 +40,7 @@ from jobkeeper.exceptions import (
     JobkeeperError,
     StoreUnavailable,
 )
+from jobkeeper.hashing import sha256_tag
 from jobkeeper.provenance.keys import KeyRing
 from jobkeeper.provenance.manifest import git_code_version
 from jobkeeper.queue import DEFAULT_LEASE, LeasePolicy, RetryPolicy
@@ -311,7 +312,7 @@ class Keeper:
                 exact=exact, options=dict(options or {}), rerun_of=rerun_of,
             )  # fmt: skip
             text = canonical_text(circuit)
-            chash = circuit_hash(circuit)
+            chash = sha256_tag(text.encode("utf-8"))  # circuit_hash, without writing it twice
             key = job_key(spec, circuit_hash=chash, backend_config_hash=info.config_hash)
             cost = info.pricing.cost(shots) if info.pricing is not None else None
             new_jobs.append(

@@ -19,7 +19,7 @@ from cryptography.exceptions import InvalidSignature
 from cryptography.hazmat.primitives.asymmetric.ed25519 import Ed25519PrivateKey, Ed25519PublicKey
 
 from jobkeeper.exceptions import ProvenanceError, VerificationError
-from jobkeeper.provenance.canonical import canonical_json
+from jobkeeper.hashing import canonical_json
 from jobkeeper.provenance.keys import fingerprint, load_public_key, public_key_bytes
 
 PAYLOAD_TYPE = "application/vnd.in-toto+json"

@@ -18,8 +18,7 @@ from pydantic import BaseModel, ConfigDict, Field, field_validator
 from pydantic.alias_generators import to_camel
 
 from jobkeeper.exceptions import ProvenanceError, VerificationError
-from jobkeeper.hashing import sha256_tag
-from jobkeeper.provenance.canonical import canonical_json
+from jobkeeper.hashing import canonical_json, sha256_tag
 from jobkeeper.provenance.dsse import strict_json_loads
 
 STATEMENT_TYPE = "https://in-toto.io/Statement/v1"

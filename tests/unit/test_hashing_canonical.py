@@ -9,8 +9,8 @@ import rfc8785
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from jobkeeper.hashing import canonical_json as reference
-from jobkeeper.provenance.canonical import canonical_json as fast
+from jobkeeper.hashing import canonical_json as fast
+from jobkeeper.hashing import reference_canonical_json as reference
 
 # Differential property (reference: the rfc8785 package, which reproduces the RFC 8785
 # author's published test outputs, see test_provenance_jcs.py).
