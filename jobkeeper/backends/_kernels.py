@@ -8,18 +8,21 @@ no Python loop runs over amplitudes; Python loops run over cache-sized chunks on
 
 Why the kernels look as they do (measured with ``benchmarks/bench_statevector.py`` and
 interleaved runs): numpy's elementwise complex arithmetic costs several passes over the
-data per gate, while one BLAS product per cache-sized chunk (half a MiB) costs one pass
-from memory. So a dense gate takes one of three routes: on the lowest qubits, rows of the
-state times the gate widened to those qubits, as a real product of interleaved (re, im)
-floats (OpenBLAS's real kernels run up to three times faster there than its complex
-ones); on consecutive higher qubits, products on blocks of the state in place; otherwise
-each chunk is gathered with the target axes first, multiplied and scattered back.
+data per gate, while one BLAS product per cache-sized chunk costs one pass from memory.
+So a dense gate takes one of four routes: on the lowest qubits, rows of the state times
+the gate widened to those qubits, as a real product of interleaved (re, im) floats
+(OpenBLAS's real kernels run up to three times faster there than its complex ones); a
+two-qubit gate on one high and one low qubit, as four such products on the two halves
+of the high qubit; on consecutive higher qubits, products on blocks of the state in
+place; otherwise each chunk is gathered with the target axes first, multiplied and
+scattered back.
 Diagonal gates multiply slices in place and permutation gates move slices.
 """
 
 from __future__ import annotations
 
 import itertools
+import threading
 from collections.abc import Iterator
 
 import numpy as np
@@ -29,8 +32,14 @@ from jobkeeper.backends._gates import Matrix, embed
 
 State = npt.NDArray[np.complex128]
 
-#: amplitudes per chunk (2^15 × 16 bytes = 512 KiB: two buffers stay in a 2 MiB cache).
-CHUNK = 1 << 15
+#: amplitudes per chunk on the gather route (2^14 × 16 bytes = 256 KiB: the chunk, its
+#: gathered copy and the product stay in the 2 MiB L2 cache; 512 KiB chunks measured up
+#: to a fifth slower at 24 qubits).
+CHUNK = 1 << 14
+#: amplitudes per chunk on the low route, by width in qubits: OpenBLAS's real product
+#: slows down past a size that falls as rows widen (rows of 32 floats: 0.43 of copy
+#: bandwidth with 2^13 amplitudes per product, 0.30 with 2^14).
+LOW_CHUNK = {2: 1 << 14, 3: 1 << 14, 4: 1 << 13, 5: 1 << 12, 6: 1 << 12}
 #: dense gates whose targets all lie below this qubit act on the low qubits as one
 #: block of rows (no gather): the gate widened to 2^4 × 2^4 costs less than a gather;
 #: below LOW_QUBITS_DENSE too when widening adds at most two qubits (measured with
@@ -38,9 +47,27 @@ CHUNK = 1 << 15
 #: blocks on qubits 0-4 too).
 LOW_QUBITS = 4
 LOW_QUBITS_DENSE = 6
+#: a two-qubit gate on one high qubit and one below this takes the split route: four
+#: low-route products on the two halves of the high qubit.
+SPLIT_LOW = 3
 #: consecutive targets t..t+k-1 with t + k at least this skip the gather: the products
-#: on (2^k × 2^t) blocks in place beat gathering once blocks reach 2^7 amplitudes.
-DIRECT_BLOCK = 7
+#: on (2^k × 2^t) blocks in place beat gathering once blocks reach 2^8 amplitudes.
+DIRECT_BLOCK = 8
+
+_local = threading.local()
+
+
+def _scratch(slot: int, size: int) -> State:
+    """A per-thread buffer of ``size`` amplitudes, kept across calls: a fresh 256 KiB
+    buffer per gate costs page faults on first touch, and local backends may run in
+    threads, so buffers are not shared between them."""
+    buffers: dict[int, State] | None = getattr(_local, "buffers", None)
+    if buffers is None:
+        buffers = _local.buffers = {}
+    buf = buffers.get(slot)
+    if buf is None or buf.size < size:
+        buf = buffers[slot] = np.empty(size, dtype=np.complex128)
+    return buf[:size]
 
 
 def _view_shape(n: int, desc: tuple[int, ...]) -> tuple[int, ...]:
@@ -98,31 +125,49 @@ def apply_dense(state: State, n: int, matrix: Matrix, qubits: tuple[int, ...]) -
     matrix, desc = reorder(matrix, qubits)
     k = len(desc)
     if desc[0] < LOW_QUBITS or (desc[0] < LOW_QUBITS_DENSE and desc[0] + 1 - k <= 2):
-        _apply_low(state, matrix, desc)
+        _apply_low(state, n, matrix, desc)
+        return
+    if k == 2 and desc[1] < SPLIT_LOW:
+        _apply_split(state, matrix, desc)
         return
     if desc[0] - desc[-1] == k - 1 and desc[-1] + k >= DIRECT_BLOCK:
         # Consecutive targets with enough amplitudes below them: (D × D) times (D × 2^t)
         # blocks straight from the state, no gather.
         _apply_consecutive(state.reshape(-1, 1 << k, 1 << desc[-1]), matrix)
         return
+    _apply_gathered(state, n, matrix, desc)
+
+
+def _apply_gathered(state: State, n: int, matrix: Matrix, desc: tuple[int, ...]) -> None:
+    k = len(desc)
     shape = _view_shape(n, desc)
     view = state.reshape(shape)
     first = [*range(1, 2 * k, 2), *range(0, 2 * k + 1, 2)]
-    buf_in = np.empty(max(CHUNK, 1 << k), dtype=np.complex128)
-    buf_out = np.empty_like(buf_in)
-    # One copy per target pattern: a single transposed copy would run its inner loop over
-    # a target axis of length 2 (measured up to twice as slow).
+    size = max(CHUNK, 1 << k)
+    buf_in, buf_out = _scratch(0, size), _scratch(1, size)
+    # With at least 8 amplitudes below the lowest target, one transposed copy per chunk
+    # runs its inner loop over them (at 24 qubits 0.35-0.38 of copy bandwidth on qubits
+    # 4-6 against 0.30-0.34 with one copy per target pattern); below that, the inner loop
+    # of a single copy would run over a target axis of length 2 (up to twice as slow),
+    # so each target pattern is copied on its own.
+    whole = desc[-1] >= 3
     patterns = [tuple((p >> (k - 1 - j)) & 1 for j in range(k)) for p in range(1 << k)]
     for index in _chunks(shape):
         chunk = view[index].transpose(first)
         size = chunk.size
-        gathered = buf_in[:size].reshape(1 << k, *chunk.shape[k:])
-        result = buf_out[:size].reshape(gathered.shape)
-        for p, pattern in enumerate(patterns):
-            np.copyto(gathered[p], chunk[pattern])
+        gathered = buf_in[:size].reshape(chunk.shape)
+        result = buf_out[:size].reshape(chunk.shape)
+        if whole:
+            np.copyto(gathered, chunk)
+        else:
+            for pattern in patterns:
+                np.copyto(gathered[pattern], chunk[pattern])
         np.matmul(matrix, gathered.reshape(1 << k, -1), out=result.reshape(1 << k, -1))
-        for p, pattern in enumerate(patterns):
-            np.copyto(chunk[pattern], result[p])
+        if whole:
+            np.copyto(chunk, result)
+        else:
+            for pattern in patterns:
+                np.copyto(chunk[pattern], result[pattern])
 
 
 def _real_right(matrix: Matrix) -> npt.NDArray[np.float64]:
@@ -140,26 +185,67 @@ def _real_right(matrix: Matrix) -> npt.NDArray[np.float64]:
     return out
 
 
-def _rows_times(rows: State, right: npt.NDArray[np.float64], out: State) -> None:
-    """out = rows @ matrix.T for contiguous complex rows, via the real form."""
-    width = right.shape[0]
-    np.matmul(
-        rows.view(np.float64).reshape(-1, width), right, out=out.view(np.float64).reshape(-1, width)
-    )
+def _low_right(matrix: Matrix, desc: tuple[int, ...], width: int) -> npt.NDArray[np.float64]:
+    return _real_right(embed(matrix, tuple(width - 1 - q for q in desc), width))
 
 
-def _apply_low(state: State, matrix: Matrix, desc: tuple[int, ...]) -> None:
-    # Rows of 2^w amplitudes times the gate widened to the w lowest qubits.
-    width = desc[0] + 1
-    right = _real_right(embed(matrix, tuple(width - 1 - q for q in desc), width))
-    rows = state.reshape(-1, 1 << width)
-    step = max(1, CHUNK >> width)
-    buf = np.empty((min(step, rows.shape[0]), 1 << width), dtype=np.complex128)
+def _apply_low(state: State, n: int, matrix: Matrix, desc: tuple[int, ...]) -> None:
+    # Rows of 2^w amplitudes times the gate widened to the w lowest qubits; at least two
+    # qubits wide, as rows of 8 floats run faster than rows of 4 (0.83 against 1.13 ns
+    # per amplitude in cache).
+    width = min(max(desc[0] + 1, 2), n)
+    right = _low_right(matrix, desc, width)
+    rows = state.view(np.float64).reshape(-1, 2 << width)
+    step = min(max(1, LOW_CHUNK.get(width, CHUNK) >> width), rows.shape[0])
+    held = _scratch(0, step << width).view(np.float64).reshape(step, -1)
     for start in range(0, rows.shape[0], step):
         part = rows[start : start + step]
-        out = buf[: part.shape[0]]
-        _rows_times(np.ascontiguousarray(part), right, out)
-        part[...] = out
+        # Copy first, then the product writes the state: the copy streams from memory
+        # faster than the product reads it (0.62 of copy bandwidth against 0.50).
+        buf = held[: part.shape[0]]
+        np.copyto(buf, part)
+        np.matmul(buf, right, out=part)
+
+
+def _apply_split(state: State, matrix: Matrix, desc: tuple[int, ...]) -> None:
+    # A high qubit h and a low qubit l: the halves h = 0 and h = 1 of a chunk are rows of
+    # the low route, and out_i = sum_j rows_j @ R_ij with R_ij the gate's 2 × 2 block
+    # (i, j) acting on l, widened. Four products of 8-float rows beat gathering such a
+    # pair (measured 0.2 of copy bandwidth for the gather at 24 qubits).
+    high, low = desc
+    width = max(low + 1, 2)
+    rights = [
+        [_low_right(matrix[2 * i : 2 * i + 2, 2 * j : 2 * j + 2], (low,), width) for j in (0, 1)]
+        for i in (0, 1)
+    ]
+    view = state.reshape(-1, 2, 1 << high)
+    span = min(1 << high, CHUNK // 2)
+    per = max(1, (CHUNK // 2) >> high)
+    bufs = [_scratch(slot, per * span) for slot in range(5)]
+
+    def rows(x: State) -> npt.NDArray[np.float64]:
+        return x.view(np.float64).reshape(-1, 2 << width)
+
+    for a in range(0, view.shape[0], per):
+        for b in range(0, 1 << high, span):
+            part = view[a : a + per, :, b : b + span]
+            count = part.shape[0]
+            size = count * span
+            held = [bufs[j][:size] for j in (0, 1)]
+            for j in (0, 1):
+                np.copyto(held[j].reshape(count, span), part[:, j])
+            # A chunk within one row of the view is contiguous: the products write the
+            # state; otherwise they write buffers that are copied back.
+            outs = [part[0, i] if count == 1 else bufs[2 + i][:size] for i in (0, 1)]
+            tmp = rows(bufs[4][:size])
+            for i in (0, 1):
+                out = rows(outs[i])
+                np.matmul(rows(held[0]), rights[i][0], out=out)
+                np.matmul(rows(held[1]), rights[i][1], out=tmp)
+                np.add(out, tmp, out=out)
+            if count > 1:
+                for i in (0, 1):
+                    np.copyto(part[:, i], outs[i].reshape(count, span))
 
 
 def _apply_consecutive(view: State, matrix: Matrix) -> None:
