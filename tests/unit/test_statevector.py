@@ -19,12 +19,15 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from scipy import stats
 
 from jobkeeper.backend import LocalBackend, Task
 from jobkeeper.backends import create_backend
 from jobkeeper.backends._sampling import draw
 from jobkeeper.backends.statevector import StatevectorBackend, from_config
+from jobkeeper.circuit.ir import Register
 from jobkeeper.exceptions import ConfigError, PermanentBackendError
 from jobkeeper.hashing import digest_of
 from tests.unit.test_statevector_helpers import circuit, exact, measure, op, tvd
@@ -269,3 +272,31 @@ def test_opaque_and_malformed_operations_are_refused() -> None:
         StatevectorBackend().execute(Task(circuit(1, []), -1))
     with pytest.raises(PermanentBackendError, match="seed"):
         StatevectorBackend().execute(Task(circuit(1, []), 1, seed=-5))
+
+
+@settings(max_examples=200, deadline=None)
+@given(
+    st.lists(st.integers(1, 5), min_size=1, max_size=4),
+    st.data(),
+)
+def test_bit_strings_of_few_and_many_outcomes_agree(sizes: list[int], data: st.DataObject) -> None:
+    # Two ways to write bit strings (one by one, and vectorised for many outcomes): both
+    # must follow the OpenQASM 2 convention the same way for any registers and any set of
+    # finally measured bits (the record supplies the others).
+    from jobkeeper.backends import _sampling
+
+    cregs, offset = [], 0
+    for k, size in enumerate(sizes):
+        cregs.append(Register(f"c{k}", size, offset))
+        offset += size
+    final = data.draw(st.lists(st.sampled_from(range(offset)), unique=True, max_size=offset))
+    record = data.draw(st.integers(0, (1 << offset) - 1))
+    formatter = _sampling.BitFormatter(cregs, offset, sorted(final))
+    outcomes = np.arange(1 << len(final), dtype=np.int64)
+    one_by_one = [formatter._one(record, int(o)) for o in outcomes]
+    saved = _sampling.SMALL_FORMAT
+    try:
+        _sampling.SMALL_FORMAT = -1
+        assert formatter.format(record, outcomes) == one_by_one
+    finally:
+        _sampling.SMALL_FORMAT = saved
