@@ -10,6 +10,7 @@ one per bit of the size), so an append costs O(log n) hashes however long the lo
 from __future__ import annotations
 
 import datetime as dt
+import functools
 import platform
 import sys
 from collections.abc import Mapping, Sequence
@@ -40,11 +41,16 @@ HASH_SIZE = 32
 def rfc3339(seconds: float | None) -> str | None:
     if seconds is None:
         return None
-    moment = dt.datetime.fromtimestamp(seconds, tz=dt.UTC)
-    return moment.strftime("%Y-%m-%dT%H:%M:%S.%f")[:-3] + "Z"
+    moment = dt.datetime.fromtimestamp(seconds, tz=dt.UTC).replace(tzinfo=None)
+    return moment.isoformat(timespec="milliseconds") + "Z"
 
 
 def software_versions() -> dict[str, str]:
+    return dict(_software_versions())
+
+
+@functools.cache
+def _software_versions() -> dict[str, str]:
     return {
         "jobkeeper": __version__,
         "python": platform.python_version(),
@@ -153,7 +159,9 @@ class Sealer:
     ) -> Completion:
         counts: Mapping[str, int] = dict(result.counts or {})
         statement = build_statement(counts, self.predicate(claim, result, info, attempts))
-        envelope = sign_envelope(statement_bytes(statement), PAYLOAD_TYPE, self.key)
+        envelope = sign_envelope(
+            statement_bytes(statement), PAYLOAD_TYPE, self.key, keyid=self.fingerprint
+        )
         return Completion(
             job_id=claim.job.id,
             token=claim.token,
@@ -176,7 +184,11 @@ class Sealer:
             "predicateType": COMPARISON_PREDICATE_TYPE,
             "predicate": predicate,
         }
-        return envelope_bytes(sign_envelope(statement_bytes(statement), PAYLOAD_TYPE, self.key))
+        return envelope_bytes(
+            sign_envelope(
+                statement_bytes(statement), PAYLOAD_TYPE, self.key, keyid=self.fingerprint
+            )
+        )
 
     def appender(
         self, state: bytes | None, size: int, envelopes: Sequence[bytes]

@@ -112,14 +112,20 @@ def strict_json_loads(data: bytes | str, what: str) -> Any:
         raise VerificationError(f"{what} is nested too deeply") from None
 
 
-def sign_envelope(body: bytes, payload_type: str, key: Ed25519PrivateKey) -> dict[str, Any]:
-    """A DSSE envelope over ``body`` signed with ``key`` (keyid = key fingerprint)."""
+def sign_envelope(
+    body: bytes, payload_type: str, key: Ed25519PrivateKey, *, keyid: str | None = None
+) -> dict[str, Any]:
+    """A DSSE envelope over ``body`` signed with ``key``; ``keyid`` is the key's
+    fingerprint (given by a caller that signs often, computed otherwise)."""
     signature = key.sign(pae(payload_type, body))
     return {
         "payload": base64.b64encode(body).decode("ascii"),
         "payloadType": payload_type,
         "signatures": [
-            {"keyid": fingerprint(key), "sig": base64.b64encode(signature).decode("ascii")}
+            {
+                "keyid": fingerprint(key) if keyid is None else keyid,
+                "sig": base64.b64encode(signature).decode("ascii"),
+            }
         ],
     }
 
