@@ -86,3 +86,24 @@ def test_one_and_two_qubit_registers() -> None:
         expected = _expected(state, matrix, qubits)
         kernels.apply_dense(state, n, matrix, qubits)
         assert np.allclose(state, expected, atol=1e-12), (n, qubits)
+
+
+def test_high_target_with_matrices_that_are_not_phased_rotations(chunking: int | None) -> None:
+    # The high single-target route writes a unitary as phases around a real rotation;
+    # a zero entry or a matrix that is not unitary (a noise channel's operator) must
+    # take another route with the same result.
+    rng = np.random.default_rng(5)
+    hadamard_like = np.array([[1, 1], [1, -1]]) / np.sqrt(2)
+    matrices = [
+        hadamard_like,
+        np.array([[0, 1j], [1, 0]]),
+        np.array([[0.6, 0], [0.3j, 0.8]]),
+        rng.normal(size=(2, 2)) + 1j * rng.normal(size=(2, 2)),
+        _random_unitary(rng, 1),
+    ]
+    for matrix in matrices:
+        for target in (N - 1, N - 3, 4):
+            state = rng.normal(size=1 << N) + 1j * rng.normal(size=1 << N)
+            expected = _expected(state, matrix.astype(complex), (target,))
+            kernels.apply_dense(state, N, matrix.astype(complex), (target,))
+            assert np.allclose(state, expected, atol=1e-12), (matrix, target)
