@@ -34,7 +34,7 @@ import numpy as np
 
 from jobkeeper.backend import BackendInfo, Result, Task
 from jobkeeper.backends import _kernels as kernels
-from jobkeeper.backends._fusion import DEFAULT_MAX_WIDTH
+from jobkeeper.backends._fusion import DEFAULT_MAX_WIDTH, Block
 from jobkeeper.backends._local import RunsLocally
 from jobkeeper.backends._program import (
     Conditional,
@@ -244,7 +244,7 @@ class StatevectorBackend(RunsLocally):
                 index += 1
                 if isinstance(step, Gates):
                     for block in step.blocks:
-                        kernels.apply(state, n, block.matrix, block.qubits, block.kind)
+                        _apply(state, n, block)
                     continue
                 if step.condition is not None and not _holds(step.condition, record):
                     continue
@@ -279,6 +279,20 @@ class StatevectorBackend(RunsLocally):
             else:
                 records[record] = probs
         return records, branches
+
+
+def _apply(state: kernels.State, n: int, block: Block) -> None:
+    if len(block.qubits) == n and block.qubits == _descending(n):
+        # A block on every qubit, highest first: its index is the state's index, so it is
+        # one matrix-vector product (small circuits fuse into exactly this).
+        state[...] = block.matrix @ state
+    else:
+        kernels.apply(state, n, block.matrix, block.qubits, block.kind)
+
+
+@functools.cache
+def _descending(n: int) -> tuple[int, ...]:
+    return tuple(range(n - 1, -1, -1))
 
 
 def _initial_state(num_qubits: int) -> kernels.State:
