@@ -137,9 +137,10 @@ def apply_dense(state: State, n: int, matrix: Matrix, qubits: tuple[int, ...]) -
         if factors is not None:
             _apply_rotation(state.reshape(-1, 2, 1 << desc[0]), *factors)
             return
-    if desc[0] - desc[-1] == k - 1 and desc[-1] + k >= DIRECT_BLOCK:
-        # Consecutive targets with enough amplitudes below them: (D × D) times (D × 2^t)
-        # blocks straight from the state, no gather.
+    if desc[0] - desc[-1] == k - 1 and (desc[-1] + k >= DIRECT_BLOCK or 1 << n <= CHUNK):
+        # Consecutive targets with enough amplitudes below them, or a state of one chunk
+        # (one product, against a gather's copies: 8 against 18 µs at 8 qubits): (D × D)
+        # times (D × 2^t) blocks straight from the state, no gather.
         _apply_consecutive(state.reshape(-1, 1 << k, 1 << desc[-1]), matrix)
         return
     _apply_gathered(state, n, matrix, desc)
