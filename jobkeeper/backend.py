@@ -135,6 +135,11 @@ class Backend(Protocol):
 @runtime_checkable
 class LocalBackend(Backend, Protocol):
     """A backend that computes on this machine. The worker calls ``execute`` in a worker
-    process (so the backend object must be picklable) instead of ``start``."""
+    process (so the backend object must be picklable) instead of ``start``.
+
+    A backend may also set ``inline_qubits`` (an int): circuits up to that many qubits
+    (and at most a few hundred operations) finish in well under a millisecond, so the
+    worker runs them on its own thread rather than paying a hand-off. Without it, nothing
+    runs inline."""
 
     def execute(self, task: Task) -> Result: ...

@@ -55,24 +55,26 @@ BackendResolver = Callable[[str], Backend]
 
 #: Circuits this small are simulated on a thread of the worker, larger ones in a process.
 SMALL_CIRCUIT_QUBITS = 10
-#: Circuits this small (qubits, operations, measurements and resets) run on the event loop
-#: itself: a few hundred microseconds at most, less than handing them to a thread costs
-#: (the hand-off and the contention for the interpreter lock were measured at a third of
-#: the worker's time on 2-qubit jobs). The measurement bound keeps mid-circuit branching
-#: to at most 2^8 branches of at most 256 operations.
-INLINE_QUBITS = 8
+#: Circuits this small run on the event loop itself when their backend says it is quick
+#: at that size (``inline_qubits``, see LocalBackend): less than handing them to a thread
+#: costs (the hand-off and the contention for the interpreter lock were measured at a
+#: third of the worker's time on 2-qubit jobs). The operation bound, and at most one
+#: measurement or reset per qubit, keep the loop from being held for long.
 INLINE_OPERATIONS = 256
 #: Finished jobs archived per commit, and how long to wait for company.
 GROUP_COMMIT = 32
 GROUP_COMMIT_WAIT = 0.004
 
 
-def _runs_inline(task: Task) -> bool:
+def _runs_inline(task: Task, backend: LocalBackend) -> bool:
+    limit = getattr(backend, "inline_qubits", 0)
     circuit = task.circuit
-    if circuit.num_qubits > INLINE_QUBITS or len(circuit.operations) > INLINE_OPERATIONS:
+    if not isinstance(limit, int) or circuit.num_qubits > limit:
+        return False
+    if len(circuit.operations) > INLINE_OPERATIONS:
         return False
     collapsing = sum(1 for op in circuit.operations if op.name in ("measure", "reset"))
-    return collapsing <= INLINE_QUBITS
+    return collapsing <= circuit.num_qubits
 
 
 @dataclass
@@ -345,7 +347,7 @@ class Worker:
         task = build_task(claim.job)
         if self._is_local(claim.job.backend, backend):
             local = cast(LocalBackend, backend)
-            if _runs_inline(task):
+            if _runs_inline(task, local):
                 result = local.execute(task)
             else:
                 async with self._local_slots:
