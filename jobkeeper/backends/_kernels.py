@@ -32,19 +32,16 @@ from jobkeeper.backends._gates import Matrix, embed
 
 State = npt.NDArray[np.complex128]
 
-#: amplitudes per chunk on the gather route (2^14 × 16 bytes = 256 KiB: the chunk, its
-#: gathered copy and the product stay in the 2 MiB L2 cache; 512 KiB chunks measured up
-#: to a fifth slower at 24 qubits).
+#: amplitudes per chunk (2^14 × 16 bytes = 256 KiB: chunk, copy and product stay in the
+#: 2 MiB L2 cache; 512 KiB chunks measured up to a fifth slower at 24 qubits).
 CHUNK = 1 << 14
 #: amplitudes per chunk on the low route, by width in qubits: OpenBLAS's real product
 #: slows down past a size that falls as rows widen (rows of 32 floats: 0.43 of copy
 #: bandwidth with 2^13 amplitudes per product, 0.30 with 2^14).
 LOW_CHUNK = {2: 1 << 14, 3: 1 << 14, 4: 1 << 13, 5: 1 << 12, 6: 1 << 12}
-#: dense gates whose targets all lie below this qubit act on the low qubits as one
-#: block of rows (no gather): the gate widened to 2^4 × 2^4 costs less than a gather;
-#: below LOW_QUBITS_DENSE too when widening adds at most two qubits (measured with
-#: interleaved runs: 1-2 qubits on qubits 0-1 twice as fast as gathering, 5-qubit
-#: blocks on qubits 0-4 too).
+#: dense gates whose targets all lie below this qubit act on the low qubits as rows (no
+#: gather), and below LOW_QUBITS_DENSE when widening adds at most two qubits (1-2 qubits
+#: on qubits 0-1 twice as fast as gathering, 5-qubit blocks on qubits 0-4 too).
 LOW_QUBITS = 4
 LOW_QUBITS_DENSE = 6
 #: a two-qubit gate on one high qubit and one below this takes the split route: four
@@ -61,9 +58,8 @@ _local = threading.local()
 
 
 def _scratch(slot: int, size: int) -> State:
-    """A per-thread buffer of ``size`` amplitudes, kept across calls: a fresh 256 KiB
-    buffer per gate costs page faults on first touch, and local backends may run in
-    threads, so buffers are not shared between them."""
+    """A per-thread buffer of ``size`` amplitudes kept across calls (a fresh one costs
+    page faults on first touch; local backends may run in threads)."""
     buffers: dict[int, State] | None = getattr(_local, "buffers", None)
     if buffers is None:
         buffers = _local.buffers = {}
@@ -150,33 +146,42 @@ def apply_dense(state: State, n: int, matrix: Matrix, qubits: tuple[int, ...]) -
 def _apply_gathered(state: State, n: int, matrix: Matrix, desc: tuple[int, ...]) -> None:
     k = len(desc)
     shape = _view_shape(n, desc)
-    view = state.reshape(shape)
-    first = [*range(1, 2 * k, 2), *range(0, 2 * k + 1, 2)]
     size = max(CHUNK, 1 << k)
     buf_in, buf_out = _scratch(0, size), _scratch(1, size)
-    # With at least 8 amplitudes below the lowest target, one transposed copy per chunk
-    # runs its inner loop over them (at 24 qubits 0.35-0.38 of copy bandwidth on qubits
-    # 4-6 against 0.30-0.34 with one copy per target pattern); below that, the inner loop
-    # of a single copy would run over a target axis of length 2 (up to twice as slow),
-    # so each target pattern is copied on its own.
-    whole = desc[-1] >= 3
+    if desc[-1] >= 3 and shape[-1] << k <= CHUNK:
+        # The runs below the lowest target as single opaque items: one transposed copy
+        # of them per chunk runs faster than numpy's copy of short complex runs (at 24
+        # qubits: pair (4, 3) 0.25 of copy bandwidth against 0.20, qubit 5 0.29 against
+        # 0.26) and than one copy per target pattern (qubits 4-6: 0.30-0.34).
+        item = np.dtype((np.void, 16 * shape[-1]))
+        items = state.view(item).reshape(shape[:-1])
+        first = [*range(1, 2 * k, 2), *range(0, 2 * k, 2)]
+        items_in, items_out = buf_in.view(item), buf_out.view(item)
+        for index in _chunks(shape):
+            runs = items[index[:-1]].transpose(first)
+            count = runs.size
+            np.copyto(items_in[:count].reshape(runs.shape), runs)
+            amps = count * shape[-1]
+            np.matmul(
+                matrix, buf_in[:amps].reshape(1 << k, -1), out=buf_out[:amps].reshape(1 << k, -1)
+            )
+            np.copyto(runs, items_out[:count].reshape(runs.shape))
+        return
+    # Few amplitudes below the lowest target: one copy per target pattern, as a single
+    # transposed copy would run its inner loop over a target axis of length 2 (measured
+    # up to twice as slow).
+    view = state.reshape(shape)
+    first = [*range(1, 2 * k, 2), *range(0, 2 * k + 1, 2)]
     patterns = [tuple((p >> (k - 1 - j)) & 1 for j in range(k)) for p in range(1 << k)]
     for index in _chunks(shape):
         chunk = view[index].transpose(first)
-        size = chunk.size
-        gathered = buf_in[:size].reshape(chunk.shape)
-        result = buf_out[:size].reshape(chunk.shape)
-        if whole:
-            np.copyto(gathered, chunk)
-        else:
-            for pattern in patterns:
-                np.copyto(gathered[pattern], chunk[pattern])
+        gathered = buf_in[: chunk.size].reshape(chunk.shape)
+        result = buf_out[: chunk.size].reshape(chunk.shape)
+        for pattern in patterns:
+            np.copyto(gathered[pattern], chunk[pattern])
         np.matmul(matrix, gathered.reshape(1 << k, -1), out=result.reshape(1 << k, -1))
-        if whole:
-            np.copyto(chunk, result)
-        else:
-            for pattern in patterns:
-                np.copyto(chunk[pattern], result[pattern])
+        for pattern in patterns:
+            np.copyto(chunk[pattern], result[pattern])
 
 
 def _real_right(matrix: Matrix) -> npt.NDArray[np.float64]:
