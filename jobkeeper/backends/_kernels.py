@@ -7,15 +7,15 @@ even positions, target axes (size 2) at odd ones. No 2^n × 2^n matrix is ever b
 no Python loop runs over amplitudes; Python loops run over cache-sized chunks only.
 
 Why the kernels look as they do (measured at 24 qubits, as a ratio to np.copyto's
-bandwidth, in interleaved runs): one numpy operation per cache-sized chunk already costs
-0.9 of a copy (0.73 for complex arithmetic), so a gate must be few operations per chunk,
-and OpenBLAS's real products are the cheapest ones. A dense gate takes one of five
+bandwidth, in interleaved runs): a pass with a single numpy operation per cache-sized
+chunk reaches only 0.9 of it (0.73 with complex arithmetic), so a gate must be few
+operations per chunk, and OpenBLAS's real products are the cheapest ones. A dense gate takes one of five
 routes: on the lowest qubits, rows of the state times the gate widened to them, as a
 real product of interleaved (re, im) floats; a high and a low qubit, four such products
 on the two halves of the high qubit; a high single qubit, phases around a real rotation;
 consecutive higher qubits, complex products on blocks in place; otherwise each chunk is
 gathered with the target axes first, multiplied and scattered back (on qubits 4-5 the
-gather and scatter alone cost 0.47-0.52 of a copy, on the pair (4, 3) 0.32).
+gather and scatter alone reach 0.50-0.58 of copy bandwidth, on the pair (4, 3) 0.44).
 Diagonal gates multiply slices in place and permutation gates move slices.
 """
 
