@@ -13,7 +13,7 @@ import datetime as dt
 import functools
 import platform
 import sys
-from collections.abc import Mapping, Sequence
+from collections.abc import Sequence
 from typing import Any
 
 import numpy as np
@@ -151,14 +151,15 @@ class Sealer:
                 }
                 for a in attempts
             ],
-            "counts": dict(result.counts or {}),
+            # As the backend gave them (a dict, or a CountTable that writes its own JSON).
+            "counts": result.counts if result.counts is not None else {},
         }
 
     def seal(
         self, claim: Claim, result: Result, info: BackendInfo, attempts: Sequence[Attempt]
     ) -> Completion:
-        counts: Mapping[str, int] = dict(result.counts or {})
-        statement = build_statement(counts, self.predicate(claim, result, info, attempts))
+        predicate = self.predicate(claim, result, info, attempts)
+        statement = build_statement(predicate["counts"], predicate)
         envelope = sign_envelope(
             statement_bytes(statement), PAYLOAD_TYPE, self.key, keyid=self.fingerprint
         )

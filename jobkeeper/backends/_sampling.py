@@ -11,17 +11,21 @@ ascending order of their bits as an integer (clbit c = bit c), then, for each re
 that order with shots, one ``multinomial`` over its final outcomes as above. Each draw's
 probabilities are normalised and rounded to 13 decimal places first. The same seed and
 numpy version give the same counts anywhere.
+
+Counts come back as a dict, or, past TABLE_FROM distinct outcomes, as a
+:class:`~jobkeeper.counts.CountTable`: the same mapping, kept as arrays.
 """
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 
 import numpy as np
 import numpy.typing as npt
 
 from jobkeeper.backends._kernels import State
 from jobkeeper.circuit.ir import Register
+from jobkeeper.counts import CountTable, Rows, strings_of_rows
 
 Floats = npt.NDArray[np.float64]
 Ints = npt.NDArray[np.int64]
@@ -35,6 +39,9 @@ SAMPLING_DECIMALS = 13
 NOISE_FLOOR = 1e-15
 #: up to this many outcomes are formatted one by one in Python, more with numpy at once.
 SMALL_FORMAT = 32
+#: more distinct outcomes than this come as a CountTable (arrays) rather than a dict: a
+#: dict of half a million bit strings took 2.5 times as long to build as the draw itself.
+TABLE_FROM = 4096
 
 
 def marginal(state: State, n: int, qubits: Sequence[int]) -> Floats:
@@ -106,6 +113,11 @@ class BitFormatter:
             for i in range(length)
         }
 
+    @property
+    def width(self) -> int:
+        """Characters in a bit string (bits and the spaces between registers)."""
+        return len(self._clbits)
+
     def format(self, record: int, outcomes: Ints) -> list[str]:
         """Bit strings of ``outcomes`` (indices over the final measurements)."""
         count, width = len(outcomes), len(self._clbits)
@@ -113,9 +125,14 @@ class BitFormatter:
             return [""] * count
         if count <= SMALL_FORMAT:
             return [self._one(record, outcome) for outcome in outcomes.tolist()]
-        # One row of ASCII per outcome plus a newline; one decode and one split make the
-        # strings (per-outcome Python formatting would cost more than the draw itself).
-        chars = np.empty((count, width + 1), dtype=np.uint8)
+        # One decode and one split make the strings (per-outcome Python formatting would
+        # cost more than the draw itself).
+        return strings_of_rows(self.rows(record, outcomes))
+
+    def rows(self, record: int, outcomes: Ints) -> Rows:
+        """The bit strings of ``outcomes`` as rows of ASCII bytes, vectorised."""
+        count, width = len(outcomes), len(self._clbits)
+        chars = np.empty((count, width), dtype=np.uint8)
         if self._num_final:
             nbytes = (self._num_final + 7) // 8
             big_endian = outcomes.astype(">u8").view(np.uint8).reshape(count, 8)[:, 8 - nbytes :]
@@ -126,10 +143,7 @@ class BitFormatter:
         for column in self._fixed:
             clbit = self._clbits[column]
             chars[:, column] = 32 if clbit < 0 else 48 + ((record >> clbit) & 1)
-        chars[:, width] = 10
-        strings = chars.tobytes().decode("ascii").split("\n")
-        strings.pop()
-        return strings
+        return chars
 
     def _one(self, record: int, outcome: int) -> str:
         # Column by column in Python: for a handful of outcomes the dozen numpy calls of
@@ -145,35 +159,48 @@ class BitFormatter:
         return "".join(chars)
 
 
-def counts_of(formatter: BitFormatter, record: int, drawn: Ints, into: dict[str, int]) -> None:
-    """Add the non-zero entries of a draw to ``into``, formatting only those."""
-    hit = np.nonzero(drawn)[0]
-    keys, values = formatter.format(record, hit), drawn[hit].tolist()
-    if not into:
-        into.update(zip(keys, values, strict=True))
-        return
-    for key, value in zip(keys, values, strict=True):
-        into[key] = into.get(key, 0) + value
-
-
 def sample_counts(
     rng: np.random.Generator,
     shots: int,
     records: Sequence[tuple[int, Floats]],
     formatter: BitFormatter,
-) -> dict[str, int]:
+) -> Mapping[str, int]:
     """Counts of ``shots`` drawn as the module docstring says, from ``records`` (sorted
-    by record; each with its weighted final-outcome probabilities)."""
-    counts: dict[str, int] = {}
+    by record; each with its weighted final-outcome probabilities): a dict, or a
+    :class:`~jobkeeper.counts.CountTable` when there are more than TABLE_FROM distinct
+    outcomes."""
+    draws: list[tuple[int, Ints]] = []
     if len(records) == 1:
         record, probs = records[0]
-        counts_of(formatter, record, draw(rng, shots, probs), counts)
-        return counts
-    weights = np.array([float(p.sum()) for _, p in records])
-    per_record = draw(rng, shots, weights)
-    for (record, probs), record_shots in zip(records, per_record.tolist(), strict=True):
-        if record_shots:
-            counts_of(formatter, record, draw(rng, record_shots, probs), counts)
+        draws.append((record, draw(rng, shots, probs)))
+    else:
+        weights = np.array([float(p.sum()) for _, p in records])
+        per_record = draw(rng, shots, weights)
+        for (record, probs), record_shots in zip(records, per_record.tolist(), strict=True):
+            if record_shots:
+                draws.append((record, draw(rng, record_shots, probs)))
+    return counts_of_draws(formatter, draws)
+
+
+def counts_of_draws(
+    formatter: BitFormatter, draws: Sequence[tuple[int, Ints]]
+) -> Mapping[str, int]:
+    """The counts of ``draws`` (record, shots per final outcome): a dict, or a
+    :class:`~jobkeeper.counts.CountTable` when there are more than TABLE_FROM distinct
+    outcomes."""
+    hits = [(record, drawn, np.flatnonzero(drawn)) for record, drawn in draws]
+    if sum(len(hit) for _, _, hit in hits) > TABLE_FROM and formatter.width:
+        return CountTable._trusted(
+            [(formatter.rows(record, hit), drawn[hit]) for record, drawn, hit in hits]
+        )
+    counts: dict[str, int] = {}
+    for record, drawn, hit in hits:
+        keys, values = formatter.format(record, hit), drawn[hit].tolist()
+        if not counts:
+            counts.update(zip(keys, values, strict=True))
+            continue
+        for key, value in zip(keys, values, strict=True):
+            counts[key] = counts.get(key, 0) + value
     return counts
 
 

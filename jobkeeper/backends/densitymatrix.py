@@ -60,7 +60,7 @@ from jobkeeper.backends._noise import (
     noise_model_from_calibration,
 )
 from jobkeeper.backends._program import Measure, Reset
-from jobkeeper.backends._sampling import BitFormatter, Floats, counts_of, draw, probabilities_of
+from jobkeeper.backends._sampling import BitFormatter, Floats, probabilities_of, sample_counts
 from jobkeeper.backends.statevector import _holds, _jobkeeper_version, available_memory
 from jobkeeper.circuit.ir import Circuit
 from jobkeeper.exceptions import ConfigError, PermanentBackendError
@@ -234,17 +234,8 @@ class DensityMatrixBackend(RunsLocally):
         # From here on exactly as the state-vector backend: same order, same draws.
         formatter = BitFormatter(circuit.cregs, circuit.num_clbits, [c for _, c in program.final])
         rng = np.random.Generator(np.random.PCG64(seed))
-        counts: dict[str, int] = {}
         ordered = sorted(records.items())
-        if len(ordered) == 1:
-            record, probs = ordered[0]
-            counts_of(formatter, record, draw(rng, task.shots, probs), counts)
-        else:
-            weights = np.array([float(p.sum()) for _, p in ordered])
-            per_record = draw(rng, task.shots, weights)
-            for (record, probs), shots in zip(ordered, per_record.tolist(), strict=True):
-                if shots:
-                    counts_of(formatter, record, draw(rng, shots, probs), counts)
+        counts = sample_counts(rng, task.shots, ordered, formatter)
         probabilities: dict[str, float] | None = None
         if task.exact:
             probabilities = {}

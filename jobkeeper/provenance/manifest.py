@@ -17,6 +17,7 @@ from typing import Any, Literal
 from pydantic import BaseModel, ConfigDict, Field, field_validator
 from pydantic.alias_generators import to_camel
 
+from jobkeeper.counts import CountTable
 from jobkeeper.exceptions import ProvenanceError, VerificationError
 from jobkeeper.hashing import canonical_json, sha256_tag
 from jobkeeper.provenance.dsse import strict_json_loads
@@ -151,6 +152,8 @@ def _check_counts(counts: Mapping[str, int]) -> dict[str, int]:
 
 def counts_document(counts: Mapping[str, int]) -> bytes:
     """The counts document: RFC 8785 canonical JSON of the counts object."""
+    if isinstance(counts, CountTable):
+        return counts.canonical_json()  # its keys and counts were checked when it was made
     return canonical_json(_check_counts(counts))
 
 
@@ -169,7 +172,7 @@ def build_statement(
     the raw counts in the predicate can never tell different stories.
     """
     pred = predicate.to_json() if isinstance(predicate, RunPredicate) else dict(predicate)
-    if "counts" in pred and pred["counts"] != dict(counts):
+    if "counts" in pred and pred["counts"] is not counts and pred["counts"] != counts:
         raise ProvenanceError("predicate counts differ from the counts being attested")
     return {
         "_type": STATEMENT_TYPE,

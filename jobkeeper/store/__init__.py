@@ -315,9 +315,10 @@ class Store(Protocol):
 def counts_text(counts: Mapping[str, int]) -> str:
     """How a store keeps counts: the counts document, RFC 8785 canonical JSON — the very
     bytes whose SHA-256 the signed manifest names, so any change to them is detectable."""
+    from jobkeeper.counts import CountTable
     from jobkeeper.hashing import canonical_json
 
-    return canonical_json(dict(counts)).decode("utf-8")
+    return canonical_json(counts if isinstance(counts, CountTable) else dict(counts)).decode()
 
 
 def open_store(location: str | Path, *, create: bool = True) -> Store:

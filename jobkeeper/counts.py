@@ -1,0 +1,198 @@
+"""Big count tables as arrays: a compact, read-only mapping of bit string → shots.
+
+A run over many qubits with many shots sees up to one distinct outcome per shot: 10^6
+shots over 20 qubits give about half a million. As a dict of Python strings such a table
+costs some 150 bytes an entry and takes longer to build than the sampling that produced
+it; written as canonical JSON for the archive (three times: the counts document, the
+signed statement that embeds it, the stored copy) it took seconds. A
+:class:`CountTable` keeps the keys as one row of ASCII bytes each and the counts as an
+integer array. It is a ``Mapping[str, int]`` like any counts (the strings are made the
+first time someone asks for them), and writes its RFC 8785 canonical JSON with numpy,
+without making them.
+
+The simulators hand over a CountTable when a run has many distinct outcomes and a plain
+dict otherwise; everything that reads counts takes either.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterator, Mapping, Sequence
+from typing import Any
+
+import numpy as np
+import numpy.typing as npt
+
+Rows = npt.NDArray[np.uint8]
+Ints = npt.NDArray[np.int64]
+
+#: the characters of a bit string (OpenQASM 2 counts: bits, and spaces between registers).
+_ALPHABET = np.zeros(256, dtype=bool)
+_ALPHABET[[ord(" "), ord("0"), ord("1")]] = True
+#: RFC 8785 leaves integers beyond this to strings; no count comes near it.
+MAX_COUNT = 2**53 - 1
+
+
+class CountTable(Mapping[str, int]):
+    """Counts of equal-length bit strings, kept as arrays.
+
+    ``rows`` holds one ASCII bit string per row (``'0'``, ``'1'`` and spaces), ``values``
+    the count of each. A string may appear in several rows (outcomes of different
+    classical records that print the same): their counts add up.
+    """
+
+    __slots__ = ("_dict", "_json", "_merged", "_parts")
+
+    def __init__(self, rows: Rows, values: Ints) -> None:
+        rows = np.ascontiguousarray(rows, dtype=np.uint8)
+        values = np.ascontiguousarray(values, dtype=np.int64)
+        if rows.ndim != 2 or values.shape != (rows.shape[0],):
+            raise ValueError("a count table needs one row of characters per count")
+        if not _ALPHABET[rows].all():
+            raise ValueError("bit strings hold only '0', '1' and spaces")
+        if len(values) and not (values.min() > 0 and values.max() <= MAX_COUNT):
+            raise ValueError(f"counts must be whole numbers from 1 to {MAX_COUNT}")
+        self._parts: list[tuple[Rows, Ints]] = [(rows, values)]
+        self._merged: tuple[Rows, Ints] | None = None
+        self._dict: dict[str, int] | None = None
+        self._json: bytes | None = None
+
+    @classmethod
+    def _trusted(cls, parts: Sequence[tuple[Rows, Ints]]) -> CountTable:
+        """A table from parts a simulator built itself (checked by its tests, not here:
+        checking would cost as much as building)."""
+        table = cls.__new__(cls)
+        table._parts = list(parts)
+        table._merged = None
+        table._dict = None
+        table._json = None
+        return table
+
+    # -- the arrays ---------------------------------------------------------------------
+
+    def arrays(self) -> tuple[Rows, Ints]:
+        """The distinct rows in canonical order (ascending by character code, as RFC 8785
+        sorts keys) and their counts."""
+        if self._merged is None:
+            self._merged = _merge(self._parts)
+        return self._merged
+
+    @property
+    def shots(self) -> int:
+        return int(sum(int(values.sum()) for _, values in self._parts))
+
+    # -- Mapping ------------------------------------------------------------------------
+
+    def to_dict(self) -> dict[str, int]:
+        """A plain dict (made once, then kept)."""
+        if self._dict is None:
+            rows, values = self.arrays()
+            self._dict = dict(zip(strings_of_rows(rows), values.tolist(), strict=True))
+        return self._dict
+
+    def __getitem__(self, key: str) -> int:
+        return self.to_dict()[key]
+
+    def __iter__(self) -> Iterator[str]:
+        return iter(self.to_dict())
+
+    def __len__(self) -> int:
+        return len(self.arrays()[1])
+
+    def __contains__(self, key: object) -> bool:
+        return key in self.to_dict()
+
+    def __repr__(self) -> str:
+        return f"CountTable({len(self)} outcomes, {self.shots} shots)"
+
+    def __reduce__(self) -> tuple[Any, ...]:
+        rows, values = self.arrays()
+        return (CountTable, (rows, values))
+
+    # -- canonical JSON -----------------------------------------------------------------
+
+    def canonical_json(self) -> bytes:
+        """RFC 8785 canonical JSON of the table: ``{"key":count,...}`` with the keys in
+        ascending order of their UTF-16 code units (for these ASCII keys, of their bytes)
+        and nothing between the tokens. Equal to the reference implementation's bytes for
+        ``to_dict()`` (a property test checks that)."""
+        if self._json is None:
+            self._json = _canonical_json(*self.arrays())
+        return self._json
+
+
+def strings_of_rows(rows: Rows) -> list[str]:
+    """One str per row: one decode and one split (per-row Python work would cost more)."""
+    count, width = rows.shape
+    if count == 0:
+        return []
+    lines = np.empty((count, width + 1), dtype=np.uint8)
+    lines[:, :width] = rows
+    lines[:, width] = 10
+    strings = lines.tobytes().decode("ascii").split("\n")
+    strings.pop()
+    return strings
+
+
+def _merge(parts: Sequence[tuple[Rows, Ints]]) -> tuple[Rows, Ints]:
+    """Rows sorted by their bytes, duplicates merged (counts added)."""
+    parts = [(rows, values) for rows, values in parts if len(values)]
+    widths = {rows.shape[1] for rows, _ in parts}
+    if len(widths) > 1:
+        raise ValueError("the bit strings of one count table have one length")
+    if not parts:
+        return np.empty((0, 0), np.uint8), np.empty(0, np.int64)
+    width = widths.pop()
+    rows = np.concatenate([r for r, _ in parts])
+    values = np.concatenate([v for _, v in parts])
+    if len(values) == 1:
+        return rows, values
+    # Rows as big-endian 64-bit words (zero-padded): sorting the words column by column,
+    # first column first, sorts the rows by their bytes.
+    words_per_row = -(-width // 8)
+    padded = np.zeros((len(rows), 8 * words_per_row), dtype=np.uint8)
+    padded[:, :width] = rows
+    words = padded.view(">u8").astype(np.uint64)
+    if _strictly_ascending(words):
+        # The usual case (one record, outcomes in index order): sorted and distinct.
+        return rows, values
+    order = np.lexsort(words.T[::-1])
+    words, rows, values = words[order], rows[order], values[order]
+    starts = np.concatenate(([True], (words[1:] != words[:-1]).any(axis=1)))
+    if starts.all():
+        return rows, values
+    first = np.flatnonzero(starts)
+    return rows[first], np.add.reduceat(values, first)
+
+
+def _strictly_ascending(words: npt.NDArray[np.uint64]) -> bool:
+    """Whether each row of ``words`` is greater than the one before, column by column."""
+    later, earlier = words[1:], words[:-1]
+    differs = later != earlier
+    first = differs.argmax(axis=1)  # the first column where they differ (0 if none)
+    at = np.arange(len(first))
+    return bool((differs[at, first] & (later[at, first] > earlier[at, first])).all())
+
+
+def _canonical_json(rows: Rows, values: Ints) -> bytes:
+    count, width = rows.shape
+    if count == 0:
+        return b"{}"
+    if int(values.max()) > MAX_COUNT:
+        raise ValueError(f"a count above {MAX_COUNT} has no exact form in canonical JSON")
+    digits = len(str(int(values.max())))
+    # One fixed-width line per entry: "key":digits, — then the leading zeros of each
+    # count are masked out and the lines joined by taking every unmasked byte.
+    line = np.empty((count, width + 4 + digits), dtype=np.uint8)
+    line[:, 0] = ord('"')
+    line[:, 1 : width + 1] = rows
+    line[:, width + 1] = ord('"')
+    line[:, width + 2] = ord(":")
+    keep = np.ones(line.shape, dtype=bool)
+    for d in range(digits):
+        power = 10 ** (digits - 1 - d)
+        line[:, width + 3 + d] = 48 + (values // power) % 10
+        if d < digits - 1:
+            keep[:, width + 3 + d] = values >= power
+    line[:, -1] = ord(",")
+    body = line[keep].tobytes()
+    return b"{" + body[:-1] + b"}"

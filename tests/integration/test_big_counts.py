@@ -1,0 +1,53 @@
+"""A job with many distinct outcomes goes through the keep as a CountTable (arrays) and
+comes out exactly as the dict path would have made it, signed, logged and verifiable."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import pytest
+
+from jobkeeper import Keeper
+from jobkeeper.backend import Task
+from jobkeeper.backends import _sampling
+from jobkeeper.backends.statevector import StatevectorBackend
+from jobkeeper.circuit import parse_qasm
+from jobkeeper.counts import CountTable
+from jobkeeper.verification import export_bundle, verify_bundle_file, verify_jobs
+
+# 13 qubits in uniform superposition (h on each: textbook, N&C §1.4.4), two registers so
+# that the bit strings carry a space: 8,192 outcomes, of which 20,000 shots see most.
+CIRCUIT = (
+    'OPENQASM 2.0;\ninclude "qelib1.inc";\nqreg q[13];\ncreg a[6];\ncreg b[7];\nh q;\n'
+    + "".join(f"measure q[{i}] -> a[{i}];\n" for i in range(6))
+    + "".join(f"measure q[{6 + i}] -> b[{i}];\n" for i in range(7))
+)
+
+
+def test_the_backend_gives_a_table_equal_to_the_dict_it_would_have_made(
+    monkeypatch: pytest.MonkeyPatch,
+) -> None:
+    circuit = parse_qasm(CIRCUIT)
+    table = StatevectorBackend().execute(Task(circuit, 20_000, seed=3)).counts
+    assert isinstance(table, CountTable) and len(table) > _sampling.TABLE_FROM
+    monkeypatch.setattr(_sampling, "TABLE_FROM", 10**9)
+    plain = StatevectorBackend().execute(Task(circuit, 20_000, seed=3)).counts
+    assert isinstance(plain, dict)
+    assert table.to_dict() == plain and sum(plain.values()) == 20_000
+    assert all(len(key) == 14 and key[7] == " " for key in plain)  # "b a": 7 bits, space, 6
+
+
+@pytest.mark.slow
+def test_a_big_table_is_archived_signed_and_verifies(tmp_path: Path) -> None:
+    keep = tmp_path / "keep"
+    with Keeper.open(keep) as keeper:
+        job = keeper.run(CIRCUIT, shots=20_000, seed=3)
+        counts = job.counts
+        direct = StatevectorBackend().execute(Task(parse_qasm(CIRCUIT), 20_000, seed=3)).counts
+        assert counts == dict(direct) and len(counts) > _sampling.TABLE_FROM
+        report = verify_jobs(keeper)
+        assert report.ok, report.problems
+        assert report.checked >= 1
+        assert export_bundle(keeper, [job.id], tmp_path / "big.bundle") == 1
+    offline = verify_bundle_file(tmp_path / "big.bundle")
+    assert offline.ok, offline.problems
