@@ -44,14 +44,12 @@ LOW_CHUNK = {2: 1 << 14, 3: 1 << 14, 4: 1 << 13, 5: 1 << 12, 6: 1 << 12}
 #: on qubits 0-1 twice as fast as gathering, 5-qubit blocks on qubits 0-4 too).
 LOW_QUBITS = 4
 LOW_QUBITS_DENSE = 6
-#: a two-qubit gate on one high qubit and one below this takes the split route: four
-#: low-route products on the two halves of the high qubit (pair (21, 2): 0.26 of copy
-#: bandwidth against 0.16 gathered).
+#: a two-qubit gate on one high qubit and one below this takes the split route (pair
+#: (21, 2): 0.26 of copy bandwidth against 0.16 gathered).
 SPLIT_LOW = 3
-#: consecutive targets t..t+k-1 with t + k at least this skip the gather: the products
-#: on (2^k × 2^t) blocks in place beat gathering from 2^8 amplitudes below a single
-#: target or 2^7 below a pair (at 24 qubits: qubit 7 gathered 0.35 of copy bandwidth
-#: against 0.30 in blocks; pair (7, 6) 0.33 against 0.29; qubit 8 and pair (8, 7) on par).
+#: consecutive targets t..t+k-1 with t + k at least this skip the gather: products on
+#: (2^k × 2^t) blocks in place (qubit 7 gathered 0.35 against 0.30 in blocks, pair (7, 6)
+#: 0.33 against 0.29; qubit 8 and pair (8, 7) on par).
 DIRECT_BLOCK = 9
 
 _local = threading.local()
@@ -224,8 +222,8 @@ def _apply_low(state: State, n: int, matrix: Matrix, desc: tuple[int, ...]) -> N
 def _apply_split(state: State, matrix: Matrix, desc: tuple[int, ...]) -> None:
     # A high qubit h and a low qubit l: the halves h = 0 and h = 1 of a chunk are rows of
     # the low route, and out_i = sum_j rows_j @ R_ij with R_ij the gate's 2 × 2 block
-    # (i, j) acting on l, widened. Four products of 8-float rows beat gathering such a
-    # pair (measured 0.2 of copy bandwidth for the gather at 24 qubits).
+    # (i, j) acting on l, widened (at 24 qubits 0.26-0.37 of copy bandwidth, 0.12-0.23
+    # gathered).
     high, low = desc
     width = max(low + 1, 2)
     rights = [
@@ -237,27 +235,30 @@ def _apply_split(state: State, matrix: Matrix, desc: tuple[int, ...]) -> None:
     per = max(1, (CHUNK // 2) >> high)
     bufs = [_scratch(slot, per * span) for slot in range(5)]
 
-    def rows(x: State) -> npt.NDArray[np.float64]:
-        return x.view(np.float64).reshape(-1, 2 << width)
+    # Products write the state, one per run, when a chunk holds at most four runs of each
+    # half ((12, 0): 0.29 against 0.26 through buffers copied back; (9, 0): 0.22 against
+    # 0.26, the calls costing more than the copies).
+    direct = per <= 4
+
+    def rows(x: State, count: int) -> npt.NDArray[np.float64]:
+        return x.view(np.float64).reshape(count, -1, 2 << width)
 
     for a in range(0, view.shape[0], per):
         for b in range(0, 1 << high, span):
             part = view[a : a + per, :, b : b + span]
             count = part.shape[0]
             size = count * span
-            held = [bufs[j][:size] for j in (0, 1)]
+            held = [bufs[j][:size].reshape(count, span) for j in (0, 1)]
             for j in (0, 1):
-                np.copyto(held[j].reshape(count, span), part[:, j])
-            # A chunk within one row of the view is contiguous: the products write the
-            # state; otherwise they write buffers that are copied back.
-            outs = [part[0, i] if count == 1 else bufs[2 + i][:size] for i in (0, 1)]
-            tmp = rows(bufs[4][:size])
+                np.copyto(held[j], part[:, j])
+            outs = [part[:, i] if direct else bufs[2 + i][:size] for i in (0, 1)]
+            tmp = rows(bufs[4][:size], count)
             for i in (0, 1):
-                out = rows(outs[i])
-                np.matmul(rows(held[0]), rights[i][0], out=out)
-                np.matmul(rows(held[1]), rights[i][1], out=tmp)
+                out = rows(outs[i], count)
+                np.matmul(rows(held[0], count), rights[i][0], out=out)
+                np.matmul(rows(held[1], count), rights[i][1], out=tmp)
                 np.add(out, tmp, out=out)
-            if count > 1:
+            if not direct:
                 for i in (0, 1):
                     np.copyto(part[:, i], outs[i].reshape(count, span))
 
