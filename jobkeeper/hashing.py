@@ -53,28 +53,18 @@ def _plain_str(text: str) -> str:
 
 
 def _dump(value: Any, out: list[str]) -> None:
-    if isinstance(value, str):
+    # Dispatch on the exact type, commonest first (an isinstance check against
+    # CountTable, an abstract Mapping, goes through the slow ABC machinery).
+    kind = type(value)
+    if kind is str:
         out.append(_plain_str(value))
-    elif isinstance(value, CountTable):
-        # Writes its own canonical JSON with numpy (keys are '0', '1' and spaces).
-        out.append(value.canonical_json().decode("ascii"))
-    elif value is True:
-        out.append("true")
-    elif value is False:
-        out.append("false")
-    elif value is None:
-        out.append("null")
-    elif isinstance(value, int):
-        if not -_MAX_SAFE <= value <= _MAX_SAFE:
-            raise _Fallback
-        out.append(str(int(value)))
-    elif isinstance(value, dict):
+    elif kind is dict:
         if not value:
             out.append("{}")
             return
         sep = "{"
         for key in sorted(value):
-            if not isinstance(key, str):
+            if type(key) is not str:
                 raise _Fallback
             out.append(sep)
             out.append(_plain_str(key))
@@ -82,7 +72,15 @@ def _dump(value: Any, out: list[str]) -> None:
             _dump(value[key], out)
             sep = ","
         out.append("}")
-    elif isinstance(value, list | tuple):
+    elif kind is int:
+        if not -_MAX_SAFE <= value <= _MAX_SAFE:
+            raise _Fallback
+        out.append(str(value))
+    elif kind is bool:
+        out.append("true" if value else "false")
+    elif value is None:
+        out.append("null")
+    elif kind is list or kind is tuple:
         if not value:
             out.append("[]")
             return
@@ -92,7 +90,11 @@ def _dump(value: Any, out: list[str]) -> None:
             _dump(item, out)
             sep = ","
         out.append("]")
+    elif kind is CountTable:
+        # Writes its own canonical JSON with numpy (keys are '0', '1' and spaces).
+        out.append(value.canonical_json().decode("ascii"))
     else:
+        # Floats, subclasses and anything else: the reference decides.
         raise _Fallback
 
 
