@@ -282,9 +282,16 @@ def git_code_version(path: str | os.PathLike[str], *, timeout: float = 5.0) -> d
         return done.stdout
 
     try:
-        commit = git("rev-parse", "--verify", "HEAD").decode("ascii").strip()
-        status = git("status", "--porcelain")
-        diff = git("diff", "HEAD", "--binary", "--no-ext-diff", "--no-color")
-    except (OSError, subprocess.SubprocessError, UnicodeDecodeError, ValueError):
+        # One status call gives the commit (its branch header) and the dirty flag; the
+        # diff is asked for only when there is something to diff. Every submission runs
+        # this, so each git process saved is a few milliseconds off every submit.
+        status = git("status", "--porcelain=v2", "--branch").decode("utf-8", "replace")
+        lines = status.splitlines()
+        heads = [line.split()[2] for line in lines if line.startswith("# branch.oid ")]
+        if not heads or not re.fullmatch(r"[0-9a-f]{40}|[0-9a-f]{64}", heads[0]):
+            return {"absent": True}  # "(initial)": a repository with no commit yet
+        dirty = any(not line.startswith("#") for line in lines)
+        diff = git("diff", "HEAD", "--binary", "--no-ext-diff", "--no-color") if dirty else b""
+    except (OSError, subprocess.SubprocessError, UnicodeDecodeError, ValueError, IndexError):
         return {"absent": True}
-    return {"commit": commit, "dirty": bool(status.strip()), "diffHash": sha256_tag(diff)}
+    return {"commit": heads[0], "dirty": dirty, "diffHash": sha256_tag(diff)}

@@ -146,6 +146,16 @@ def test_git_code_version_outside_and_inside_a_checkout(tmp_path: Path) -> None:
     clean = git_code_version(tmp_path)
     assert len(clean["commit"]) == 40 and clean["dirty"] is False
     assert clean["diffHash"] == "sha256:" + hashlib.sha256(b"").hexdigest()
+    head = subprocess.run(
+        ["git", "-C", str(tmp_path), "rev-parse", "HEAD"], check=True, capture_output=True
+    )
+    assert clean["commit"] == head.stdout.decode().strip()
+    # An untracked file makes the tree dirty, but `git diff HEAD` (the diff hash) covers
+    # tracked changes only, as the docstring says.
+    (tmp_path / "notes.txt").write_text("draft\n")
+    untracked = git_code_version(tmp_path)
+    assert untracked["dirty"] is True and untracked["diffHash"] == clean["diffHash"]
+    (tmp_path / "notes.txt").unlink()
     (tmp_path / "run.py").write_text("print(2)\n")
     dirty = git_code_version(tmp_path)
     assert dirty["dirty"] is True and dirty["commit"] == clean["commit"]
