@@ -19,6 +19,7 @@ Rules every implementation keeps (DESIGN §4, notes on queue reliability):
 
 from __future__ import annotations
 
+import json
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -319,6 +320,17 @@ def counts_text(counts: Mapping[str, int]) -> str:
     from jobkeeper.hashing import canonical_json
 
     return canonical_json(counts if isinstance(counts, CountTable) else dict(counts)).decode()
+
+
+def result_row(item: Completion) -> tuple[str, str | None, str | None, str]:
+    """The results row of a completion (job id, counts, probabilities, metadata as text),
+    made before the finishing transaction so that the write lock is held for SQL only."""
+    return (
+        item.job_id,
+        None if item.result_counts is None else counts_text(item.result_counts),
+        None if item.result_probabilities is None else json.dumps(dict(item.result_probabilities)),
+        json.dumps(dict(item.metadata), sort_keys=True),
+    )
 
 
 def open_store(location: str | Path, *, create: bool = True) -> Store:

@@ -54,7 +54,7 @@ from jobkeeper.store import (
     JobRecord,
     LogAppender,
     NewJob,
-    counts_text,
+    result_row,
 )
 from jobkeeper.store import _sql as sql
 from jobkeeper.store._pg_conn import (
@@ -258,6 +258,8 @@ class PostgresStore(PostgresReads):
         if not completions:
             return []
 
+        rows = [result_row(item) for item in completions]  # before the transaction
+
         def work(conn: Conn) -> list[bool]:
             # Fenced on each token; all in one pipelined round trip.
             finished = each_row(
@@ -271,16 +273,8 @@ class PostgresStore(PostgresReads):
                 with conn.cursor() as cur:
                     cur.executemany(
                         dialect(sql.INSERT_RESULT).encode(),
-                        [
-                            (item.job_id,
-                             None if item.result_counts is None
-                             else counts_text(item.result_counts),
-                             None if item.result_probabilities is None
-                             else json.dumps(dict(item.result_probabilities)),
-                             json.dumps(dict(item.metadata), sort_keys=True))
-                            for item in accepted
-                        ],
-                    )  # fmt: skip
+                        [row for row, ok in zip(rows, done, strict=True) if ok],
+                    )
                 self._append_log(
                     conn, [(c.job_id, c.envelope, c.signer) for c in accepted], appender
                 )

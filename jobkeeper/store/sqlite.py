@@ -36,7 +36,7 @@ from jobkeeper.store import (
     JobRecord,
     LogAppender,
     NewJob,
-    counts_text,
+    result_row,
 )
 from jobkeeper.store import _sql as sql
 from jobkeeper.store._reads import StoreReads, record_of
@@ -51,6 +51,11 @@ def _q(statement: str, **extra: str) -> str:
         if extra
         else statement.replace("{now}", NOW)
     )
+
+
+_FINISH = _q(sql.FINISH)
+_INSERT_RESULT = _q(sql.INSERT_RESULT)
+_INSERT_LOG_ENTRY = _q(sql.INSERT_LOG_ENTRY)
 
 
 class SqliteStore(StoreReads):
@@ -260,24 +265,19 @@ class SqliteStore(StoreReads):
                 raise LeaseLost(f"job {job_id}: lease lost, another worker holds it now")
 
     def finish(self, completions: Sequence[Completion], appender: LogAppender) -> list[bool]:
+        rows = [result_row(item) for item in completions]
         done: list[bool] = []
         with self._write() as conn:
             accepted: list[Completion] = []
-            for item in completions:
-                ok = conn.execute(_q(sql.FINISH), (item.job_id, item.token)).rowcount == 1
+            accepted_rows = []
+            for item, row in zip(completions, rows, strict=True):
+                ok = conn.execute(_FINISH, (item.job_id, item.token)).rowcount == 1
                 done.append(ok)
-                if not ok:
-                    continue
-                conn.execute(
-                    _q(sql.INSERT_RESULT),
-                    (item.job_id,
-                     None if item.result_counts is None else counts_text(item.result_counts),
-                     None if item.result_probabilities is None
-                     else json.dumps(dict(item.result_probabilities)),
-                     json.dumps(dict(item.metadata), sort_keys=True)),
-                )  # fmt: skip
-                accepted.append(item)
+                if ok:
+                    accepted.append(item)
+                    accepted_rows.append(row)
             if accepted:
+                conn.executemany(_INSERT_RESULT, accepted_rows)
                 self._append_log(
                     conn, [(c.job_id, c.envelope, c.signer) for c in accepted], appender
                 )
@@ -302,10 +302,15 @@ class SqliteStore(StoreReads):
         row = conn.execute("SELECT size, state FROM log_state WHERE id = 1").fetchone()
         size, state = (int(row[0]), bytes(row[1])) if row else (0, None)
         leaves, new_state, root, note = appender(state, size, [env for _, env, _ in items])
-        for offset, ((subject, envelope, signer), leaf) in enumerate(
-            zip(items, leaves, strict=True)
-        ):
-            conn.execute(_q(sql.INSERT_LOG_ENTRY), (size + offset, subject, envelope, leaf, signer))
+        conn.executemany(
+            _INSERT_LOG_ENTRY,
+            [
+                (size + offset, subject, envelope, leaf, signer)
+                for offset, ((subject, envelope, signer), leaf) in enumerate(
+                    zip(items, leaves, strict=True)
+                )
+            ],
+        )
         new_size = size + len(items)
         conn.execute(
             "INSERT INTO log_state (id, size, state) VALUES (1, ?, ?) "
