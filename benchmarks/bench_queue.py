@@ -32,6 +32,7 @@ from multiprocessing.synchronize import Barrier, Event
 from pathlib import Path
 
 from jobkeeper import Keeper
+from jobkeeper.worker import settle_daemon
 
 TARGET = 0.25
 
@@ -81,6 +82,7 @@ def _serve(path: Path, ready: Barrier, go: Event, stop: Event) -> None:
     with Keeper.open(path) as keeper:
         # A short idle sleep: between two submissions the queue may run dry for a moment.
         worker = keeper.worker(idle_sleep=0.02)
+        settle_daemon()  # as `jobkeeper worker` does
         ready.wait(timeout=120)
         if not go.wait(timeout=120):
             return

@@ -19,6 +19,7 @@ from __future__ import annotations
 
 import asyncio
 import contextlib
+import gc
 import logging
 import signal
 import uuid
@@ -64,6 +65,16 @@ INLINE_OPERATIONS = 256
 #: Finished jobs archived per commit, and how long to wait for company.
 GROUP_COMMIT = 32
 GROUP_COMMIT_WAIT = 0.004
+
+
+def settle_daemon() -> None:
+    """For a process that is a worker and nothing else, once it has started: move every
+    object alive now (modules, classes, the keep's state) out of the garbage collector's
+    sight. Each full collection otherwise walks all of them again, about a tenth of a
+    worker's time on small jobs (measured: 786 → 688 µs of CPU per 2-qubit job). Not for
+    a notebook: its objects would never be collected as cycles."""
+    gc.collect()
+    gc.freeze()
 
 
 def _runs_inline(task: Task, backend: LocalBackend) -> bool:

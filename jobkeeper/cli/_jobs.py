@@ -228,7 +228,10 @@ def worker(
 
     if not 0 < heartbeat < lease:
         raise ConfigError("--heartbeat must be positive and shorter than --lease")
+    from jobkeeper.worker import settle_daemon
+
     keeper = open_keeper(keep, store)
+    settle_daemon()  # this process is the worker and nothing else
     stats = keeper.work(
         once=once, install_signals=True, concurrency=concurrency, in_flight=in_flight,
         backends=backend or None,
