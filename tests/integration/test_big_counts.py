@@ -51,3 +51,21 @@ def test_a_big_table_is_archived_signed_and_verifies(tmp_path: Path) -> None:
         assert export_bundle(keeper, [job.id], tmp_path / "big.bundle") == 1
     offline = verify_bundle_file(tmp_path / "big.bundle")
     assert offline.ok, offline.problems
+
+
+def test_records_that_print_the_same_string_add_up(monkeypatch: pytest.MonkeyPatch) -> None:
+    # A mid-circuit measurement of q[0] into c[0], later overwritten by the final one:
+    # two classical records whose outcomes print identically, so the table's rows from
+    # both records must merge, exactly as the dict path adds them.
+    text = (
+        'OPENQASM 2.0;\ninclude "qelib1.inc";\nqreg q[13];\ncreg c[13];\nh q;\n'
+        "measure q[0] -> c[0];\nh q[0];\nmeasure q -> c;\n"
+    )
+    circuit = parse_qasm(text)
+    table = StatevectorBackend().execute(Task(circuit, 30_000, seed=9)).counts
+    assert isinstance(table, CountTable)
+    assert len(table._parts) == 2  # one part per classical record
+    assert len(table) < sum(len(values) for _, values in table._parts)  # rows merged
+    monkeypatch.setattr(_sampling, "TABLE_FROM", 10**9)
+    plain = StatevectorBackend().execute(Task(circuit, 30_000, seed=9)).counts
+    assert table.to_dict() == plain and table.shots == 30_000
