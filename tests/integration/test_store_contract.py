@@ -12,8 +12,10 @@ import hashlib
 import uuid
 from collections.abc import Iterator, Sequence
 
+import numpy as np
 import pytest
 
+from jobkeeper.counts import CountTable
 from jobkeeper.exceptions import AmbiguousJobId, JobNotFound, LeaseLost
 from jobkeeper.sealing import _pack, _unpack, frontier_append, frontier_root
 from jobkeeper.store import Completion, NewJob, Store
@@ -231,3 +233,13 @@ def test_ensure_meta_sets_once(store: Store) -> None:
     assert store.ensure_meta("origin", "first") == "first"
     assert store.ensure_meta("origin", "second") == "first"
     assert store.get_meta("origin") == "first"
+
+
+def test_a_count_table_is_kept_as_the_same_canonical_document(store: Store) -> None:
+    store.enqueue([new_job()])
+    [claim] = store.claim("w", limit=1, lease_seconds=60)
+    rows = np.frombuffer(b"11 100 0", dtype=np.uint8).reshape(2, 4)
+    store.finish([completion(claim, CountTable(rows, np.array([7, 5])))], appender)
+    # RFC 8785 §3.2.3: members sorted by key ("00 0" before "11 1"), no whitespace.
+    assert store.all_counts() == {claim.job.id: '{"00 0":5,"11 1":7}'}
+    assert store.result(claim.job.id).counts == {"00 0": 5, "11 1": 7}
