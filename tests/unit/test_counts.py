@@ -65,6 +65,7 @@ def test_reading_and_pickling() -> None:
     assert list(table) == ["00 0", "01 1", "11 1"]  # canonical order
     assert table.shots == 13
     assert pickle.loads(pickle.dumps(table)) == table
+    # RFC 8785 §3.2.3: members sorted by key (UTF-16 code units), no whitespace.
     assert table.canonical_json() == b'{"00 0":7,"01 1":5,"11 1":1}'
     assert CountTable(np.empty((0, 3), np.uint8), np.empty(0, np.int64)).canonical_json() == b"{}"
 
