@@ -190,7 +190,7 @@ def counts_of_draws(
     outcomes."""
     hits = [(record, drawn, np.flatnonzero(drawn)) for record, drawn in draws]
     if sum(len(hit) for _, _, hit in hits) > TABLE_FROM and formatter.width:
-        return CountTable._trusted(
+        return CountTable.from_parts(
             [(formatter.rows(record, hit), drawn[hit]) for record, drawn, hit in hits]
         )
     counts: dict[str, int] = {}
