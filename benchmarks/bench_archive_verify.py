@@ -18,9 +18,9 @@ import time
 from pathlib import Path
 
 from jobkeeper import Keeper
+from jobkeeper.audit.verification import verify_jobs
 from jobkeeper.provenance import pae
 from jobkeeper.provenance.keys import load_public_key
-from jobkeeper.verification import verify_jobs
 
 TARGET = 0.5
 

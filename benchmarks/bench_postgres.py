@@ -86,7 +86,7 @@ def _worker(
 ) -> None:  # runs in a child process
     from cryptography.hazmat.primitives.asymmetric.ed25519 import Ed25519PrivateKey
 
-    from jobkeeper.sealing import Sealer
+    from jobkeeper.audit.sealing import Sealer
     from jobkeeper.store import Completion
     from jobkeeper.store.postgres import PostgresStore
 

@@ -11,8 +11,8 @@ import tempfile
 from pathlib import Path
 
 from jobkeeper import Keeper
-from jobkeeper._render import bar_chart
-from jobkeeper.verification import verify_jobs
+from jobkeeper.audit.verification import verify_jobs
+from jobkeeper.cli._render import bar_chart
 
 HERE = Path(__file__).resolve().parent
 CIRCUITS = [HERE / "circuits" / name for name in ("bell.qasm", "ghz5.qasm", "teleport.qasm")]

@@ -21,6 +21,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, TypeVar
 
+from jobkeeper.audit.sealing import Sealer
 from jobkeeper.backend import Backend, BackendInfo
 from jobkeeper.backends import DEFAULT_BACKENDS, create_backend
 from jobkeeper.circuit import Circuit, canonical_text, load_qasm, parse_qasm
@@ -44,7 +45,6 @@ from jobkeeper.hashing import sha256_tag
 from jobkeeper.provenance.keys import KeyRing
 from jobkeeper.provenance.manifest import git_code_version
 from jobkeeper.queue import DEFAULT_LEASE, LeasePolicy, RetryPolicy
-from jobkeeper.sealing import Sealer
 from jobkeeper.spec import JobSpec, job_key
 from jobkeeper.store import (
     TERMINAL_STATES,

@@ -30,6 +30,7 @@ from dataclasses import dataclass, field
 from typing import Any, TypeVar, cast
 
 from jobkeeper._execution import build_task, one_blas_thread, run_local
+from jobkeeper.audit.sealing import Sealer
 from jobkeeper.backend import Backend, LocalBackend, Result, Task
 from jobkeeper.exceptions import (
     JobkeeperError,
@@ -46,7 +47,6 @@ from jobkeeper.queue import (
     PollPolicy,
     RetryPolicy,
 )
-from jobkeeper.sealing import Sealer
 from jobkeeper.store import Claim, Completion, Store
 
 log = logging.getLogger("jobkeeper.worker")

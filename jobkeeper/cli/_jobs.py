@@ -10,7 +10,6 @@ from typing import Annotated, Any
 
 import typer
 
-from jobkeeper._render import bar_chart, job_json, shots_warning, table, when
 from jobkeeper.cli._app import (
     BackendOpt,
     JsonOpt,
@@ -26,6 +25,7 @@ from jobkeeper.cli._app import (
     open_keeper,
     progress_wait,
 )
+from jobkeeper.cli._render import bar_chart, job_json, shots_warning, table, when
 from jobkeeper.exceptions import ConfigError, JobkeeperError
 from jobkeeper.keeper import Job
 
@@ -281,7 +281,7 @@ def show(
     json_out: JsonOpt = False,
 ) -> None:
     """Everything about one job: what ran, where, when, attempts, result, provenance."""
-    from jobkeeper.inspect import describe_job
+    from jobkeeper.cli._show import describe_job
 
     keeper = open_keeper(keep, store, create=False)
     details = describe_job(keeper, keeper.job(job_id))

@@ -85,7 +85,7 @@ def verify(
     json_out: JsonOpt = False,
 ) -> None:
     """Check signatures, counts digests, log inclusion and checkpoint consistency."""
-    from jobkeeper.verification import verify_bundle_file, verify_jobs
+    from jobkeeper.audit.verification import verify_bundle_file, verify_jobs
 
     targets = targets or []
     if len(targets) == 1 and Path(targets[0]).is_file():
@@ -114,7 +114,7 @@ def bundle(
     json_out: JsonOpt = False,
 ) -> None:
     """Export done jobs as one file that a referee can verify offline."""
-    from jobkeeper.verification import export_bundle
+    from jobkeeper.audit.verification import export_bundle
 
     keeper = open_keeper(keep, store, create=False)
     if label is None and not job_ids:
@@ -161,7 +161,7 @@ def rerun(
     json_out: JsonOpt = False,
 ) -> None:
     """Run a job again from its signed manifest alone, and judge the two results."""
-    from jobkeeper.judging import rerun as do_rerun
+    from jobkeeper.audit.judging import rerun as do_rerun
 
     keeper = open_keeper(keep, store, create=False)
     _print_judgement(do_rerun(keeper, keeper.job(job_id), backend=backend, seed=seed,
@@ -181,7 +181,7 @@ def compare(
     json_out: JsonOpt = False,
 ) -> None:
     """Are two jobs' counts (or a job and the ideal) consistent? Exit 1 if different."""
-    from jobkeeper.judging import compare_ideal, compare_jobs
+    from jobkeeper.audit.judging import compare_ideal, compare_jobs
 
     if (job_b is None) == (not ideal):
         raise ConfigError("give two jobs, or one job and --ideal")

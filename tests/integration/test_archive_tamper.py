@@ -17,10 +17,10 @@ from pathlib import Path
 import pytest
 
 from jobkeeper import Keeper
+from jobkeeper.audit.verification import verify_jobs
 from jobkeeper.cli import main
 from jobkeeper.hashing import canonical_json
 from jobkeeper.provenance.dsse import PAYLOAD_TYPE, envelope_bytes, sign_envelope
-from jobkeeper.verification import verify_jobs
 from tests.integration.helpers import circuit_text
 
 JOBS = 12

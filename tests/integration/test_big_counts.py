@@ -8,12 +8,12 @@ from pathlib import Path
 import pytest
 
 from jobkeeper import Keeper
+from jobkeeper.audit.verification import export_bundle, verify_bundle_file, verify_jobs
 from jobkeeper.backend import Task
 from jobkeeper.backends import _sampling
 from jobkeeper.backends.statevector import StatevectorBackend
 from jobkeeper.circuit import parse_qasm
 from jobkeeper.counts import CountTable
-from jobkeeper.verification import export_bundle, verify_bundle_file, verify_jobs
 
 # 13 qubits in uniform superposition (h on each: textbook, N&C §1.4.4), two registers so
 # that the bit strings carry a space: 8,192 outcomes, of which 20,000 shots see most.

@@ -16,8 +16,8 @@ from pathlib import Path
 import pytest
 
 from jobkeeper import Keeper
+from jobkeeper.audit.verification import verify_jobs
 from jobkeeper.testing import executions, starts
-from jobkeeper.verification import verify_jobs
 from tests.integration.helpers import (
     circuit_text,
     jobkeeper_cmd,

@@ -14,9 +14,9 @@ from pathlib import Path
 import pytest
 
 from jobkeeper import BudgetExceeded, Keeper
+from jobkeeper.audit.judging import compare_ideal, compare_jobs, rerun
+from jobkeeper.audit.verification import verify_jobs
 from jobkeeper.cli import main
-from jobkeeper.judging import compare_ideal, compare_jobs, rerun
-from jobkeeper.verification import verify_jobs
 
 REPO = Path(__file__).resolve().parents[2]
 BELL = REPO / "examples" / "circuits" / "bell.qasm"

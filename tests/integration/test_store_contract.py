@@ -15,9 +15,9 @@ from collections.abc import Iterator, Sequence
 import numpy as np
 import pytest
 
+from jobkeeper.audit.sealing import _pack, _unpack, frontier_append, frontier_root
 from jobkeeper.counts import CountTable
 from jobkeeper.exceptions import AmbiguousJobId, JobNotFound, LeaseLost
-from jobkeeper.sealing import _pack, _unpack, frontier_append, frontier_root
 from jobkeeper.store import Completion, NewJob, Store
 from tests.store_fixtures import make_store
 

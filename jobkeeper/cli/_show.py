@@ -7,7 +7,7 @@ import json
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
-from jobkeeper._render import bar_chart, job_json, shots_warning, when
+from jobkeeper.cli._render import bar_chart, job_json, shots_warning, when
 
 if TYPE_CHECKING:
     from jobkeeper.keeper import Job, Keeper
@@ -20,7 +20,7 @@ class JobDetails:
 
 
 def describe_job(keeper: Keeper, job: Job) -> JobDetails:
-    from jobkeeper.verification import verify_jobs
+    from jobkeeper.audit.verification import verify_jobs
 
     record = job.record
     data = job_json(record)
