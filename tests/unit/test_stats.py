@@ -15,13 +15,6 @@ import numpy as np
 import pytest
 from scipy import stats as sps  # type: ignore[import-untyped]
 
-from jobkeeper._stats_core import (
-    MIN_EXPECTED,
-    pool_plan,
-    pooled_cells,
-    resampled_tvd_one,
-    sampled_noise_tvd_one,
-)
 from jobkeeper.exceptions import ConfigError
 from jobkeeper.stats import (
     Comparison,
@@ -30,6 +23,8 @@ from jobkeeper.stats import (
     compare_to_distribution,
     minimum_detectable_tvd,
 )
+from jobkeeper.stats.bootstrap import resampled_tvd_one, sampled_noise_tvd_one
+from jobkeeper.stats.chisquare import MIN_EXPECTED, pool_plan, pooled_cells
 
 KEYS8 = [format(i, "03b") for i in range(8)]
 # A skewed 8-outcome distribution with two rare outcomes, so that pooling is exercised in

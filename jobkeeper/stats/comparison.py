@@ -49,24 +49,18 @@ from typing import Any, Literal
 
 import numpy as np
 
-from jobkeeper._stats_core import (
-    MIN_BOOTSTRAP,
+from jobkeeper.stats.bootstrap import (
     NOISE_FEWEST,
     NOISE_REPS,
-    StatsInputError,
-    TestResult,
     basic_interval,
     bootstrap_reps,
-    check_counts,
-    check_probabilities,
-    goodness_of_fit_test,
-    homogeneity_test,
-    minimum_detectable_tvd,
     resampled_tvd_one,
     resampled_tvd_two,
     sampled_noise_tvd_one,
 )
-from jobkeeper._stats_words import (
+from jobkeeper.stats.chisquare import TestResult, goodness_of_fit_test, homogeneity_test
+from jobkeeper.stats.inputs import check_counts, check_probabilities, check_settings
+from jobkeeper.stats.wording import (
     common_notes,
     label_width_note,
     noise_note,
@@ -75,15 +69,6 @@ from jobkeeper._stats_words import (
     reduced_bootstrap_note,
     table_words,
 )
-
-__all__ = [
-    "Comparison",
-    "StatsInputError",
-    "Verdict",
-    "compare_counts",
-    "compare_to_distribution",
-    "minimum_detectable_tvd",
-]
 
 Verdict = Literal["identical", "consistent", "different"]
 
@@ -189,7 +174,7 @@ def compare_counts(
     seed: then anything but identical counts is "different", whatever the test says.
     The result is symmetric in ``a`` and ``b`` (apart from ``shots_a``/``shots_b``).
     """
-    _check_settings(alpha, bootstrap, confidence, seed)
+    check_settings(alpha, bootstrap, confidence, seed)
     counts_a, counts_b = check_counts("a", a), check_counts("b", b)
     keys = sorted(counts_a.keys() | counts_b.keys())
     va = np.array([counts_a.get(key, 0) for key in keys], dtype=np.int64)
@@ -275,7 +260,7 @@ def compare_to_distribution(
     ``probabilities``, or given at most 1e-12 (float noise of a simulator's zero amplitudes;
     no feasible number of shots could test such a probability), have probability zero.
     """
-    _check_settings(alpha, bootstrap, confidence, seed)
+    check_settings(alpha, bootstrap, confidence, seed)
     observed_counts = check_counts("counts", counts)
     probs = check_probabilities(probabilities)
     keys = sorted(observed_counts.keys() | probs.keys())
@@ -360,21 +345,6 @@ def _streams(seed: int, count: int) -> tuple[np.random.Generator, ...]:
     # side's draws are fixed by the seed alone (and can be drawn in parallel).
     children = np.random.SeedSequence(seed).spawn(count)
     return tuple(np.random.Generator(np.random.PCG64(child)) for child in children)
-
-
-def _check_settings(alpha: float, bootstrap: int, confidence: float, seed: int) -> None:
-    if not 0 < alpha < 1:
-        raise StatsInputError(f"alpha must lie strictly between 0 and 1, not {alpha!r}")
-    if not 0 < confidence < 1:
-        raise StatsInputError(f"confidence must lie strictly between 0 and 1, not {confidence!r}")
-    if isinstance(seed, bool) or not isinstance(seed, int | np.integer) or seed < 0:
-        raise StatsInputError(f"seed must be a non-negative integer, not {seed!r}")
-    if isinstance(bootstrap, bool) or not isinstance(bootstrap, int | np.integer):
-        raise StatsInputError(f"bootstrap must be a whole number, not {bootstrap!r}")
-    if bootstrap < MIN_BOOTSTRAP:
-        raise StatsInputError(
-            f"bootstrap must be at least {MIN_BOOTSTRAP} replicates, not {bootstrap!r}"
-        )
 
 
 def _verdict_from_test(test: TestResult, alpha: float) -> Verdict:

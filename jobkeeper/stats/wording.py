@@ -8,7 +8,7 @@ from __future__ import annotations
 
 from collections.abc import Mapping
 
-from jobkeeper._stats_core import TestResult, minimum_detectable_tvd
+from jobkeeper.stats.chisquare import TestResult, minimum_detectable_tvd
 
 #: Below this many shots on a side, only large differences can be detected.
 FEW_SHOTS = 100
