@@ -10,8 +10,7 @@ The public API (also listed in ``__all__`` and checked by tests/unit/test_public
 
 from __future__ import annotations
 
-__version__ = "0.1.0"
-
+from jobkeeper._version import __version__
 from jobkeeper.backend import (
     Backend,
     BackendInfo,

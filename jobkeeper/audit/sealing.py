@@ -19,8 +19,8 @@ from typing import Any
 import numpy as np
 from cryptography.hazmat.primitives.asymmetric.ed25519 import Ed25519PrivateKey
 
-from jobkeeper import __version__
 from jobkeeper._execution import seed_for
+from jobkeeper._version import __version__
 from jobkeeper.backend import BackendInfo, Result
 from jobkeeper.provenance.checkpoint import format_checkpoint, sign_note
 from jobkeeper.provenance.dsse import PAYLOAD_TYPE, envelope_bytes, sign_envelope

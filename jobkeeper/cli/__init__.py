@@ -14,7 +14,7 @@ from typing import Annotated
 import click
 import typer
 
-from jobkeeper import __version__
+from jobkeeper._version import __version__
 from jobkeeper.cli import _device, _jobs, _proof  # noqa: F401  (they register commands)
 from jobkeeper.cli._app import app
 from jobkeeper.exceptions import JobkeeperError
