@@ -32,10 +32,10 @@ from collections.abc import Callable  # noqa: E402
 
 import numpy as np  # noqa: E402
 
-from jobkeeper.backends import _dm_program  # noqa: E402
-from jobkeeper.backends._dm_program import Channel, compile_density  # noqa: E402
-from jobkeeper.backends._dm_state import initial_density  # noqa: E402
-from jobkeeper.backends.densitymatrix import DensityMatrixBackend, NoiseModel  # noqa: E402
+from jobkeeper.backends.sim import density_program  # noqa: E402
+from jobkeeper.backends.sim.density_program import Channel, compile_density  # noqa: E402
+from jobkeeper.backends.sim.density_state import initial_density  # noqa: E402
+from jobkeeper.backends.sim.densitymatrix import DensityMatrixBackend, NoiseModel  # noqa: E402
 from jobkeeper.circuit.ir import Circuit, Operation, Register  # noqa: E402
 
 NOISE = NoiseModel(depolarizing_1q=0.001, depolarizing_2q=0.01, readout_error=0.01)
@@ -66,9 +66,9 @@ def layered(n: int, depth: int, seed: int = 1) -> Circuit:
 
 def run_steps(backend: DensityMatrixBackend, circuit: Circuit, noise: NoiseModel) -> int:
     """Simulate the compiled steps once; returns the number of blocks applied."""
-    program = compile_density(circuit, noise, _dm_program.DEFAULT_MAX_WIDTH)
+    program = compile_density(circuit, noise, density_program.DEFAULT_MAX_WIDTH)
     backend.noise = noise
-    backend._simulate(program)
+    backend.evolve(program)
     return sum(len(s.blocks) for s in program.steps if isinstance(s, Channel))
 
 

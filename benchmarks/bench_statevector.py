@@ -33,10 +33,10 @@ from collections.abc import Callable  # noqa: E402
 import numpy as np  # noqa: E402
 
 from jobkeeper.backend import Task  # noqa: E402
-from jobkeeper.backends import _kernels as kernels  # noqa: E402
-from jobkeeper.backends._program import Gates, compile_circuit  # noqa: E402
-from jobkeeper.backends._sampling import BitFormatter, counts_of_draws, draw  # noqa: E402
-from jobkeeper.backends.statevector import StatevectorBackend  # noqa: E402
+from jobkeeper.backends.sim import kernels  # noqa: E402
+from jobkeeper.backends.sim.program import Gates, compile_circuit  # noqa: E402
+from jobkeeper.backends.sim.sampling import BitFormatter, counts_of_draws, draw  # noqa: E402
+from jobkeeper.backends.sim.statevector import StatevectorBackend  # noqa: E402
 from jobkeeper.circuit.ir import Circuit, Operation, Register  # noqa: E402
 from jobkeeper.counts import CountTable  # noqa: E402
 from jobkeeper.hashing import canonical_json  # noqa: E402

@@ -18,7 +18,7 @@ from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
 from jobkeeper.backend import Task
-from jobkeeper.backends.statevector import StatevectorBackend
+from jobkeeper.backends.sim.statevector import StatevectorBackend
 from jobkeeper.circuit import parse_qasm
 from jobkeeper.exceptions import JobkeeperError, VerificationError
 from jobkeeper.hashing import canonical_json

@@ -21,9 +21,9 @@ BackendFactory = Callable[[str, Mapping[str, Any]], Backend]
 
 #: adapter name → "module:factory" of the built-in adapters.
 BUILTIN_ADAPTERS: dict[str, str] = {
-    "statevector": "jobkeeper.backends.statevector:from_config",
-    "densitymatrix": "jobkeeper.backends.densitymatrix:from_config",
-    "rest": "jobkeeper.backends.rest:from_config",
+    "statevector": "jobkeeper.backends.sim.statevector:from_config",
+    "densitymatrix": "jobkeeper.backends.sim.densitymatrix:from_config",
+    "rest": "jobkeeper.backends.rest.adapter:from_config",
 }
 
 #: backends every keep has without any configuration: name → config.

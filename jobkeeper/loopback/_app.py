@@ -38,7 +38,7 @@ from starlette.responses import JSONResponse, Response
 from starlette.routing import Route
 from starlette.types import Message, Receive, Scope, Send
 
-from jobkeeper.backends._rest_wire import format_http_date, parse_structured_string
+from jobkeeper.backends.rest.wire import format_http_date, parse_structured_string
 from jobkeeper.loopback._device import LoopbackDevice, Rejection
 
 ALL_FAULTS = ("500", "503", "429", "slow", "drop", "malformed", "lost")

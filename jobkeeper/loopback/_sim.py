@@ -25,7 +25,7 @@ def simulate(text: str, shots: int, seed: int, exact: bool) -> Outcome:
     """Run ``text`` on the state-vector simulator: counts of ``shots`` shots sampled with
     ``seed``, or exact probabilities. ValueError when it cannot run."""
     from jobkeeper.backend import Task
-    from jobkeeper.backends.statevector import from_config
+    from jobkeeper.backends.sim.statevector import from_config
     from jobkeeper.circuit import parse_qasm
 
     try:

@@ -20,7 +20,7 @@ def test_the_demo_runs_and_verifies() -> None:
 
 
 def test_the_example_device_profile_loads() -> None:
-    from jobkeeper.backends.rest import from_config
+    from jobkeeper.backends.rest.adapter import from_config
 
     backend = from_config(
         "shelf",

@@ -10,8 +10,8 @@ import pytest
 from jobkeeper import Keeper
 from jobkeeper.audit.verification import export_bundle, verify_bundle_file, verify_jobs
 from jobkeeper.backend import Task
-from jobkeeper.backends import _sampling
-from jobkeeper.backends.statevector import StatevectorBackend
+from jobkeeper.backends.sim import sampling
+from jobkeeper.backends.sim.statevector import StatevectorBackend
 from jobkeeper.circuit import parse_qasm
 from jobkeeper.counts import CountTable
 
@@ -29,8 +29,8 @@ def test_the_backend_gives_a_table_equal_to_the_dict_it_would_have_made(
 ) -> None:
     circuit = parse_qasm(CIRCUIT)
     table = StatevectorBackend().execute(Task(circuit, 20_000, seed=3)).counts
-    assert isinstance(table, CountTable) and len(table) > _sampling.TABLE_FROM
-    monkeypatch.setattr(_sampling, "TABLE_FROM", 10**9)
+    assert isinstance(table, CountTable) and len(table) > sampling.TABLE_FROM
+    monkeypatch.setattr(sampling, "TABLE_FROM", 10**9)
     plain = StatevectorBackend().execute(Task(circuit, 20_000, seed=3)).counts
     assert isinstance(plain, dict)
     assert table.to_dict() == plain and sum(plain.values()) == 20_000
@@ -44,7 +44,7 @@ def test_a_big_table_is_archived_signed_and_verifies(tmp_path: Path) -> None:
         job = keeper.run(CIRCUIT, shots=20_000, seed=3)
         counts = job.counts
         direct = StatevectorBackend().execute(Task(parse_qasm(CIRCUIT), 20_000, seed=3)).counts
-        assert counts == dict(direct) and len(counts) > _sampling.TABLE_FROM
+        assert counts == dict(direct) and len(counts) > sampling.TABLE_FROM
         report = verify_jobs(keeper)
         assert report.ok, report.problems
         assert report.checked >= 1
@@ -66,6 +66,6 @@ def test_records_that_print_the_same_string_add_up(monkeypatch: pytest.MonkeyPat
     assert isinstance(table, CountTable)
     assert len(table._parts) == 2  # one part per classical record
     assert len(table) < sum(len(values) for _, values in table._parts)  # rows merged
-    monkeypatch.setattr(_sampling, "TABLE_FROM", 10**9)
+    monkeypatch.setattr(sampling, "TABLE_FROM", 10**9)
     plain = StatevectorBackend().execute(Task(circuit, 30_000, seed=9)).counts
     assert table.to_dict() == plain and table.shots == 30_000

@@ -19,7 +19,7 @@ import pytest
 from scipy.stats import chisquare
 
 from jobkeeper.backend import Polled, Task
-from jobkeeper.backends.rest import DeviceAuthError, RestBackend, from_config
+from jobkeeper.backends.rest.adapter import DeviceAuthError, RestBackend, from_config
 from jobkeeper.circuit import parse_qasm
 from jobkeeper.exceptions import PermanentBackendError, TransientBackendError
 from jobkeeper.loopback import ALL_FAULTS

@@ -19,10 +19,10 @@ from hypothesis import strategies as st
 from scipy import stats
 
 from jobkeeper.backend import LocalBackend, Task
-from jobkeeper.backends import _dm_state
-from jobkeeper.backends._gates import gate_matrix
-from jobkeeper.backends.densitymatrix import DensityMatrixBackend, NoiseModel
-from jobkeeper.backends.statevector import StatevectorBackend
+from jobkeeper.backends.sim import density_state
+from jobkeeper.backends.sim.densitymatrix import DensityMatrixBackend, NoiseModel
+from jobkeeper.backends.sim.gates import gate_matrix
+from jobkeeper.backends.sim.statevector import StatevectorBackend
 from jobkeeper.circuit.ir import Circuit
 from jobkeeper.exceptions import PermanentBackendError
 from tests.unit.test_densitymatrix_helpers import distribution, random_circuit, reference
@@ -217,10 +217,10 @@ def test_every_record_stays_positive_and_the_records_sum_to_trace_one(
     )  # fmt: skip
     circ = random_circuit(np.random.default_rng(seed), length=10)
     program = b.compile(circ)
-    records = b._simulate(program)
+    records = b.evolve(program)
     total = 0.0
     for rho in records.values():
-        matrix = _dm_state.as_matrix(rho, circ.num_qubits)
+        matrix = density_state.as_matrix(rho, circ.num_qubits)
         np.testing.assert_allclose(matrix, matrix.conj().T, atol=1e-12)
         assert np.linalg.eigvalsh(matrix).min() >= -1e-12
         total += float(np.trace(matrix).real)
@@ -257,7 +257,7 @@ def test_counts_are_consistent_with_the_exact_distribution() -> None:
 
 
 def test_counts_are_the_documented_draw_from_the_exact_distribution() -> None:
-    # The state-vector backend's documented method (jobkeeper.backends._sampling): one
+    # The state-vector backend's documented method (jobkeeper.backends.sim.sampling): one
     # multinomial over the outcomes in ascending index order (bit j = the j-th smallest
     # classical bit), probabilities normalised and rounded to 13 decimal places,
     # numpy.random.Generator(PCG64(seed)). Redone here by hand.
@@ -298,7 +298,7 @@ def test_more_qubits_than_the_limit_are_refused_before_allocating(
     def no_allocation(n: int) -> np.ndarray:
         raise AssertionError("allocated before checking the limit")
 
-    monkeypatch.setattr(_dm_state, "initial_density", no_allocation)
+    monkeypatch.setattr(density_state, "initial_density", no_allocation)
     circ = circuit(13, [op("h", 0), measure(0, 0)], [1])
     with pytest.raises(PermanentBackendError) as info:
         backend().execute(Task(circ, 10, seed=1))

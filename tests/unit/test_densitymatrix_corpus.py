@@ -18,8 +18,8 @@ import numpy as np
 import pytest
 
 from jobkeeper.backend import Task
-from jobkeeper.backends.densitymatrix import DensityMatrixBackend
-from jobkeeper.backends.statevector import StatevectorBackend
+from jobkeeper.backends.sim.densitymatrix import DensityMatrixBackend
+from jobkeeper.backends.sim.statevector import StatevectorBackend
 from jobkeeper.circuit import load_qasm
 from jobkeeper.circuit.ir import Circuit
 from tests.unit.test_densitymatrix_helpers import random_circuit

@@ -17,9 +17,9 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy.linalg import expm
 
-from jobkeeper.backends import _kernels as kernels
-from jobkeeper.backends._fusion import fuse
-from jobkeeper.backends._gates import STANDARD_GATES, gate_matrix, signature
+from jobkeeper.backends.sim import kernels
+from jobkeeper.backends.sim.fusion import fuse
+from jobkeeper.backends.sim.gates import STANDARD_GATES, gate_matrix, signature
 from jobkeeper.circuit.stdgates import expand_standard
 from tests.unit.test_statevector_helpers import (
     PAULI_X,

@@ -12,7 +12,7 @@ import itertools
 import numpy as np
 import pytest
 
-from jobkeeper.backends import _kernels as kernels
+from jobkeeper.backends.sim import kernels
 
 N = 10
 

@@ -18,15 +18,15 @@ import pytest
 
 from jobkeeper.backend import Pricing
 from jobkeeper.backends import create_backend
-from jobkeeper.backends._dm_program import primitives
-from jobkeeper.backends._gates import gate_matrix
-from jobkeeper.backends._noise import decomposition, depolarizing, relaxation, superoperator
-from jobkeeper.backends.densitymatrix import (
+from jobkeeper.backends.sim.density_program import primitives
+from jobkeeper.backends.sim.densitymatrix import (
     DensityMatrixBackend,
     NoiseModel,
     from_config,
     noise_model_from_calibration,
 )
+from jobkeeper.backends.sim.gates import gate_matrix
+from jobkeeper.backends.sim.noise import decomposition, depolarizing, relaxation, superoperator
 from jobkeeper.circuit.ir import Circuit, Operation, Register
 from jobkeeper.exceptions import ConfigError
 from jobkeeper.hashing import digest_of

@@ -13,9 +13,9 @@ import httpx
 import pytest
 
 from jobkeeper.backend import Task
-from jobkeeper.backends._rest_http import MAX_RETRY_AFTER, DeviceAuthError, InCallRetry, Timeouts
-from jobkeeper.backends._rest_profile import load_profile
-from jobkeeper.backends.rest import RestBackend
+from jobkeeper.backends.rest.adapter import RestBackend
+from jobkeeper.backends.rest.http import MAX_RETRY_AFTER, DeviceAuthError, InCallRetry, Timeouts
+from jobkeeper.backends.rest.profile import load_profile
 from jobkeeper.circuit.ir import Circuit
 from jobkeeper.exceptions import PermanentBackendError, TransientBackendError
 

@@ -11,14 +11,14 @@ from typing import Any
 import pytest
 
 from jobkeeper.backends import create_backend
-from jobkeeper.backends._rest_config import parse_config
-from jobkeeper.backends._rest_profile import (
+from jobkeeper.backends.rest.adapter import RestBackend
+from jobkeeper.backends.rest.config import parse_config
+from jobkeeper.backends.rest.profile import (
     DeviceProfile,
     load_profile,
     parse_profile,
     shipped_profiles,
 )
-from jobkeeper.backends.rest import RestBackend
 from jobkeeper.exceptions import ConfigError
 
 REPO = Path(__file__).resolve().parents[2]

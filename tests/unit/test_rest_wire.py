@@ -8,7 +8,7 @@ from datetime import UTC, datetime
 
 import pytest
 
-from jobkeeper.backends._rest_wire import (
+from jobkeeper.backends.rest.wire import (
     PointerError,
     fill_path,
     fill_template,

@@ -25,8 +25,8 @@ from scipy import stats
 
 from jobkeeper.backend import LocalBackend, Task
 from jobkeeper.backends import create_backend
-from jobkeeper.backends._sampling import draw
-from jobkeeper.backends.statevector import StatevectorBackend, from_config
+from jobkeeper.backends.sim.sampling import draw
+from jobkeeper.backends.sim.statevector import StatevectorBackend, from_config
 from jobkeeper.circuit.ir import Operation, Register
 from jobkeeper.exceptions import ConfigError, PermanentBackendError
 from jobkeeper.hashing import digest_of
@@ -115,7 +115,7 @@ def test_grover_three_qubits_two_iterations() -> None:
 
 
 def test_counts_are_one_documented_multinomial_draw() -> None:
-    # The documented method (see _sampling): one multinomial over the final outcomes in
+    # The documented method (see sampling): one multinomial over the final outcomes in
     # ascending index order (bit j = the j-th smallest measured classical bit), PCG64(seed),
     # probabilities normalised and rounded to 13 decimals.
     ops = [op("ry", 0, params=[1.1]), op("ry", 1, params=[0.4]), op("cx", 0, 1)]
@@ -194,7 +194,7 @@ def test_metadata_and_seed_choice() -> None:
 _SUBPROCESS = """
 import json, sys
 from jobkeeper.backend import Task
-from jobkeeper.backends.statevector import StatevectorBackend
+from jobkeeper.backends.sim.statevector import StatevectorBackend
 from tests.unit.test_statevector import seeded_circuit
 result = StatevectorBackend().execute(Task(seeded_circuit(), 4000, seed=int(sys.argv[1])))
 print(json.dumps(result.counts, sort_keys=True))
@@ -283,7 +283,7 @@ def test_bit_strings_of_few_and_many_outcomes_agree(sizes: list[int], data: st.D
     # Two ways to write bit strings (one by one, and vectorised for many outcomes): both
     # must follow the OpenQASM 2 convention the same way for any registers and any set of
     # finally measured bits (the record supplies the others).
-    from jobkeeper.backends import _sampling
+    from jobkeeper.backends.sim import sampling
 
     cregs, offset = [], 0
     for k, size in enumerate(sizes):
@@ -291,15 +291,15 @@ def test_bit_strings_of_few_and_many_outcomes_agree(sizes: list[int], data: st.D
         offset += size
     final = data.draw(st.lists(st.sampled_from(range(offset)), unique=True, max_size=offset))
     record = data.draw(st.integers(0, (1 << offset) - 1))
-    formatter = _sampling.BitFormatter(cregs, offset, sorted(final))
+    formatter = sampling.BitFormatter(cregs, offset, sorted(final))
     outcomes = np.arange(1 << len(final), dtype=np.int64)
     one_by_one = [formatter._one(record, int(o)) for o in outcomes]
-    saved = _sampling.SMALL_FORMAT
+    saved = sampling.SMALL_FORMAT
     try:
-        _sampling.SMALL_FORMAT = -1
+        sampling.SMALL_FORMAT = -1
         assert formatter.format(record, outcomes) == one_by_one
     finally:
-        _sampling.SMALL_FORMAT = saved
+        sampling.SMALL_FORMAT = saved
 
 
 def test_which_jobs_the_worker_runs_inline() -> None:

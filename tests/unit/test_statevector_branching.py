@@ -13,8 +13,8 @@ import pytest
 from scipy import stats
 
 from jobkeeper.backend import Task
-from jobkeeper.backends._gates import gate_matrix
-from jobkeeper.backends.statevector import StatevectorBackend
+from jobkeeper.backends.sim.gates import gate_matrix
+from jobkeeper.backends.sim.statevector import StatevectorBackend
 from jobkeeper.circuit.ir import Operation
 from jobkeeper.exceptions import PermanentBackendError
 from tests.unit.test_statevector_helpers import (

@@ -11,7 +11,7 @@ from pathlib import Path
 import pytest
 
 from jobkeeper.backend import Task
-from jobkeeper.backends.statevector import StatevectorBackend
+from jobkeeper.backends.sim.statevector import StatevectorBackend
 from jobkeeper.circuit import load_qasm
 
 INVALID = {

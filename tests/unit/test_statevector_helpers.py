@@ -10,7 +10,7 @@ import numpy as np
 from scipy.linalg import expm
 
 from jobkeeper.backend import Task
-from jobkeeper.backends.statevector import StatevectorBackend
+from jobkeeper.backends.sim.statevector import StatevectorBackend
 from jobkeeper.circuit.ir import Circuit, Condition, Operation, Register
 
 PAULI_X = np.array([[0, 1], [1, 0]], dtype=complex)

@@ -30,14 +30,14 @@ import time
 from collections import OrderedDict
 from collections.abc import Mapping
 from datetime import UTC, datetime
-from importlib.metadata import PackageNotFoundError, version
 from typing import Any
 
 import httpx
 
+from jobkeeper._version import __version__
 from jobkeeper.backend import BackendInfo, Polled, Pricing, Result, Started, Task
-from jobkeeper.backends._rest_config import parse_config
-from jobkeeper.backends._rest_http import (
+from jobkeeper.backends.rest.config import parse_config
+from jobkeeper.backends.rest.http import (
     DEFAULT_IN_CALL_RETRY,
     DEFAULT_TIMEOUTS,
     DeviceAuthError,
@@ -50,9 +50,9 @@ from jobkeeper.backends._rest_http import (
     retrying,
     transport_error,
 )
-from jobkeeper.backends._rest_profile import DeviceProfile, RequestSpec, load_profile
-from jobkeeper.backends._rest_results import outcome_from, pick, pick_text
-from jobkeeper.backends._rest_wire import fill_path, fill_template, structured_string
+from jobkeeper.backends.rest.profile import DeviceProfile, RequestSpec, load_profile
+from jobkeeper.backends.rest.results import outcome_from, pick, pick_text
+from jobkeeper.backends.rest.wire import fill_path, fill_template, structured_string
 from jobkeeper.exceptions import PermanentBackendError
 from jobkeeper.hashing import digest_of
 
@@ -69,10 +69,7 @@ _REMEMBERED_HANDLES = 10_000
 
 
 def _user_agent() -> str:
-    try:
-        return f"jobkeeper/{version('jobkeeper')}"
-    except PackageNotFoundError:
-        return "jobkeeper"
+    return f"jobkeeper/{__version__}"
 
 
 class RestBackend:

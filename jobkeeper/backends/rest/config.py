@@ -15,7 +15,7 @@ import httpx
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator
 
 from jobkeeper.backend import Pricing
-from jobkeeper.backends._rest_http import DEFAULT_IN_CALL_RETRY, InCallRetry, Timeouts
+from jobkeeper.backends.rest.http import DEFAULT_IN_CALL_RETRY, InCallRetry, Timeouts
 from jobkeeper.exceptions import ConfigError
 
 _SECRET_KEYS = re.compile(r"token|secret|password|api_?key|credential", re.IGNORECASE)

@@ -31,10 +31,10 @@ from tenacity import (
     wait_random_exponential,
 )
 
-from jobkeeper.backends._rest_wire import PointerError, parse_retry_after, redact, resolve_pointer
+from jobkeeper.backends.rest.wire import PointerError, parse_retry_after, redact, resolve_pointer
 from jobkeeper.exceptions import PermanentBackendError, TransientBackendError
 
-log = logging.getLogger("jobkeeper.backends.rest")
+log = logging.getLogger("jobkeeper.backends.rest.adapter")
 
 #: the longest Retry-After we pass on (one hour); a larger hint is clamped and logged.
 MAX_RETRY_AFTER = 3600.0

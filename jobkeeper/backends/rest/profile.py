@@ -18,7 +18,7 @@ from typing import Annotated, Any, Literal
 from pydantic import AfterValidator, BaseModel, ConfigDict, Field, ValidationError, model_validator
 
 from jobkeeper.backend import RemoteState
-from jobkeeper.backends._rest_wire import (
+from jobkeeper.backends.rest.wire import (
     BODY_FIELDS,
     PATH_FIELDS,
     PointerError,

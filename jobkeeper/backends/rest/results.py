@@ -7,8 +7,8 @@ import math
 import re
 from typing import Any
 
-from jobkeeper.backends._rest_profile import DeviceProfile
-from jobkeeper.backends._rest_wire import PointerError, resolve_pointer
+from jobkeeper.backends.rest.profile import DeviceProfile
+from jobkeeper.backends.rest.wire import PointerError, resolve_pointer
 from jobkeeper.exceptions import PermanentBackendError
 
 #: a bit string as jobkeeper writes them: registers of 0/1 separated by single spaces.

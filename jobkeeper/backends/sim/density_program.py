@@ -2,13 +2,13 @@
 superoperator terms on the vectorised ρ, fused into small blocks between the points where
 the classical record matters.
 
-The structure is the state-vector program's (:mod:`._program`): the same validation, the
+The structure is the state-vector program's (:mod:`.program`): the same validation, the
 same rule for which measurements are final (read off the final diagonal at once), and a
 step of its own for each mid-circuit measurement, reset and conditional operation. What
 differs is what a gate becomes: on ρ stored as a vector of 4^n amplitudes (row qubit q =
 vector qubit n + q, column qubit q = vector qubit q), a gate U is U on the row qubits and
-conj(U) on the column qubits, followed by its noise channels (:mod:`._noise`). The
-fuser (:mod:`._fusion`) only multiplies matrices, so it merges these terms as it merges
+conj(U) on the column qubits, followed by its noise channels (:mod:`.noise`). The
+fuser (:mod:`.fusion`) only multiplies matrices, so it merges these terms as it merges
 gates; blocks stay within ``max_width`` vector qubits (4 by default: one two-qubit gate
 with its noise is one 16 × 16 block, one pass over ρ).
 """
@@ -19,14 +19,20 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from jobkeeper.backends import _noise as noise_channels
-from jobkeeper.backends._fusion import Block, fuse
-from jobkeeper.backends._gates import Matrix, gate_matrix, u3
-from jobkeeper.backends._noise import NoiseModel
+from jobkeeper.backends.sim import noise as noise_channels
+from jobkeeper.backends.sim.fusion import Block, fuse
+from jobkeeper.backends.sim.gates import Matrix, gate_matrix, u3
+from jobkeeper.backends.sim.noise import NoiseModel
 
 # The validation and the final-measurement rule are the state-vector program's own, so
 # the two simulators accept the same circuits and read the same measurements at the end.
-from jobkeeper.backends._program import Measure, Reset, _check, _final_measurements
+from jobkeeper.backends.sim.program import (
+    IDENTITY_GATES,
+    Measure,
+    Reset,
+    check_operation,
+    final_measurements,
+)
 from jobkeeper.circuit.ir import BARRIER, MEASURE, RESET, Circuit, Condition, Operation
 from jobkeeper.circuit.stdgates import expand_standard
 
@@ -34,8 +40,6 @@ from jobkeeper.circuit.stdgates import expand_standard
 DEFAULT_MAX_WIDTH = 4
 #: widest fused block of a noiseless run, in physical qubits (the state-vector default).
 UNITARY_WIDTH = 3
-#: gates whose matrix is the identity: only their noise acts.
-_IDENTITY_GATES = frozenset({"id", "u0"})
 
 Term = tuple[tuple[int, ...], Matrix]
 
@@ -117,7 +121,7 @@ def operation_terms(n: int, op: Operation, noise: NoiseModel, counts: list[int])
             terms += gate_terms(n, qubits, matrix, noise)
         return terms
     counts[min(len(op.qubits), 3) - 1] += 1
-    identity = op.name in _IDENTITY_GATES
+    identity = op.name in IDENTITY_GATES
     return gate_terms(n, op.qubits, None if identity else gate_matrix(op.name, op.params), noise)
 
 
@@ -125,9 +129,9 @@ def compile_density(circuit: Circuit, noise: NoiseModel, max_width: int) -> Dens
     """Validate ``circuit`` (PermanentBackendError naming the first operation that cannot
     be simulated) and turn it into steps on the vectorised ρ."""
     for op in circuit.operations:
-        _check(circuit, op)
+        check_operation(circuit, op)
     n = circuit.num_qubits
-    final_index = _final_measurements(circuit.operations)
+    final_index = final_measurements(circuit.operations)
     steps: list[Step] = []
     pending: list[Term] = []
     pending_condition: list[Condition | None] = [None]
@@ -165,7 +169,7 @@ def compile_density(circuit: Circuit, noise: NoiseModel, max_width: int) -> Dens
                 pending_condition[0] = op.condition
             if unitary:
                 counts[min(len(op.qubits), 3) - 1] += 1
-                if op.name not in _IDENTITY_GATES:
+                if op.name not in IDENTITY_GATES:
                     pending.append((op.qubits, gate_matrix(op.name, op.params)))
             else:
                 pending += operation_terms(n, op, noise, counts)

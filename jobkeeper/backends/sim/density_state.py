@@ -2,7 +2,7 @@
 
 Layout: a flat complex128 array of 4^n entries, ρ[r, c] at index r·2^n + c (row-major),
 so row qubit q is bit n + q of the index and column qubit q is bit q. Gates and channels
-are applied by the state-vector kernels on this 2n-qubit vector (:mod:`._dm_program`);
+are applied by the state-vector kernels on this 2n-qubit vector (:mod:`.density_program`);
 what is here needs the (row, column) pairing: the diagonal, measurement, reset and the
 outcome distribution with readout error.
 
@@ -17,7 +17,8 @@ from collections.abc import Sequence
 import numpy as np
 import numpy.typing as npt
 
-from jobkeeper.backends._kernels import State
+from jobkeeper.backends.sim.kernels import State
+from jobkeeper.backends.sim.sampling import reading_axes
 
 Floats = npt.NDArray[np.float64]
 
@@ -104,15 +105,10 @@ def readout_distribution(
     populations: Floats, n: int, qubits: Sequence[int], errors: Sequence[float]
 ) -> Floats:
     """Probabilities of the readings of ``qubits`` (index bit j = reading of qubits[j],
-    as in :func:`._sampling.marginal`), each reading flipped with probability
+    as in :func:`.sampling.marginal`), each reading flipped with probability
     ``errors[j]``: the marginal of the populations times a 2 × 2 stochastic matrix per
     measured bit, exactly."""
-    probs = np.maximum(populations, 0.0).reshape((2,) * n)
-    keep = [n - 1 - q for q in qubits]
-    summed = np.sum(probs, axis=tuple(a for a in range(n) if a not in keep)) if n else probs
-    remaining = sorted(keep)
-    order = [remaining.index(keep[j]) for j in reversed(range(len(keep)))]
-    out = np.ascontiguousarray(np.transpose(summed, order))
+    out = reading_axes(np.maximum(populations, 0.0), n, qubits)
     # Axis a of ``out`` is reading j = m − 1 − a.
     m = len(qubits)
     for j, e in enumerate(errors):

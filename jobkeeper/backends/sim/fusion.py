@@ -15,8 +15,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from jobkeeper.backends._gates import Matrix, embed, kron
-from jobkeeper.backends._kernels import classify
+from jobkeeper.backends.sim.gates import Matrix, embed, kron
+from jobkeeper.backends.sim.kernels import classify
 
 #: widest fused block: on a random layered 24-qubit circuit 5 beat 4 and 3 (fewer passes
 #: outweigh the dearer 32 × 32 products).

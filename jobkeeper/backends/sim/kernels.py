@@ -28,7 +28,7 @@ from collections.abc import Iterator
 import numpy as np
 import numpy.typing as npt
 
-from jobkeeper.backends._gates import Matrix, embed
+from jobkeeper.backends.sim.gates import Matrix, embed
 
 State = npt.NDArray[np.complex128]
 

@@ -42,7 +42,7 @@ from typing import Annotated, Any
 import numpy as np
 from pydantic import BaseModel, BeforeValidator, ConfigDict, ValidationError, model_validator
 
-from jobkeeper.backends._gates import Matrix
+from jobkeeper.backends.sim.gates import Matrix
 from jobkeeper.circuit.ir import BARRIER, MEASURE, RESET, Circuit
 from jobkeeper.circuit.stdgates import STANDARD_GATES, expand_standard
 from jobkeeper.exceptions import ConfigError

@@ -12,13 +12,14 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-from jobkeeper.backends._fusion import Block, fuse
-from jobkeeper.backends._gates import Matrix, gate_matrix, signature
+from jobkeeper.backends.sim.fusion import Block, fuse
+from jobkeeper.backends.sim.gates import Matrix, gate_matrix, signature
 from jobkeeper.circuit.ir import BARRIER, MEASURE, RESET, Circuit, Condition, Operation
 from jobkeeper.exceptions import PermanentBackendError
 
-#: gates that do nothing to the state.
-_IDENTITY_GATES = frozenset({"id", "u0"})
+#: gates whose matrix is the identity: they do nothing to the state (on a noisy
+#: simulator only their noise acts).
+IDENTITY_GATES = frozenset({"id", "u0"})
 
 
 @dataclass(frozen=True, slots=True)
@@ -53,13 +54,14 @@ class Program:
     num_qubits: int
     steps: tuple[Step, ...]
     #: (qubit, clbit) of the final measurements, in ascending clbit order (the order of
-    #: the bits of an outcome index, see _sampling).
+    #: the bits of an outcome index, see sampling).
     final: tuple[tuple[int, int], ...]
     #: whether the circuit measures anything at all.
     measures: bool
 
 
-def _check(circuit: Circuit, op: Operation) -> None:
+def check_operation(circuit: Circuit, op: Operation) -> None:
+    """PermanentBackendError naming ``op`` when a simulator cannot run it."""
     for q in op.qubits:
         if not 0 <= q < circuit.num_qubits:
             raise PermanentBackendError(f"operation {op.name!r} acts on qubit {q} out of range")
@@ -88,7 +90,7 @@ def _check(circuit: Circuit, op: Operation) -> None:
         raise PermanentBackendError(f"gate {op.name!r} repeats a qubit: {op.qubits}")
 
 
-def _final_measurements(ops: tuple[Operation, ...]) -> dict[int, bool]:
+def final_measurements(ops: tuple[Operation, ...]) -> dict[int, bool]:
     """Index of each measurement that can be read off the final state → whether its bit
     survives (False: a later final measurement overwrites the same bit)."""
     touched: set[int] = set()
@@ -117,8 +119,8 @@ def compile_circuit(circuit: Circuit, max_width: int) -> Program:
     """Validate ``circuit`` and turn it into simulation steps (raises
     PermanentBackendError naming the first operation that cannot be simulated)."""
     for op in circuit.operations:
-        _check(circuit, op)
-    final_index = _final_measurements(circuit.operations)
+        check_operation(circuit, op)
+    final_index = final_measurements(circuit.operations)
     steps: list[Step] = []
     pending: list[tuple[tuple[int, ...], Matrix]] = []
 
@@ -141,14 +143,14 @@ def compile_circuit(circuit: Circuit, max_width: int) -> Program:
                 step: Step = Measure(op.qubits[0], op.clbits[0], op.condition)
             elif op.name == RESET:
                 step = Reset(op.qubits[0], op.condition)
-            elif op.condition is not None and op.name not in _IDENTITY_GATES:
+            elif op.condition is not None and op.name not in IDENTITY_GATES:
                 (block,) = fuse([(op.qubits, gate_matrix(op.name, op.params))], max_width)
                 step = Conditional(op.condition, block)
             else:
                 continue
             steps.append(step)
             continue
-        if op.name not in _IDENTITY_GATES:
+        if op.name not in IDENTITY_GATES:
             pending.append((op.qubits, gate_matrix(op.name, op.params)))
     flush()
     measures = any(op.name == MEASURE for op in circuit.operations)

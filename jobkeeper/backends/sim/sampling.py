@@ -23,7 +23,7 @@ from collections.abc import Mapping, Sequence
 import numpy as np
 import numpy.typing as npt
 
-from jobkeeper.backends._kernels import State
+from jobkeeper.backends.sim.kernels import State
 from jobkeeper.circuit.ir import Register
 from jobkeeper.counts import CountTable, Rows, strings_of_rows
 
@@ -50,14 +50,21 @@ def marginal(state: State, n: int, qubits: Sequence[int]) -> Floats:
         # Every qubit read, in index order: the probabilities are the state's, as they are.
         return np.asarray(state.real**2 + state.imag**2, dtype=np.float64)
     floats = state.view(np.float64).reshape(-1, 2)
-    probs = np.einsum("ij,ij->i", floats, floats).reshape((2,) * n)
+    return reading_axes(np.einsum("ij,ij->i", floats, floats), n, qubits).reshape(-1)
+
+
+def reading_axes(populations: Floats, n: int, qubits: Sequence[int]) -> Floats:
+    """The basis probabilities of n qubits summed to those of the readings of
+    ``qubits``, as an array with one axis per reading: axis a is the reading of
+    ``qubits[m − 1 − a]`` (m readings), so the flat array's index bit j is qubits[j]."""
+    probs = populations.reshape((2,) * n)
     keep = [n - 1 - q for q in qubits]
     dropped = tuple(a for a in range(n) if a not in keep)
     summed = np.sum(probs, axis=dropped) if dropped else probs
     # Remaining axes are in ascending axis order; the last one must be qubits[0].
     remaining = sorted(keep)
     order = [remaining.index(keep[j]) for j in reversed(range(len(keep)))]
-    return np.ascontiguousarray(np.transpose(summed, order)).reshape(-1)
+    return np.ascontiguousarray(np.transpose(summed, order))
 
 
 def draw(rng: np.random.Generator, shots: int, probs: Floats) -> Ints:
