@@ -34,8 +34,7 @@ def main() -> None:
         keep = Path(tmp) / "keep"
         keep.mkdir()
         (keep / "config.toml").write_text(
-            '[backends.rec]\nadapter = "jobkeeper.testing:recording_backend"\n'
-            f'ledger_dir = "{Path(tmp) / "ledger"}"\n'
+            f'[backends.rec]\nadapter = "recording"\nledger_dir = "{Path(tmp) / "ledger"}"\n'
         )
         with Keeper.open(keep) as keeper:
             start = time.perf_counter()

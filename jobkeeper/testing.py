@@ -102,7 +102,7 @@ def starts(ledger_dir: Path) -> list[str]:
 
 
 def recording_backend(name: str, config: Mapping[str, Any]) -> RecordingBackend:
-    """Factory for config.toml: ``adapter = "jobkeeper.testing:recording_backend"``."""
+    """Factory for config.toml: ``adapter = "recording"`` (registered as an entry point)."""
     return RecordingBackend(name, Path(config["ledger_dir"]), delay=float(config.get("delay", 0)))
 
 
@@ -133,7 +133,7 @@ class FlakyBackend(RecordingBackend):
 
 
 def flaky_backend(name: str, config: Mapping[str, Any]) -> FlakyBackend:
-    """Factory for config.toml: ``adapter = "jobkeeper.testing:flaky_backend"``."""
+    """Factory for config.toml: ``adapter = "flaky"`` (registered as an entry point)."""
     return FlakyBackend(
         name, Path(config["ledger_dir"]), failures=int(config.get("failures", 2)),
         retry_after=config.get("retry_after"), permanent_message=config.get("permanent_message"),

@@ -18,7 +18,7 @@ from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
 from jobkeeper.backend import Task
-from jobkeeper.backends.sim.statevector import StatevectorBackend
+from jobkeeper.backends import ideal_simulator
 from jobkeeper.circuit import parse_qasm
 from jobkeeper.exceptions import JobkeeperError, VerificationError
 from jobkeeper.hashing import canonical_json
@@ -115,8 +115,8 @@ def ideal_distribution(keeper: Keeper, job: Job) -> dict[str, float]:
     statement = verified_manifest(keeper, job)
     text = statement["predicate"]["circuit"]["canonicalText"]
     circuit = parse_qasm(text, filename=f"manifest of job {job.id[:12]}")
-    result = StatevectorBackend().execute(Task(circuit=circuit, shots=1, exact=True,
-                                               circuit_text=text))  # fmt: skip
+    result = ideal_simulator().execute(Task(circuit=circuit, shots=1, exact=True,
+                                            circuit_text=text))  # fmt: skip
     return dict(result.probabilities or {})
 
 

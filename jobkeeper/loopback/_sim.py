@@ -25,12 +25,12 @@ def simulate(text: str, shots: int, seed: int, exact: bool) -> Outcome:
     """Run ``text`` on the state-vector simulator: counts of ``shots`` shots sampled with
     ``seed``, or exact probabilities. ValueError when it cannot run."""
     from jobkeeper.backend import Task
-    from jobkeeper.backends.sim.statevector import from_config
+    from jobkeeper.backends import ideal_simulator
     from jobkeeper.circuit import parse_qasm
 
     try:
         circuit = parse_qasm(text)
-        backend = from_config("loopback-simulator", {"adapter": "statevector"})
+        backend = ideal_simulator()
         task = Task(circuit=circuit, shots=shots, seed=seed, exact=exact, circuit_text=text)
         result = backend.execute(task)
     except JobkeeperError as exc:

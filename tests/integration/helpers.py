@@ -29,7 +29,7 @@ def write_recording_keep(
         lines.append(f'store = "{store}"')
     lines += [
         "[backends.rec]",
-        'adapter = "jobkeeper.testing:recording_backend"',
+        'adapter = "recording"',
         f'ledger_dir = "{ledger}"',
         f"delay = {delay}",
     ]

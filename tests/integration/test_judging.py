@@ -93,7 +93,7 @@ def test_budget_refuses_with_the_amount_left_and_queues_nothing(tmp_path: Path, 
     keep.mkdir()
     (keep / "config.toml").write_text(
         "[budget]\ntotal = 10.0\n[budget.labels]\npaper = 3.0\n\n"
-        '[backends.paid]\nadapter = "jobkeeper.testing:recording_backend"\n'
+        '[backends.paid]\nadapter = "recording"\n'
         f'ledger_dir = "{tmp_path / "ledger"}"\n'
     )
     # The recording double has no pricing; wrap it with one (invented prices).

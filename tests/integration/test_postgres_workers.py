@@ -5,7 +5,7 @@ must accept a log that entries signed by four keys make up. Then the faults of a
 database: a worker SIGKILLed while it holds jobs, and another's database connections
 terminated by the server (``pg_terminate_backend``). Nothing may be lost or run twice.
 
-The device is the shipped test double ``jobkeeper.testing:recording_backend``: idempotent
+The device is the shipped test double ``recording``: idempotent
 on the client key (the job key), it appends each real execution to a ledger and answers a
 repeated start with the stored result marked ``replayed``. Real-process kill tests with
 exactly-once counting are common practice in durable queues (queue-reliability notes §7;
@@ -69,7 +69,7 @@ def make_keeps(tmp_path: Path, url: str, ledger: Path, *, delay: float) -> list[
         keep.mkdir()
         (keep / "config.toml").write_text(
             f'store = "{url}"\n\n[backends.rec]\n'
-            f'adapter = "jobkeeper.testing:recording_backend"\n'
+            f'adapter = "recording"\n'
             f'ledger_dir = "{ledger}"\ndelay = {delay}\n'
         )
         Keeper.open(keep).close()

@@ -20,7 +20,7 @@ def flaky_keep(tmp_path: Path, **options: object) -> Path:
     keep = tmp_path / "keep"
     keep.mkdir()
     lines = ["[defaults]", f"max_attempts = {options.pop('max_attempts', 10)}", "",
-             "[backends.flaky]", 'adapter = "jobkeeper.testing:flaky_backend"',
+             "[backends.flaky]", 'adapter = "flaky"',
              f'ledger_dir = "{tmp_path / "ledger"}"']  # fmt: skip
     for key, value in options.items():
         lines.append(f"{key} = {json.dumps(value)}")
