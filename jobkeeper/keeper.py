@@ -44,10 +44,9 @@ from jobkeeper.exceptions import (
 from jobkeeper.hashing import sha256_tag
 from jobkeeper.provenance.keys import KeyRing
 from jobkeeper.provenance.manifest import git_code_version
-from jobkeeper.queue import DEFAULT_LEASE, LeasePolicy, RetryPolicy
+from jobkeeper.queue import DEFAULT_LEASE, TERMINAL_STATES, LeasePolicy, RetryPolicy
 from jobkeeper.spec import JobSpec, job_key
 from jobkeeper.store import (
-    TERMINAL_STATES,
     Attempt,
     JobRecord,
     LogEntry,

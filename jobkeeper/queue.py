@@ -1,4 +1,6 @@
-"""The job state machine's policies: leases, heartbeats, retries and back-off.
+"""The job state machine: its states (:class:`JobState`) and the moves between them
+(:data:`TRANSITIONS`), owned here and used by the stores, the worker and every reader;
+and its policies: leases, heartbeats, retries and back-off.
 
 States (DESIGN §3)::
 
@@ -16,38 +18,69 @@ job still waiting use no attempt. The transactions themselves live in the store.
 from __future__ import annotations
 
 import random
+from collections.abc import Mapping
+from enum import StrEnum
 
 from pydantic import BaseModel, ConfigDict, Field
 
-from jobkeeper.store import (
-    CANCELLED,
-    DONE,
-    FAILED,
-    LIVE_STATES,
-    QUEUED,
-    RUNNING,
-    STATES,
-    TERMINAL_STATES,
-    WAITING,
-)
-
 __all__ = [
-    "CANCELLED",
     "DEFAULT_LEASE",
     "DEFAULT_POLL",
     "DEFAULT_RETRY",
-    "DONE",
-    "FAILED",
+    "KEYED_STATES",
     "LIVE_STATES",
-    "QUEUED",
-    "RUNNING",
-    "STATES",
     "TERMINAL_STATES",
-    "WAITING",
+    "TRANSITIONS",
+    "JobState",
     "LeasePolicy",
     "PollPolicy",
     "RetryPolicy",
 ]
+
+
+class JobState(StrEnum):
+    """Where a job is. The values are what the archive stores and every reader prints."""
+
+    QUEUED = "queued"
+    RUNNING = "running"
+    WAITING = "waiting"
+    DONE = "done"
+    FAILED = "failed"
+    CANCELLED = "cancelled"
+
+    @property
+    def terminal(self) -> bool:
+        """Nothing moves a job out of this state (nothing is ever deleted either)."""
+        return not TRANSITIONS[self]
+
+    def can_move_to(self, other: JobState) -> bool:
+        return other in TRANSITIONS[self]
+
+
+#: Every move a store may make, and what makes it. A job is claimed from ``queued`` (to
+#: start) or ``waiting`` (to poll); only a worker holding the lease moves it on.
+TRANSITIONS: Mapping[JobState, frozenset[JobState]] = {
+    # claim; cancel before any worker took it
+    JobState.QUEUED: frozenset({JobState.RUNNING, JobState.CANCELLED}),
+    # device accepted it or still working (waiting); transient failure, shutdown or an
+    # expired lease (queued, or waiting when a handle is recorded); finished; gave up;
+    # cancelled on request
+    JobState.RUNNING: frozenset(
+        {JobState.WAITING, JobState.QUEUED, JobState.DONE, JobState.FAILED, JobState.CANCELLED}
+    ),
+    # a poll is due (a cancel request also makes it due: the worker tells the device)
+    JobState.WAITING: frozenset({JobState.RUNNING}),
+    JobState.DONE: frozenset(),
+    JobState.FAILED: frozenset(),
+    JobState.CANCELLED: frozenset(),
+}
+
+#: Jobs still to be finished: the worker has work while any is left.
+LIVE_STATES = frozenset({JobState.QUEUED, JobState.RUNNING, JobState.WAITING})
+TERMINAL_STATES = frozenset(state for state in JobState if state.terminal)
+#: States in which a job key is taken: a second submission joins or reuses that job; a
+#: failed or cancelled job leaves its key free for a new try.
+KEYED_STATES = LIVE_STATES | {JobState.DONE}
 
 #: A server's Retry-After beyond this is clamped (and the clamp is recorded).
 MAX_BACKEND_DELAY = 3600.0

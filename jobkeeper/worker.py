@@ -43,6 +43,8 @@ from jobkeeper.queue import (
     DEFAULT_LEASE,
     DEFAULT_POLL,
     DEFAULT_RETRY,
+    LIVE_STATES,
+    JobState,
     LeasePolicy,
     PollPolicy,
     RetryPolicy,
@@ -262,9 +264,9 @@ class Worker:
     async def _drained(self) -> bool:
         if self.ids is not None:
             jobs = await self._store(self.store.get_many, self.ids)
-            return all(job.state in ("done", "failed", "cancelled") for job in jobs)
+            return all(job.state.terminal for job in jobs)
         counts = await self._store(self.store.counts_by_state)
-        return not any(counts.get(state, 0) for state in ("queued", "running", "waiting"))
+        return not any(counts.get(state, 0) for state in LIVE_STATES)
 
     async def _claim_more(self) -> int:
         free = self.in_flight - len(self._held)
@@ -317,12 +319,12 @@ class Worker:
         try:
             backend = self._backend(job.backend)
             if job.cancel_requested:
-                if claim.was == "waiting" and job.handle:
+                if claim.was == JobState.WAITING and job.handle:
                     await backend.cancel(job.handle)
                 await self._store(self.store.mark_cancelled, job.id, claim.token)
                 self.stats.cancelled += 1
                 return
-            if claim.was == "waiting" and job.handle:
+            if claim.was == JobState.WAITING and job.handle:
                 await self._poll(held, backend)
             else:
                 await self._start(held, backend)
@@ -455,7 +457,7 @@ class Worker:
         except LeaseLost:
             self.stats.lost_leases += 1
             return
-        if state == "failed":
+        if state == JobState.FAILED:
             self.stats.failed += 1
         else:
             self.stats.retried += 1

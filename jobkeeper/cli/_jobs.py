@@ -259,10 +259,10 @@ def jobs(
     json_out: JsonOpt = False,
 ) -> None:
     """List jobs, oldest first."""
-    from jobkeeper.queue import STATES
+    from jobkeeper.queue import JobState
 
-    if state is not None and state not in STATES:
-        raise ConfigError(f"unknown state {state!r}; states are: {', '.join(STATES)}")
+    if state is not None and state not in set(JobState):
+        raise ConfigError(f"unknown state {state!r}; states are: {', '.join(JobState)}")
     keeper = open_keeper(keep, store, create=False)
     records = [j.record for j in keeper.jobs(label=label, state=state, limit=limit)]
     if json_out:

@@ -1,8 +1,11 @@
 """The archive: the :class:`Store` protocol, its records, and :func:`open_store`.
 
 Two implementations share one protocol and one test suite: SQLite (``sqlite.py``, the
-embedded default, one file in the keep directory) and PostgreSQL (``postgres.py``, given
-as a ``postgresql://`` URL, for several workers on several machines).
+embedded default, one file in the keep directory) and PostgreSQL (``postgres/``, given
+as a ``postgresql://`` URL, for several workers on several machines). Every statement
+both run is in ``sql.py``; the reads they share are in ``reads.py``. Each store translates
+its driver's errors into :class:`~jobkeeper.exceptions.StoreError` and its subclasses at
+its edge: no ``sqlite3`` or psycopg exception leaves a store method.
 
 Rules every implementation keeps (DESIGN §4, notes on queue reliability):
 
@@ -25,16 +28,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Protocol
 
-# Job states (DESIGN §3).
-QUEUED = "queued"
-RUNNING = "running"
-WAITING = "waiting"
-DONE = "done"
-FAILED = "failed"
-CANCELLED = "cancelled"
-STATES = (QUEUED, RUNNING, WAITING, DONE, FAILED, CANCELLED)
-LIVE_STATES = (QUEUED, RUNNING, WAITING)
-TERMINAL_STATES = (DONE, FAILED, CANCELLED)
+from jobkeeper.queue import JobState
 
 
 @dataclass(frozen=True)
@@ -60,7 +54,7 @@ class JobRecord:
 
     id: str
     job_key: str
-    state: str
+    state: JobState
     backend: str
     shots: int
     seed: str | None
@@ -90,7 +84,7 @@ class Claim:
 
     job: JobRecord
     token: int
-    was: str
+    was: JobState
 
 
 @dataclass(frozen=True)
@@ -217,7 +211,9 @@ class Store(Protocol):
         attempt is used up."""
         ...
 
-    def retry(self, job_id: str, token: int, error_class: str, message: str, delay: float) -> str:
+    def retry(
+        self, job_id: str, token: int, error_class: str, message: str, delay: float
+    ) -> JobState:
         """Record a failed attempt; back to ``queued`` (or ``waiting`` when a handle is
         recorded) after ``delay`` seconds, or ``failed`` when out of attempts. Returns the
         new state."""
@@ -346,15 +342,6 @@ def open_store(location: str | Path, *, create: bool = True) -> Store:
 
 
 __all__ = [
-    "CANCELLED",
-    "DONE",
-    "FAILED",
-    "LIVE_STATES",
-    "QUEUED",
-    "RUNNING",
-    "STATES",
-    "TERMINAL_STATES",
-    "WAITING",
     "Attempt",
     "Claim",
     "ComparisonRecord",

@@ -17,18 +17,14 @@ import random
 import sqlite3
 import threading
 import time
-from collections.abc import Iterator, Sequence
+from collections.abc import Callable, Iterator, Sequence
 from contextlib import contextmanager
+from functools import partial
 from pathlib import Path
-from typing import Any
+from typing import Any, TypeVar
 
-import sqlite_utils
-
-from jobkeeper.exceptions import (
-    ConfigError,
-    LeaseLost,
-    StoreUnavailable,
-)
+from jobkeeper.exceptions import ConfigError, LeaseLost, StoreError, StoreUnavailable
+from jobkeeper.queue import JobState
 from jobkeeper.store import (
     Claim,
     ComparisonRecord,
@@ -37,12 +33,16 @@ from jobkeeper.store import (
     LogAppender,
     NewJob,
     result_row,
+    sql,
 )
-from jobkeeper.store import _sql as sql
-from jobkeeper.store._reads import StoreReads, record_of
+from jobkeeper.store.reads import StoreReads, record_of
 
-NOW = "((julianday('now') - 2440587.5) * 86400.0)"
+T = TypeVar("T")
+NOW = sql.SQLITE_NOW
 BUSY_DEADLINE_SECONDS = 60.0
+#: SQLite's primary result codes for "another connection holds the lock" (extended codes
+#: such as SQLITE_BUSY_SNAPSHOT carry the primary code in their low byte).
+_BUSY_CODES = frozenset({sqlite3.SQLITE_BUSY, sqlite3.SQLITE_LOCKED})
 
 
 def _q(statement: str, **extra: str) -> str:
@@ -58,6 +58,46 @@ _INSERT_RESULT = _q(sql.INSERT_RESULT)
 _INSERT_LOG_ENTRY = _q(sql.INSERT_LOG_ENTRY)
 
 
+def is_busy(exc: sqlite3.Error) -> bool:
+    """Whether ``exc`` says the database is locked by another connection (worth waiting
+    for), read from SQLite's result code rather than the wording of its message."""
+    code = getattr(exc, "sqlite_errorcode", None)
+    return isinstance(code, int) and (code & 0xFF) in _BUSY_CODES
+
+
+def patiently(step: Callable[[], T], *, what: str) -> T:
+    """Run ``step``, again after a short random sleep while SQLite reports the database
+    busy, for up to :data:`BUSY_DEADLINE_SECONDS`. The random sleeps are the fairness rule
+    of the module docstring. A busy database past the deadline is StoreUnavailable."""
+    deadline = time.monotonic() + BUSY_DEADLINE_SECONDS
+    while True:
+        try:
+            return step()
+        except sqlite3.Error as exc:
+            if not is_busy(exc):
+                raise
+            if time.monotonic() > deadline:
+                raise StoreUnavailable(
+                    f"{what} stayed locked for {BUSY_DEADLINE_SECONDS:.0f} s"
+                ) from exc
+        time.sleep(random.uniform(0.0005, 0.004))
+
+
+@contextmanager
+def map_errors(what: str) -> Iterator[None]:
+    """The store's edge: a ``sqlite3`` error raised inside becomes one of ours. A database
+    that cannot be opened, read or written (locked, missing, full, not a database) is
+    StoreUnavailable (exit 3); anything else the driver refuses is a StoreError."""
+    try:
+        yield
+    except sqlite3.OperationalError as exc:
+        raise StoreUnavailable(f"{what}: {exc}") from exc
+    except sqlite3.Error as exc:
+        if type(exc) is sqlite3.DatabaseError:  # not a database file, or a damaged one
+            raise StoreUnavailable(f"{what}: {exc}") from exc
+        raise StoreError(f"{what}: {exc}") from exc
+
+
 class SqliteStore(StoreReads):
     """The archive in one SQLite file. Safe for several processes on one machine (not on a
     network file system); one connection per store object, used by one thread at a time."""
@@ -65,20 +105,20 @@ class SqliteStore(StoreReads):
     def __init__(self, path: Path, *, create: bool = True) -> None:
         self.path = Path(path)
         self.location = str(self.path)
+        self._where = f"the archive at {self.path}"
         if not self.path.exists() and not create:
             raise StoreUnavailable(f"no archive at {self.path} (run 'jobkeeper init' first)")
         try:
             self.path.parent.mkdir(parents=True, exist_ok=True)
+        except OSError as exc:
+            raise StoreUnavailable(f"cannot open the archive at {self.path}: {exc}") from exc
+        with map_errors(f"cannot open the archive at {self.path}"):
             conn = sqlite3.connect(
                 self.path, timeout=0.05, isolation_level=None, check_same_thread=False
             )
-            conn.execute("PRAGMA journal_mode=WAL")
-            conn.execute("PRAGMA synchronous=FULL")
-            conn.execute("PRAGMA foreign_keys=ON")
-        except (OSError, sqlite3.Error) as exc:
-            raise StoreUnavailable(f"cannot open the archive at {self.path}: {exc}") from exc
+            for pragma in sql.SQLITE_OPEN:
+                patiently(partial(conn.execute, pragma), what=self._where)
         self._conn = conn
-        self._db = sqlite_utils.Database(conn)
         self._lock = threading.RLock()
         self._migrate()
 
@@ -87,94 +127,57 @@ class SqliteStore(StoreReads):
     @contextmanager
     def _write(self, *, durable: bool = True) -> Iterator[sqlite3.Connection]:
         """One write transaction, opened with BEGIN IMMEDIATE, retried on a busy database
-        with short random sleeps until a deadline.
+        with short random sleeps until a deadline. Any driver error inside the block
+        rolls the transaction back and comes out as one of ours.
 
         ``durable=False`` skips the sync at commit, for writes whose loss on power failure
         only sends a job back to the queue (claims, lease renewals, rescues). In WAL mode
         the next synced commit syncs every earlier frame too, so nothing is reordered."""
-        with self._lock:
+        conn = self._conn
+        with self._lock, map_errors(f"archive error at {self.path}"):
             if not durable:
-                self._conn.execute("PRAGMA synchronous=NORMAL")
+                conn.execute(sql.SQLITE_SYNC_NORMAL)
             try:
-                self._begin()
+                patiently(lambda: conn.execute(sql.SQLITE_BEGIN), what=self._where)
                 try:
-                    yield self._conn
+                    yield conn
+                    patiently(lambda: conn.execute(sql.SQLITE_COMMIT), what=self._where)
                 except BaseException:
-                    self._conn.execute("ROLLBACK")
+                    if conn.in_transaction:
+                        conn.execute(sql.SQLITE_ROLLBACK)
                     raise
-                self._commit()
             finally:
                 if not durable:
-                    self._conn.execute("PRAGMA synchronous=FULL")
-
-    def _begin(self) -> None:
-        deadline = time.monotonic() + BUSY_DEADLINE_SECONDS
-        while True:
-            try:
-                self._conn.execute("BEGIN IMMEDIATE")
-                return
-            except sqlite3.OperationalError as exc:
-                if "locked" not in str(exc) and "busy" not in str(exc):
-                    raise StoreUnavailable(f"archive error: {exc}") from exc
-                if time.monotonic() > deadline:
-                    raise StoreUnavailable(
-                        f"the archive at {self.path} stayed locked for "
-                        f"{BUSY_DEADLINE_SECONDS:.0f} s"
-                    ) from exc
-                time.sleep(random.uniform(0.0005, 0.004))
-
-    def _commit(self) -> None:
-        deadline = time.monotonic() + BUSY_DEADLINE_SECONDS
-        while True:
-            try:
-                self._conn.execute("COMMIT")
-                return
-            except sqlite3.OperationalError as exc:
-                if "locked" not in str(exc) and "busy" not in str(exc):
-                    self._conn.execute("ROLLBACK")
-                    raise StoreUnavailable(f"archive error: {exc}") from exc
-                if time.monotonic() > deadline:
-                    self._conn.execute("ROLLBACK")
-                    raise StoreUnavailable(f"the archive at {self.path} stayed locked") from exc
-                time.sleep(random.uniform(0.0005, 0.004))
+                    conn.execute(sql.SQLITE_SYNC_FULL)
 
     def _read(self, statement: str, params: Sequence[Any] = ()) -> list[Any]:
-        deadline = time.monotonic() + BUSY_DEADLINE_SECONDS
-        with self._lock:
-            while True:
-                try:
-                    return self._conn.execute(_q(statement), params).fetchall()
-                except sqlite3.OperationalError as exc:
-                    if "locked" not in str(exc) or time.monotonic() > deadline:
-                        raise StoreUnavailable(f"archive error: {exc}") from exc
-                    time.sleep(random.uniform(0.0005, 0.004))
+        text = _q(statement)
+        with self._lock, map_errors(f"archive error at {self.path}"):
+            rows: list[Any] = patiently(
+                lambda: self._conn.execute(text, params).fetchall(), what=self._where
+            )
+            return rows
 
     def _migrate(self) -> None:
-        try:
-            with self._write() as conn:
-                conn.execute("CREATE TABLE IF NOT EXISTS meta (key TEXT PRIMARY KEY, value TEXT)")
-                row = conn.execute("SELECT value FROM meta WHERE key = 'schema_version'").fetchone()
-                version = int(row[0]) if row else 0
-                if version > sql.SCHEMA_VERSION:
-                    raise ConfigError(
-                        f"the archive at {self.path} has schema version {version}, newer than "
-                        f"this jobkeeper understands ({sql.SCHEMA_VERSION}); upgrade jobkeeper"
-                    )
-                for step in sql.MIGRATIONS[version:]:
-                    for statement in step:
-                        conn.execute(statement.replace("BYTEA", "BLOB"))
-                conn.execute(
-                    "INSERT INTO meta (key, value) VALUES ('schema_version', ?) "
-                    "ON CONFLICT (key) DO UPDATE SET value = excluded.value",
-                    (str(sql.SCHEMA_VERSION),),
+        with self._write() as conn:
+            conn.execute(sql.CREATE_META)
+            row = conn.execute(sql.GET_META, ("schema_version",)).fetchone()
+            version = int(row[0]) if row else 0
+            if version > sql.SCHEMA_VERSION:
+                raise ConfigError(
+                    f"the archive at {self.path} has schema version {version}, newer than "
+                    f"this jobkeeper understands ({sql.SCHEMA_VERSION}); upgrade jobkeeper"
                 )
-        except sqlite3.Error as exc:
-            raise StoreUnavailable(f"cannot prepare the archive at {self.path}: {exc}") from exc
+            for step in sql.MIGRATIONS[version:]:
+                for statement in step:
+                    conn.execute(statement.replace("BYTEA", "BLOB"))
+            if version != sql.SCHEMA_VERSION:
+                conn.execute(sql.SET_META, ("schema_version", str(sql.SCHEMA_VERSION)))
 
     # -- queue ----------------------------------------------------------------------------
 
     def now(self) -> float:
-        return float(self._read(f"SELECT {NOW}")[0][0])
+        return float(self._read(sql.CLOCK)[0][0])
 
     def enqueue(self, jobs: Sequence[NewJob]) -> list[tuple[JobRecord, bool]]:
         out: list[tuple[JobRecord, bool]] = []
@@ -220,7 +223,11 @@ class SqliteStore(StoreReads):
         claims = [record_of(row) for row in rows]
         claims.sort(key=lambda job: job.not_before)
         return [
-            Claim(job=job, token=job.lease_token, was="waiting" if job.handle else "queued")
+            Claim(
+                job=job,
+                token=job.lease_token,
+                was=JobState.WAITING if job.handle else JobState.QUEUED,
+            )
             for job in claims
         ]
 
@@ -246,7 +253,9 @@ class SqliteStore(StoreReads):
     def snooze(self, job_id: str, token: int, poll_after: float) -> None:
         self._fenced(sql.SNOOZE, (poll_after, job_id, token), job_id)
 
-    def retry(self, job_id: str, token: int, error_class: str, message: str, delay: float) -> str:
+    def retry(
+        self, job_id: str, token: int, error_class: str, message: str, delay: float
+    ) -> JobState:
         with self._write() as conn:
             inserted = conn.execute(
                 _q(sql.INSERT_ATTEMPT), (error_class, message, delay, job_id, token)
@@ -254,7 +263,7 @@ class SqliteStore(StoreReads):
             row = conn.execute(_q(sql.RETRY), (message, delay, job_id, token)).fetchone()
             if inserted != 1 or row is None:
                 raise LeaseLost(f"job {job_id}: lease lost, another worker holds it now")
-            return str(row[0])
+            return JobState(row[0])
 
     def fail(self, job_id: str, token: int, error_class: str, message: str) -> None:
         with self._write() as conn:
@@ -299,7 +308,7 @@ class SqliteStore(StoreReads):
         items: Sequence[tuple[str, bytes, str]],
         appender: LogAppender,
     ) -> None:
-        row = conn.execute("SELECT size, state FROM log_state WHERE id = 1").fetchone()
+        row = conn.execute(sql.READ_LOG_STATE).fetchone()
         size, state = (int(row[0]), bytes(row[1])) if row else (0, None)
         leaves, new_state, root, note = appender(state, size, [env for _, env, _ in items])
         conn.executemany(
@@ -312,15 +321,8 @@ class SqliteStore(StoreReads):
             ],
         )
         new_size = size + len(items)
-        conn.execute(
-            "INSERT INTO log_state (id, size, state) VALUES (1, ?, ?) "
-            "ON CONFLICT (id) DO UPDATE SET size = excluded.size, state = excluded.state",
-            (new_size, new_state),
-        )
-        conn.execute(
-            _q("INSERT INTO checkpoints (size, root, note, created_at) VALUES (?, ?, ?, {now})"),
-            (new_size, root, note),
-        )
+        conn.execute(sql.SAVE_LOG_STATE, (new_size, new_state))
+        conn.execute(_q(sql.INSERT_CHECKPOINT), (new_size, root, note))
 
     def release(self, owner: str, leases: Sequence[tuple[str, int]]) -> None:
         with self._write(durable=False) as conn:
@@ -344,31 +346,20 @@ class SqliteStore(StoreReads):
 
     def register_key(self, fingerprint: str, public_key_b64: str) -> None:
         with self._write() as conn:
-            conn.execute(
-                _q("INSERT INTO public_keys (fingerprint, public_key, created_at) "
-                   "VALUES (?, ?, {now}) ON CONFLICT (fingerprint) DO NOTHING"),
-                (fingerprint, public_key_b64),
-            )  # fmt: skip
+            conn.execute(_q(sql.REGISTER_KEY), (fingerprint, public_key_b64))
 
     def set_meta(self, key: str, value: str) -> None:
         with self._write() as conn:
-            conn.execute(
-                "INSERT INTO meta (key, value) VALUES (?, ?) "
-                "ON CONFLICT (key) DO UPDATE SET value = excluded.value",
-                (key, value),
-            )
+            conn.execute(sql.SET_META, (key, value))
 
     def ensure_meta(self, key: str, value: str) -> str:
         with self._write() as conn:
-            conn.execute(
-                "INSERT INTO meta (key, value) VALUES (?, ?) ON CONFLICT (key) DO NOTHING",
-                (key, value),
-            )
-            row = conn.execute("SELECT value FROM meta WHERE key = ?", (key,)).fetchone()
+            conn.execute(sql.ENSURE_META, (key, value))
+            row = conn.execute(sql.GET_META, (key,)).fetchone()
         return str(row[0])
 
     def close(self) -> None:
-        with self._lock:
+        with self._lock, map_errors(f"cannot close the archive at {self.path}"):
             self._conn.close()
 
     def __enter__(self) -> SqliteStore:

@@ -16,9 +16,8 @@ import pytest
 from jobkeeper.exceptions import ConfigError, StoreUnavailable
 from jobkeeper.provenance.merkle import root
 from jobkeeper.store import open_store
-from jobkeeper.store._pg_conn import redact
-from jobkeeper.store._sql import SCHEMA_VERSION
-from jobkeeper.store.postgres import PostgresStore
+from jobkeeper.store.postgres import PostgresStore, redact
+from jobkeeper.store.sql import SCHEMA_VERSION
 from tests.conftest import require_postgres
 from tests.integration.test_store_contract import appender, completion, new_job
 from tests.postgres_fixtures import drop_schema, fresh_postgres_store, fresh_schema, schema_url
@@ -101,8 +100,8 @@ def test_a_newer_schema_is_refused(url: str, schema: str) -> None:
 
 
 def test_schema_1_archive_migrates_forward_keeping_its_rows(url: str, schema: str) -> None:
-    from jobkeeper.store import _sql as sql
-    from jobkeeper.store._pg_conn import PG_EXTRAS
+    from jobkeeper.store import sql
+    from jobkeeper.store.sql import PG_EXTRAS
 
     with fresh_schema(url, schema) as bound, psycopg.connect(bound, autocommit=True) as conn:
         conn.execute("CREATE TABLE meta (key TEXT PRIMARY KEY, value TEXT)")

@@ -6,7 +6,7 @@ from __future__ import annotations
 import sqlite3
 from pathlib import Path
 
-from jobkeeper.store import _sql as sql
+from jobkeeper.store import sql
 from jobkeeper.store.sqlite import SqliteStore
 
 

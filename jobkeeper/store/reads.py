@@ -1,7 +1,7 @@
 """The reading side both stores share: lookups by id or prefix, listings, results, the
-log, comparisons, keys and metadata. The SQL is written once with ``?`` placeholders;
-each store supplies ``_read(statement, params)`` (the PostgreSQL store translates the
-placeholders). Reads hold no transaction open."""
+log, comparisons, keys and metadata. The SQL (in :mod:`jobkeeper.store.sql`) is written
+once with ``?`` placeholders; each store supplies ``_read(statement, params)`` (the
+PostgreSQL store translates the placeholders). Reads hold no transaction open."""
 
 from __future__ import annotations
 
@@ -10,6 +10,7 @@ from collections.abc import Sequence
 from typing import Any
 
 from jobkeeper.exceptions import AmbiguousJobId, JobNotFound
+from jobkeeper.queue import JobState
 from jobkeeper.store import (
     Attempt,
     ComparisonRecord,
@@ -17,8 +18,8 @@ from jobkeeper.store import (
     LogEntry,
     StoredCheckpoint,
     StoredResult,
+    sql,
 )
-from jobkeeper.store import _sql as sql
 
 
 def record_of(row: Sequence[Any]) -> JobRecord:
@@ -48,7 +49,7 @@ def record_of(row: Sequence[Any]) -> JobRecord:
         cost,
     ) = row
     return JobRecord(
-        id=id_, job_key=key, state=state, backend=backend, shots=shots, seed=seed,
+        id=id_, job_key=key, state=JobState(state), backend=backend, shots=shots, seed=seed,
         repeat=repeat, label=label, spec=json.loads(spec), created_at=created,
         updated_at=updated, not_before=not_before, attempts=attempts,
         max_attempts=max_attempts, lease_owner=owner, lease_token=token,
@@ -72,10 +73,7 @@ class StoreReads:
         text = id_or_prefix.strip().lower()
         if not text or any(ch not in "0123456789abcdef" for ch in text):
             raise JobNotFound(f"no job {id_or_prefix!r}: a job id is hexadecimal")
-        rows = self._read(
-            f"SELECT {sql.JOB_COLUMNS} FROM jobs WHERE id >= ? AND id < ? ORDER BY id LIMIT 2",
-            (text, text + "g"),
-        )
+        rows = self._read(sql.JOB_BY_PREFIX, (text, text + "g"))
         if not rows:
             raise JobNotFound(f"no job matches {id_or_prefix!r}")
         if len(rows) > 1 and rows[0][0] != text:
@@ -89,7 +87,7 @@ class StoreReads:
         for start in range(0, len(ids), 500):
             chunk = list(ids[start : start + 500])
             marks = ", ".join("?" for _ in chunk)
-            rows = self._read(f"SELECT {sql.JOB_COLUMNS} FROM jobs WHERE id IN ({marks})", chunk)
+            rows = self._read(sql.JOBS_BY_IDS.format(marks=marks), chunk)
             out.extend(record_of(row) for row in rows)
         order = {job_id: i for i, job_id in enumerate(ids)}
         out.sort(key=lambda job: order[job.id])
@@ -100,36 +98,25 @@ class StoreReads:
     ) -> list[JobRecord]:
         where, params = [], []
         if label is not None:
-            where.append("label = ?")
+            where.append(sql.JOBS_WITH_LABEL)
             params.append(label)
         if state is not None:
-            where.append("state = ?")
+            where.append(sql.JOBS_IN_STATE)
             params.append(state)
         clause = f"WHERE {' AND '.join(where)}" if where else ""
         tail = f"LIMIT {int(limit)}" if limit else ""
-        rows = self._read(
-            f"SELECT {sql.JOB_COLUMNS} FROM jobs {clause} ORDER BY created_at, id {tail}", params
-        )
+        rows = self._read(sql.LIST_JOBS.format(where=clause, limit=tail), params)
         return [record_of(row) for row in rows]
 
     def counts_by_state(self) -> dict[str, int]:
-        return {row[0]: int(row[1]) for row in self._read(
-            "SELECT state, COUNT(*) FROM jobs GROUP BY state")}  # fmt: skip
+        return {row[0]: int(row[1]) for row in self._read(sql.COUNT_BY_STATE)}
 
     def attempts(self, job_id: str) -> list[Attempt]:
-        rows = self._read(
-            "SELECT job_id, number, at, error_class, message, retry_at FROM attempts "
-            "WHERE job_id = ? ORDER BY number",
-            (job_id,),
-        )
+        rows = self._read(sql.ATTEMPTS_OF, (job_id,))
         return [Attempt(*row) for row in rows]
 
     def result(self, job_id: str) -> StoredResult | None:
-        rows = self._read(
-            "SELECT job_id, counts, probabilities, metadata, created_at FROM results "
-            "WHERE job_id = ?",
-            (job_id,),
-        )
+        rows = self._read(sql.RESULT_OF, (job_id,))
         if not rows:
             return None
         job, counts, probabilities, metadata, created = rows[0]
@@ -142,55 +129,39 @@ class StoreReads:
         )
 
     def job_keys(self, state: str) -> dict[str, str]:
-        rows = self._read("SELECT id, job_key FROM jobs WHERE state = ?", (state,))
+        rows = self._read(sql.JOB_KEYS_IN_STATE, (state,))
         return {job_id: key for job_id, key in rows}
 
     def all_counts(self) -> dict[str, str | None]:
-        return {
-            job_id: counts for job_id, counts in self._read("SELECT job_id, counts FROM results")
-        }
+        return {job_id: counts for job_id, counts in self._read(sql.ALL_COUNTS)}
 
     def log_entry_for(self, job_id: str) -> LogEntry | None:
-        rows = self._read(
-            "SELECT idx, job_id, envelope, leaf_hash, signer, created_at FROM log_entries "
-            "WHERE job_id = ?",
-            (job_id,),
-        )
+        rows = self._read(sql.LOG_ENTRY_FOR, (job_id,))
         return entry_of(rows[0]) if rows else None
 
     def log_entries(self, start: int = 0, end: int | None = None) -> list[LogEntry]:
-        rows = self._read(
-            "SELECT idx, job_id, envelope, leaf_hash, signer, created_at FROM log_entries "
-            "WHERE idx >= ? AND idx < ? ORDER BY idx",
-            (start, end if end is not None else 2**62),
-        )
+        rows = self._read(sql.LOG_ENTRIES, (start, end if end is not None else 2**62))
         return [entry_of(row) for row in rows]
 
     def checkpoints(self) -> list[StoredCheckpoint]:
-        rows = self._read("SELECT size, root, note, created_at FROM checkpoints ORDER BY size")
+        rows = self._read(sql.CHECKPOINTS)
         return [StoredCheckpoint(int(s), bytes(r), n, c) for s, r, n, c in rows]
 
     def comparisons(self, job_id: str | None = None) -> list[ComparisonRecord]:
-        where, params = ("WHERE job_a = ? OR job_b = ?", (job_id, job_id)) if job_id else ("", ())
-        rows = self._read(
-            f"SELECT {sql.COMPARISON_COLUMNS} FROM comparisons {where} ORDER BY created_at",
-            params,
-        )
+        where, params = (sql.COMPARISONS_OF_JOB, (job_id, job_id)) if job_id else ("", ())
+        rows = self._read(sql.COMPARISONS.format(where=where), params)
         return [ComparisonRecord(*row) for row in rows]
 
     def public_keys(self) -> dict[str, str]:
-        rows = self._read(
-            "SELECT fingerprint, public_key FROM public_keys ORDER BY created_at, fingerprint"
-        )
+        rows = self._read(sql.PUBLIC_KEYS)
         return {fp: key for fp, key in rows}
 
     def spent(self, label: str | None = None) -> float:
-        clause, params = "WHERE state IN ('queued', 'running', 'waiting', 'done')", []
+        statement, params = sql.SPENT, []
         if label is not None:
-            clause += " AND label = ?"
-            params.append(label)
-        return float(self._read(f"SELECT COALESCE(SUM(cost), 0) FROM jobs {clause}", params)[0][0])
+            statement, params = f"{statement} AND {sql.JOBS_WITH_LABEL}", [label]
+        return float(self._read(statement, params)[0][0])
 
     def get_meta(self, key: str) -> str | None:
-        rows = self._read("SELECT value FROM meta WHERE key = ?", (key,))
+        rows = self._read(sql.GET_META, (key,))
         return str(rows[0][0]) if rows else None

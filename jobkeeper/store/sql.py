@@ -1,14 +1,29 @@
-"""The archive's schema and queries, kept as data (shared by the SQLite and PostgreSQL
-stores where the dialects agree). ``{now}`` stands for the database clock in seconds since
-the epoch; each store substitutes its own expression. Placeholders are ``?``; the
-PostgreSQL store translates them."""
+"""Every SQL statement of the archive, kept as data in this one module: the schema and
+its numbered migrations, the queue's transitions, the reads both stores share, and the
+few statements particular to one database (at the end).
+
+``{now}`` stands for the database clock in seconds since the epoch; each store
+substitutes its own expression. Placeholders are ``?``; the PostgreSQL store translates
+them. The state names written here are :class:`~jobkeeper.queue.JobState` values (a unit
+test holds every quoted state in this module to the enum); the migrations keep the text
+they shipped with, since an archive's history must replay the same way.
+"""
 
 from __future__ import annotations
 
+from jobkeeper.queue import KEYED_STATES, LIVE_STATES, JobState
+
+
+def _states(states: frozenset[JobState]) -> str:
+    return "(" + ", ".join(f"'{state}'" for state in JobState if state in states) + ")"
+
+
 SCHEMA_VERSION = 2
 
-LIVE = "('queued', 'running', 'waiting')"
-KEYED = "('queued', 'running', 'waiting', 'done')"
+LIVE = _states(LIVE_STATES)
+KEYED = _states(KEYED_STATES)
+# The claim's subselect and the due-jobs index: jobs a worker may take now or later.
+DUE = _states(frozenset({JobState.QUEUED, JobState.WAITING}))
 
 JOB_COLUMNS = (
     "id, job_key, state, backend, shots, seed, repeat, label, spec, created_at, updated_at, "
@@ -46,7 +61,8 @@ MIGRATIONS: list[list[str]] = [
             cost DOUBLE PRECISION
         )""",
         # One live-or-done job per key: the index racing submitters collide on.
-        f"CREATE UNIQUE INDEX jobs_live_key ON jobs (job_key) WHERE state IN {KEYED}",
+        "CREATE UNIQUE INDEX jobs_live_key ON jobs (job_key) "
+        "WHERE state IN ('queued', 'running', 'waiting', 'done')",
         # Claims scan only due jobs: finished jobs never pile up in this index.
         "CREATE INDEX jobs_due ON jobs (not_before) WHERE state IN ('queued', 'waiting')",
         "CREATE INDEX jobs_leased ON jobs (lease_expires) WHERE state = 'running'",
@@ -139,7 +155,7 @@ UPDATE jobs SET state = 'running', lease_owner = ?, lease_token = lease_token + 
        started_at = COALESCE(started_at, {{now}})
 WHERE id IN (
     SELECT id FROM jobs
-    WHERE state IN ('queued', 'waiting') AND not_before <= {{now}} {{backend_filter}}
+    WHERE state IN {DUE} AND not_before <= {{now}} {{backend_filter}}
     ORDER BY not_before LIMIT ? {{lock}}
 )
 RETURNING {JOB_COLUMNS}
@@ -238,3 +254,96 @@ UPDATE jobs SET state = 'cancelled', updated_at = {now}, finished_at = {now},
        lease_owner = NULL, lease_expires = NULL
 WHERE id = ? AND lease_token = ? AND state = 'running'
 """
+
+INSERT_CHECKPOINT = "INSERT INTO checkpoints (size, root, note, created_at) VALUES (?, ?, ?, {now})"
+
+SAVE_LOG_STATE = """
+INSERT INTO log_state (id, size, state) VALUES (1, ?, ?)
+ON CONFLICT (id) DO UPDATE SET size = excluded.size, state = excluded.state
+"""
+
+READ_LOG_STATE = "SELECT size, state FROM log_state WHERE id = 1"
+
+REGISTER_KEY = """
+INSERT INTO public_keys (fingerprint, public_key, created_at) VALUES (?, ?, {now})
+ON CONFLICT (fingerprint) DO NOTHING
+"""
+
+#: The database clock, as every statement here reads it.
+CLOCK = "SELECT {now}"
+
+# -- metadata (schema version, the keep's identity) ----------------------------------------
+
+CREATE_META = "CREATE TABLE IF NOT EXISTS meta (key TEXT PRIMARY KEY, value TEXT)"
+GET_META = "SELECT value FROM meta WHERE key = ?"
+SET_META = """
+INSERT INTO meta (key, value) VALUES (?, ?)
+ON CONFLICT (key) DO UPDATE SET value = excluded.value
+"""
+ENSURE_META = "INSERT INTO meta (key, value) VALUES (?, ?) ON CONFLICT (key) DO NOTHING"
+
+# -- reads both stores share -----------------------------------------------------------------
+
+JOB_BY_PREFIX = f"SELECT {JOB_COLUMNS} FROM jobs WHERE id >= ? AND id < ? ORDER BY id LIMIT 2"
+JOBS_BY_IDS = f"SELECT {JOB_COLUMNS} FROM jobs WHERE id IN ({{marks}})"
+LIST_JOBS = f"SELECT {JOB_COLUMNS} FROM jobs {{where}} ORDER BY created_at, id {{limit}}"
+#: Conditions of a job listing, joined with AND (each takes one parameter).
+JOBS_WITH_LABEL = "label = ?"
+JOBS_IN_STATE = "state = ?"
+COUNT_BY_STATE = "SELECT state, COUNT(*) FROM jobs GROUP BY state"
+ATTEMPTS_OF = """
+SELECT job_id, number, at, error_class, message, retry_at FROM attempts
+WHERE job_id = ? ORDER BY number
+"""
+RESULT_OF = """
+SELECT job_id, counts, probabilities, metadata, created_at FROM results WHERE job_id = ?
+"""
+JOB_KEYS_IN_STATE = "SELECT id, job_key FROM jobs WHERE state = ?"
+ALL_COUNTS = "SELECT job_id, counts FROM results"
+LOG_ENTRY_COLUMNS = "idx, job_id, envelope, leaf_hash, signer, created_at"
+LOG_ENTRY_FOR = f"SELECT {LOG_ENTRY_COLUMNS} FROM log_entries WHERE job_id = ?"
+LOG_ENTRIES = f"SELECT {LOG_ENTRY_COLUMNS} FROM log_entries WHERE idx >= ? AND idx < ? ORDER BY idx"
+CHECKPOINTS = "SELECT size, root, note, created_at FROM checkpoints ORDER BY size"
+COMPARISONS = f"SELECT {COMPARISON_COLUMNS} FROM comparisons {{where}} ORDER BY created_at"
+COMPARISONS_OF_JOB = "WHERE job_a = ? OR job_b = ?"
+PUBLIC_KEYS = "SELECT fingerprint, public_key FROM public_keys ORDER BY created_at, fingerprint"
+SPENT = f"SELECT COALESCE(SUM(cost), 0) FROM jobs WHERE state IN {KEYED}"
+
+# -- SQLite only -------------------------------------------------------------------------------
+
+SQLITE_NOW = "((julianday('now') - 2440587.5) * 86400.0)"
+SQLITE_OPEN = ("PRAGMA journal_mode=WAL", "PRAGMA synchronous=FULL", "PRAGMA foreign_keys=ON")
+SQLITE_SYNC_FULL = "PRAGMA synchronous=FULL"
+SQLITE_SYNC_NORMAL = "PRAGMA synchronous=NORMAL"
+SQLITE_BEGIN = "BEGIN IMMEDIATE"
+SQLITE_COMMIT = "COMMIT"
+SQLITE_ROLLBACK = "ROLLBACK"
+
+# -- PostgreSQL only ---------------------------------------------------------------------------
+
+PG_NOW = "extract(epoch from statement_timestamp())::float8"
+#: Serialises migrations of one schema (keyed by a hash of the schema's name, so archives
+#: in other schemas of the same database do not wait for each other).
+PG_MIGRATION_LOCK = "SELECT pg_advisory_xact_lock(?, hashtext(coalesce(?, current_schema(), '')))"
+PG_CREATE_SCHEMA = "CREATE SCHEMA IF NOT EXISTS {}"
+PG_WHERE_AM_I = "SELECT current_schema(), current_setting('search_path')"
+PG_HAS_META = "SELECT to_regclass('meta') IS NOT NULL"
+PG_IDLE_TIMEOUT = "SET idle_in_transaction_session_timeout = {}"
+PG_SEARCH_PATH = "SET search_path TO {}"
+#: The log_state row exists from the start on PostgreSQL, so appends can lock it.
+PG_LOG_STATE_SEED = (
+    "INSERT INTO log_state (id, size, state) VALUES (1, 0, '') ON CONFLICT (id) DO NOTHING"
+)
+#: PostgreSQL-only statements that go with each schema version (numbered as MIGRATIONS).
+PG_EXTRAS: dict[int, list[str]] = {0: [PG_LOG_STATE_SEED]}
+PG_LOCK_LOG = "SELECT size, state FROM log_state WHERE id = 1 FOR UPDATE"
+PG_UPDATE_LOG_STATE = "UPDATE log_state SET size = ?, state = ? WHERE id = 1"
+PG_CLAIM_PLAN = "SET LOCAL enable_sort = off"
+PG_WAKE_CHANNEL = "jobkeeper_work"
+PG_NOTIFY = "SELECT pg_notify(?, '')"
+PG_LISTEN = f"LISTEN {PG_WAKE_CHANNEL}"
+# Pipelined and retried statements report what they touched; a retried comparison insert
+# (after a commit whose answer was lost) adds nothing.
+PG_RENEW = RENEW.rstrip() + " RETURNING id"
+PG_FINISH = FINISH.rstrip() + " RETURNING id"
+PG_INSERT_COMPARISON = INSERT_COMPARISON.rstrip() + " ON CONFLICT (id) DO NOTHING RETURNING id"

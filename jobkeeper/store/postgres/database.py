@@ -1,6 +1,6 @@
-"""Connections for the PostgreSQL store: connection strings, the pool, error mapping,
-retries and schema migrations. Imported only by :mod:`jobkeeper.store.postgres`, so psycopg
-loads only when a ``postgresql://`` archive is used.
+"""Connections for the PostgreSQL store: connection strings, the pool, error mapping and
+retries. Part of :mod:`jobkeeper.store.postgres`, so psycopg loads only when a
+``postgresql://`` archive is used.
 
 Retries: a transaction that fails because its connection broke (the server restarted, an
 operator ran ``pg_terminate_backend``, a network blip) or because PostgreSQL chose it as a
@@ -18,8 +18,9 @@ import os
 import random
 import select
 import time
-from collections.abc import Callable, Sequence
-from typing import Any, TypeVar
+from collections.abc import Callable, Iterator
+from contextlib import contextmanager
+from typing import TypeVar
 from urllib.parse import quote, urlsplit, urlunsplit
 
 import psycopg
@@ -31,15 +32,10 @@ from psycopg.rows import TupleRow
 from psycopg_pool import ConnectionPool, PoolClosed, PoolTimeout
 
 from jobkeeper.exceptions import ConfigError, StoreError, StoreUnavailable
-from jobkeeper.store import _sql as sql
+from jobkeeper.store import sql
 
 T = TypeVar("T")
 Conn = psycopg.Connection[TupleRow]
-
-#: Keys of the transaction-level advisory lock that serialises migrations of one schema
-#: (the second key is a hash of the schema name, so archives in other schemas of the same
-#: database do not wait for each other).
-MIGRATION_LOCK = 0x6A6B6D67  # "jkmg"
 
 #: How long a store call keeps trying to reach the database before it gives up.
 RECONNECT_DEADLINE = 30.0
@@ -164,32 +160,52 @@ class Database:
     def configure(self, conn: Conn) -> None:
         """Session settings for every new connection: a transaction left idle (a stuck or
         stopped client) is ended by the server and its row locks freed, and the schema."""
-        conn.execute(
-            pg_sql.SQL("SET idle_in_transaction_session_timeout = {}").format(
-                pg_sql.Literal(self.idle_timeout_ms)
-            )
-        )
+        conn.execute(pg_sql.SQL(sql.PG_IDLE_TIMEOUT).format(pg_sql.Literal(self.idle_timeout_ms)))
         if self.schema is not None:
-            conn.execute(pg_sql.SQL("SET search_path TO {}").format(pg_sql.Identifier(self.schema)))
+            conn.execute(pg_sql.SQL(sql.PG_SEARCH_PATH).format(pg_sql.Identifier(self.schema)))
 
     def connect(self) -> Conn:
         """One connection outside the pool (migrations, listening), configured alike."""
-        try:
+        with self.map_errors("cannot connect"):
             conn = psycopg.connect(self.conninfo, autocommit=True)
-        except psycopg.Error as exc:
-            raise self.unavailable(exc) from None
-        try:
-            self.configure(conn)
-        except psycopg.Error as exc:
-            conn.close()
-            raise self.unavailable(exc) from None
+            try:
+                self.configure(conn)
+            except psycopg.Error:
+                conn.close()
+                raise
         return conn
 
+    @contextmanager
+    def map_errors(self, what: str) -> Iterator[None]:
+        """The store's edge: a psycopg or pool error raised inside becomes one of ours,
+        its message scrubbed of the URL's password. Connection trouble (the server is
+        down, unreachable, restarting, or ended our session) is StoreUnavailable (exit 3);
+        anything else the database refuses is a StoreError."""
+        try:
+            yield
+        except PoolTimeout:
+            raise StoreUnavailable(
+                f"no connection to the PostgreSQL archive at {self.where} within "
+                f"{RECONNECT_DEADLINE:.0f} s (is the server running and reachable?)"
+            ) from None
+        except PoolClosed:
+            raise StoreUnavailable(
+                f"the store of the PostgreSQL archive at {self.where} is closed"
+            ) from None
+        except _CONNECTION_TROUBLE as exc:
+            raise self.unavailable(exc) from None
+        except psycopg.Error as exc:
+            raise StoreError(
+                f"{what} (PostgreSQL archive at {self.where}): {scrub(str(exc), self.url)}"
+            ) from None
+
     def open(self) -> None:
-        self.pool.open(wait=False)
+        with self.map_errors("cannot open the connection pool"):
+            self.pool.open(wait=False)
 
     def close(self) -> None:
-        self.pool.close()
+        with self.map_errors("cannot close the connection pool"):
+            self.pool.close()
 
     def unavailable(self, exc: BaseException) -> StoreUnavailable:
         return StoreUnavailable(
@@ -204,20 +220,30 @@ class Database:
         broken = rolled_back = 0
         while True:
             try:
-                with self.pool.connection() as conn:
+                with self.map_errors("archive error"), self.pool.connection() as conn:
                     try:
                         if write:
                             with conn.transaction():
                                 return work(conn)
                         return work(conn)
                     except psycopg.Error as exc:
-                        if _is_rollback(exc) or not _in_doubt(conn, exc):
+                        if _is_rollback(exc):
+                            raise _Retry(exc) from exc
+                        if not _in_doubt(conn, exc):
                             raise
                         # Never hand a connection in doubt back to the pool: one cut in
                         # pipeline mode can look alive ("cannot exit pipeline mode while
                         # busy") yet be unusable.
                         conn.close()
                         raise _Broken(exc) from exc
+            except _Retry as again:
+                if rolled_back >= ROLLBACK_RETRIES:
+                    raise StoreError(
+                        f"archive error at {self.where}: gave up after {rolled_back} "
+                        f"retries: {scrub(str(again.cause), self.url)}"
+                    ) from None
+                rolled_back += 1
+                time.sleep(random.uniform(0.0, 0.01 * rolled_back))
             except _Broken as wrapped:
                 # The pool may hold more dead connections (all of this process's were
                 # terminated): try again at once a few times, then back off.
@@ -226,25 +252,6 @@ class Database:
                     raise self.unavailable(wrapped.cause) from None
                 if broken > self.pool.max_size:
                     time.sleep(min(2.0, 0.05 * 2 ** min(broken - self.pool.max_size, 6)))
-            except PoolTimeout:
-                raise StoreUnavailable(
-                    f"no connection to the PostgreSQL archive at {self.where} within "
-                    f"{RECONNECT_DEADLINE:.0f} s (is the server running and reachable?)"
-                ) from None
-            except PoolClosed:
-                raise StoreUnavailable(
-                    f"the store of the PostgreSQL archive at {self.where} is closed"
-                ) from None
-            except psycopg.Error as exc:
-                if _is_rollback(exc) and rolled_back < ROLLBACK_RETRIES:
-                    rolled_back += 1
-                    time.sleep(random.uniform(0.0, 0.01 * rolled_back))
-                    continue
-                if isinstance(exc, psycopg.OperationalError):
-                    raise self.unavailable(exc) from None
-                raise StoreError(
-                    f"archive error at {self.where}: {scrub(str(exc), self.url)}"
-                ) from None
 
 
 _CONNECTION_TROUBLE = (
@@ -268,112 +275,13 @@ def _in_doubt(conn: Conn, exc: psycopg.Error) -> bool:
 
 
 class _Broken(Exception):
+    """The connection broke under a transaction: run it again on a fresh one."""
+
     def __init__(self, cause: psycopg.Error) -> None:
         super().__init__(str(cause))
         self.cause = cause
 
 
-# -- migrations ------------------------------------------------------------------------------
-
-NOW = "extract(epoch from statement_timestamp())::float8"
-
-#: PostgreSQL-only statements that go with each schema version (same numbering as
-#: ``sql.MIGRATIONS``): the log_state row exists from the start, so appends can lock it.
-LOG_STATE_SEED = (
-    b"INSERT INTO log_state (id, size, state) VALUES (1, 0, '') ON CONFLICT (id) DO NOTHING"
-)
-PG_EXTRAS: dict[int, list[str]] = {0: [LOG_STATE_SEED.decode()]}
-
-
-def migrate(db: Database, *, create: bool) -> int:
-    """Bring the schema to ``sql.SCHEMA_VERSION`` in one transaction, under a
-    transaction-level advisory lock so workers starting at once do not race. Returns the
-    version found before."""
-    conn = db.connect()
-    try:
-        with conn.transaction():
-            conn.execute(
-                "SELECT pg_advisory_xact_lock(%s, hashtext(coalesce(%s, current_schema(), '')))",
-                (MIGRATION_LOCK, db.schema),
-            )
-            if db.schema is not None and create:
-                conn.execute(
-                    pg_sql.SQL("CREATE SCHEMA IF NOT EXISTS {}").format(
-                        pg_sql.Identifier(db.schema)
-                    )
-                )
-            here = conn.execute(
-                "SELECT current_schema(), current_setting('search_path')"
-            ).fetchone()
-            if here is None or here[0] is None:
-                raise ConfigError(
-                    f"the search path of {db.where} ({here[1] if here else '?'}) names no "
-                    "existing schema: create the schema first (CREATE SCHEMA name)"
-                )
-            row = conn.execute("SELECT to_regclass('meta') IS NOT NULL").fetchone()
-            if not (row and row[0]):
-                if not create:
-                    where = f"{db.where} (schema {here[0]})"
-                    raise StoreUnavailable(
-                        f"no archive at {where} (run 'jobkeeper init --store URL' first)"
-                    )
-                conn.execute("CREATE TABLE meta (key TEXT PRIMARY KEY, value TEXT)")
-            found = conn.execute("SELECT value FROM meta WHERE key = 'schema_version'").fetchone()
-            version = int(found[0]) if found else 0
-            if version > sql.SCHEMA_VERSION:
-                raise ConfigError(
-                    f"the archive at {db.where} has schema version {version}, newer than "
-                    f"this jobkeeper understands ({sql.SCHEMA_VERSION}); upgrade jobkeeper"
-                )
-            for step in range(version, sql.SCHEMA_VERSION):
-                for statement in sql.MIGRATIONS[step] + PG_EXTRAS.get(step, []):
-                    conn.execute(statement.encode())
-            conn.execute(
-                "INSERT INTO meta (key, value) VALUES ('schema_version', %s) "
-                "ON CONFLICT (key) DO UPDATE SET value = excluded.value",
-                (str(sql.SCHEMA_VERSION),),
-            )
-        return version
-    except psycopg.OperationalError as exc:
-        raise db.unavailable(exc) from None
-    except psycopg.Error as exc:
-        raise StoreError(
-            f"cannot prepare the archive at {db.where}: {scrub(str(exc), db.url)}"
-        ) from None
-    finally:
-        conn.close()
-
-
-def translate(statement: str, **extra: Any) -> str:
-    """A shared query in PostgreSQL's dialect: the database clock for ``{now}``, the
-    extra slots filled, ``%s`` placeholders for ``?``."""
-    text = statement.replace("{now}", NOW)
-    if extra:
-        text = text.format(**extra)
-    return text.replace("%", "%%").replace("?", "%s")
-
-
-_CACHE: dict[str, str] = {}
-
-
-def dialect(statement: str) -> str:
-    """A shared statement in PostgreSQL's dialect (cached: the hot ones run often)."""
-    text = _CACHE.get(statement)
-    if text is None:
-        text = _CACHE[statement] = translate(statement)
-    return text
-
-
-def each_row(conn: Conn, statement: str, rows: Sequence[Sequence[Any]]) -> list[Any]:
-    """Run one statement once per row in a single pipelined round trip; the first row each
-    run returned (None when it returned none)."""
-    out: list[Any] = []
-    if not rows:
-        return out
-    with conn.cursor() as cur:
-        cur.executemany(statement.encode(), rows, returning=True)
-        while True:
-            out.append(cur.fetchone())
-            if not cur.nextset():
-                break
-    return out
+class _Retry(_Broken):
+    """PostgreSQL rolled the transaction back (deadlock victim, serialisation failure):
+    run it again after a short random pause, on the same healthy pool."""

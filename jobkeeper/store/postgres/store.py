@@ -1,42 +1,4 @@
-"""The PostgreSQL store: one database shared by workers on several machines.
-
-Same protocol, same queries (``_sql.py``) and same contract tests as the SQLite store.
-What is particular to PostgreSQL:
-
-- **Clock.** ``{now}`` is ``extract(epoch from statement_timestamp())``: the server's clock
-  (never a worker's), read once per statement. Not ``now()``, which is frozen at the start
-  of the transaction (a finish that waited for the log lock would stamp the time it began
-  waiting); not ``clock_timestamp()``, which is volatile: it changes between the columns
-  of one row (``lease_expires`` and ``updated_at`` would disagree) and cannot be an index
-  bound, so the claim query could not range-scan the due-jobs index.
-- **Claims.** ``UPDATE … WHERE id IN (SELECT … ORDER BY not_before LIMIT n FOR UPDATE
-  SKIP LOCKED) RETURNING …``: concurrent claimers skip each other's rows instead of
-  waiting, and the subselect re-checks the state of a row updated since its snapshot.
-  The scan walks the partial index of due jobs (queued or waiting), which finished jobs
-  leave, in ``not_before`` order and stops after n rows; the claim's transaction forbids
-  the sort-everything plan that stale statistics can otherwise pick.
-- **The log lock.** ``finish`` first archives its results (fenced updates, in parallel
-  with other finishers), then locks the single ``log_state`` row with ``SELECT … FOR
-  UPDATE`` and appends. Appends of all workers are so serialised: log indexes stay
-  contiguous and the saved compact range matches them. A row lock rather than an
-  advisory lock: it belongs to this schema (archives in other schemas of the database
-  do not wait for it) and is released by the commit. Claims never take it.
-- **Transactions.** Every state change is one short transaction on a pooled connection
-  (a small bounded pool, 1–4 connections by default); reads are single autocommit
-  statements; no connection is held between calls, so none is held while a worker waits
-  on a remote device. ``idle_in_transaction_session_timeout`` ends a transaction whose
-  client stopped (its row locks are freed). A broken connection or a deadlock victim is
-  retried on a fresh connection (see ``_pg_conn``).
-- **Schema.** Numbered migrations recorded in ``meta.schema_version``, applied in one
-  transaction under a transaction-level advisory lock (two workers starting at once do
-  not race). ``create=True`` (what ``jobkeeper init --store URL`` does) creates the
-  tables; ``schema=`` puts the archive in a schema of its own (created if needed);
-  otherwise it lives in the connection's current schema (the URL may set
-  ``options=-csearch_path=...``).
-- **Wake-ups.** ``enqueue`` sends a NOTIFY; :meth:`PostgresStore.wait_for_work` waits for
-  one. It is only a hint (notifications are lost while nobody listens): polling stays the
-  truth.
-"""
+"""The PostgreSQL store itself; see the package docstring for how it works."""
 
 from __future__ import annotations
 
@@ -47,6 +9,7 @@ from typing import Any
 import psycopg
 
 from jobkeeper.exceptions import LeaseLost
+from jobkeeper.queue import JobState
 from jobkeeper.store import (
     Claim,
     ComparisonRecord,
@@ -55,32 +18,22 @@ from jobkeeper.store import (
     LogAppender,
     NewJob,
     result_row,
+    sql,
 )
-from jobkeeper.store import _sql as sql
-from jobkeeper.store._pg_conn import (
-    LOG_STATE_SEED,
-    NOW,
-    Conn,
-    Database,
-    dialect,
-    each_row,
-    migrate,
-    redact,
-    translate,
-)
-from jobkeeper.store._pg_read import PostgresReads
-from jobkeeper.store._reads import record_of as _record
+from jobkeeper.store.postgres.database import Conn, Database, redact
+from jobkeeper.store.postgres.dialect import dialect, each_row, translate
+from jobkeeper.store.postgres.migrations import migrate
+from jobkeeper.store.reads import StoreReads
+from jobkeeper.store.reads import record_of as _record
 
-WAKE_CHANNEL = "jobkeeper_work"
-LOCK_LOG = b"SELECT size, state FROM log_state WHERE id = 1 FOR UPDATE"
-INSERT_CHECKPOINT = "INSERT INTO checkpoints (size, root, note, created_at) VALUES (?, ?, ?, {now})"
+WAKE_CHANNEL = sql.PG_WAKE_CHANNEL
 
 
 def _lost(job_id: str) -> LeaseLost:
     return LeaseLost(f"job {job_id}: lease lost, another worker holds it now")
 
 
-class PostgresStore(PostgresReads):
+class PostgresStore(StoreReads):
     """The archive in a PostgreSQL database. Safe for many processes on many machines;
     one store object may be used from several threads (each call takes a pooled
     connection for its own transaction)."""
@@ -107,9 +60,18 @@ class PostgresStore(PostgresReads):
 
     # -- plumbing -------------------------------------------------------------------------
 
+    def _read(self, statement: str, params: Sequence[Any] = ()) -> list[Any]:
+        # Single autocommit statements on a pooled connection: no transaction held open.
+        query = dialect(statement)
+
+        def work(conn: Conn) -> list[Any]:
+            return conn.execute(query, params).fetchall()
+
+        return self._db.run(work, write=False)
+
     def _fenced(self, statement: str, params: Sequence[Any], job_id: str) -> None:
         def work(conn: Conn) -> None:
-            if conn.execute(dialect(statement).encode(), params).rowcount != 1:
+            if conn.execute(dialect(statement), params).rowcount != 1:
                 raise _lost(job_id)
 
         self._db.run(work, write=True)
@@ -117,7 +79,7 @@ class PostgresStore(PostgresReads):
     # -- queue ----------------------------------------------------------------------------
 
     def now(self) -> float:
-        return float(self._read(f"SELECT {NOW}")[0][0])
+        return float(self._read(sql.CLOCK)[0][0])
 
     def enqueue(self, jobs: Sequence[NewJob]) -> list[tuple[JobRecord, bool]]:
         if not jobs:
@@ -139,27 +101,25 @@ class PostgresStore(PostgresReads):
                     continue
                 out.append((self._existing_or_insert(conn, job), False))
             if any(created for _, created in out):
-                conn.execute("SELECT pg_notify(%s, '')", (WAKE_CHANNEL,))
+                conn.execute(dialect(sql.PG_NOTIFY), (WAKE_CHANNEL,))
             return out
 
         return self._db.run(work, write=True)
 
     def _existing_or_insert(self, conn: Conn, job: NewJob) -> JobRecord:
-        existing = conn.execute(dialect(sql.SELECT_LIVE_BY_KEY).encode(), (job.job_key,)).fetchone()
+        existing = conn.execute(dialect(sql.SELECT_LIVE_BY_KEY), (job.job_key,)).fetchone()
         if existing is None:
             # The conflicting job left the keyed states between our insert and this read
             # (cancelled or failed meanwhile): the key is free again, so insert ours.
             row = conn.execute(
-                dialect(sql.INSERT_JOB).encode(),
+                dialect(sql.INSERT_JOB),
                 (job.id, job.job_key, job.backend, job.shots, job.seed, job.repeat,
                  job.label, json.dumps(dict(job.spec), sort_keys=True), job.max_attempts,
                  job.cost),
             ).fetchone()  # fmt: skip
             if row is not None:
                 return _record(row)
-            existing = conn.execute(
-                dialect(sql.SELECT_LIVE_BY_KEY).encode(), (job.job_key,)
-            ).fetchone()
+            existing = conn.execute(dialect(sql.SELECT_LIVE_BY_KEY), (job.job_key,)).fetchone()
             if existing is None:  # pragma: no cover - would need two flips in one statement
                 raise psycopg.errors.SerializationFailure("job key kept changing; try again")
         return _record(existing)
@@ -196,14 +156,18 @@ class PostgresStore(PostgresReads):
             # instead of 1.5 ms with 20,000 queued). Sorting is what that plan needs, so
             # this transaction forbids it; both statements go in one round trip.
             with conn.pipeline():
-                conn.execute(b"SET LOCAL enable_sort = off")
+                conn.execute(dialect(sql.PG_CLAIM_PLAN))
                 cur = conn.execute(statement, params)
             return cur.fetchall()
 
         claimed = [_record(row) for row in self._db.run(work, write=True)]
         claimed.sort(key=lambda job: job.not_before)
         return [
-            Claim(job=job, token=job.lease_token, was="waiting" if job.handle else "queued")
+            Claim(
+                job=job,
+                token=job.lease_token,
+                was=JobState.WAITING if job.handle else JobState.QUEUED,
+            )
             for job in claimed
         ]
 
@@ -215,7 +179,7 @@ class PostgresStore(PostgresReads):
 
         def work(conn: Conn) -> set[str]:
             rows = [(float(lease_seconds), job_id, token, owner) for job_id, token in leases]
-            kept = each_row(conn, dialect(sql.RENEW + " RETURNING id"), rows)
+            kept = each_row(conn, dialect(sql.PG_RENEW), rows)
             return {row[0] for row in kept if row is not None}
 
         return self._db.run(work, write=True)
@@ -226,29 +190,31 @@ class PostgresStore(PostgresReads):
     def snooze(self, job_id: str, token: int, poll_after: float) -> None:
         self._fenced(sql.SNOOZE, (float(poll_after), job_id, token), job_id)
 
-    def retry(self, job_id: str, token: int, error_class: str, message: str, delay: float) -> str:
-        def work(conn: Conn) -> str:
+    def retry(
+        self, job_id: str, token: int, error_class: str, message: str, delay: float
+    ) -> JobState:
+        def work(conn: Conn) -> JobState:
             inserted = conn.execute(
-                dialect(sql.INSERT_ATTEMPT).encode(),
+                dialect(sql.INSERT_ATTEMPT),
                 (error_class, message, float(delay), job_id, token),
             ).rowcount
             row = conn.execute(
-                dialect(sql.RETRY).encode(), (message, float(delay), job_id, token)
+                dialect(sql.RETRY), (message, float(delay), job_id, token)
             ).fetchone()
             if inserted != 1 or row is None:
                 raise _lost(job_id)
-            return str(row[0])
+            return JobState(row[0])
 
         return self._db.run(work, write=True)
 
     def fail(self, job_id: str, token: int, error_class: str, message: str) -> None:
         def work(conn: Conn) -> None:
             inserted = conn.execute(
-                dialect(sql.INSERT_ATTEMPT).encode(), (error_class, message, None, job_id, token)
+                dialect(sql.INSERT_ATTEMPT), (error_class, message, None, job_id, token)
             ).rowcount
             if (
                 inserted != 1
-                or conn.execute(dialect(sql.FAIL).encode(), (message, job_id, token)).rowcount != 1
+                or conn.execute(dialect(sql.FAIL), (message, job_id, token)).rowcount != 1
             ):
                 raise _lost(job_id)
 
@@ -264,7 +230,7 @@ class PostgresStore(PostgresReads):
             # Fenced on each token; all in one pipelined round trip.
             finished = each_row(
                 conn,
-                dialect(sql.FINISH + " RETURNING id"),
+                dialect(sql.PG_FINISH),
                 [(c.job_id, c.token) for c in completions],
             )
             done = [row is not None for row in finished]
@@ -272,7 +238,7 @@ class PostgresStore(PostgresReads):
             if accepted:
                 with conn.cursor() as cur:
                     cur.executemany(
-                        dialect(sql.INSERT_RESULT).encode(),
+                        dialect(sql.INSERT_RESULT),
                         [row for row, ok in zip(rows, done, strict=True) if ok],
                     )
                 self._append_log(
@@ -290,8 +256,7 @@ class PostgresStore(PostgresReads):
 
         def work(conn: Conn) -> None:
             # Idempotent, so a retry after a commit whose answer was lost adds nothing.
-            statement = sql.INSERT_COMPARISON.rstrip() + " ON CONFLICT (id) DO NOTHING RETURNING id"
-            if conn.execute(dialect(statement).encode(), params).fetchone() is not None:
+            if conn.execute(dialect(sql.PG_INSERT_COMPARISON), params).fetchone() is not None:
                 self._append_log(conn, [(c.id, envelope, signer)], appender)
 
         self._db.run(work, write=True)
@@ -301,10 +266,10 @@ class PostgresStore(PostgresReads):
     ) -> None:
         """Append (subject id, envelope, signer) entries under the log lock."""
         # The log lock: held from here to the commit, by one finisher at a time.
-        row = conn.execute(LOCK_LOG).fetchone()
+        row = conn.execute(dialect(sql.PG_LOCK_LOG)).fetchone()
         if row is None:  # an archive whose row went missing: recreate it, then lock it
-            conn.execute(LOG_STATE_SEED)
-            row = conn.execute(LOCK_LOG).fetchone()
+            conn.execute(dialect(sql.PG_LOG_STATE_SEED))
+            row = conn.execute(dialect(sql.PG_LOCK_LOG)).fetchone()
             assert row is not None
         size = int(row[0])
         state = bytes(row[1]) if size else None
@@ -313,7 +278,7 @@ class PostgresStore(PostgresReads):
         # Everything else the lock covers goes in one round trip.
         with conn.pipeline(), conn.cursor() as cur:
             cur.executemany(
-                dialect(sql.INSERT_LOG_ENTRY).encode(),
+                dialect(sql.INSERT_LOG_ENTRY),
                 [
                     (size + offset, subject, envelope, leaf, signer)
                     for offset, ((subject, envelope, signer), leaf) in enumerate(
@@ -321,9 +286,8 @@ class PostgresStore(PostgresReads):
                     )
                 ],
             )
-            cur.execute(b"UPDATE log_state SET size = %s, state = %s WHERE id = 1",
-                        (new_size, new_state))  # fmt: skip
-            cur.execute(dialect(INSERT_CHECKPOINT).encode(), (new_size, root, note))
+            cur.execute(dialect(sql.PG_UPDATE_LOG_STATE), (new_size, new_state))
+            cur.execute(dialect(sql.INSERT_CHECKPOINT), (new_size, root, note))
 
     def release(self, owner: str, leases: Sequence[tuple[str, int]]) -> None:
         if not leases:
@@ -332,7 +296,7 @@ class PostgresStore(PostgresReads):
         def work(conn: Conn) -> None:
             with conn.cursor() as cur:
                 cur.executemany(
-                    dialect(sql.RELEASE).encode(),
+                    dialect(sql.RELEASE),
                     [(job_id, token, owner) for job_id, token in leases],
                 )
 
@@ -340,14 +304,14 @@ class PostgresStore(PostgresReads):
 
     def requeue_expired(self) -> int:
         def work(conn: Conn) -> int:
-            return int(conn.execute(dialect(sql.REQUEUE_EXPIRED).encode()).rowcount)
+            return int(conn.execute(dialect(sql.REQUEUE_EXPIRED)).rowcount)
 
         return self._db.run(work, write=True)
 
     def request_cancel(self, job_id: str) -> JobRecord:
         def work(conn: Conn) -> None:
-            if conn.execute(dialect(sql.CANCEL_QUEUED).encode(), (job_id,)).rowcount == 0:
-                conn.execute(dialect(sql.REQUEST_CANCEL).encode(), (job_id,))
+            if conn.execute(dialect(sql.CANCEL_QUEUED), (job_id,)).rowcount == 0:
+                conn.execute(dialect(sql.REQUEST_CANCEL), (job_id,))
 
         self._db.run(work, write=True)
         return self.get(job_id)
@@ -362,7 +326,7 @@ class PostgresStore(PostgresReads):
         try:
             if self._listener is None or self._listener.closed:
                 self._listener = self._db.connect()
-                self._listener.execute(f"LISTEN {WAKE_CHANNEL}")
+                self._listener.execute(dialect(sql.PG_LISTEN))
             for _ in self._listener.notifies(timeout=max(0.0, timeout), stop_after=1):
                 return True
             return False
@@ -374,31 +338,20 @@ class PostgresStore(PostgresReads):
 
     def register_key(self, fingerprint: str, public_key_b64: str) -> None:
         def work(conn: Conn) -> None:
-            conn.execute(
-                dialect("INSERT INTO public_keys (fingerprint, public_key, created_at) "
-                   "VALUES (?, ?, {now}) ON CONFLICT (fingerprint) DO NOTHING").encode(),
-                (fingerprint, public_key_b64),
-            )  # fmt: skip
+            conn.execute(dialect(sql.REGISTER_KEY), (fingerprint, public_key_b64))
 
         self._db.run(work, write=True)
 
     def set_meta(self, key: str, value: str) -> None:
         def work(conn: Conn) -> None:
-            conn.execute(
-                "INSERT INTO meta (key, value) VALUES (%s, %s) "
-                "ON CONFLICT (key) DO UPDATE SET value = excluded.value",
-                (key, value),
-            )
+            conn.execute(dialect(sql.SET_META), (key, value))
 
         self._db.run(work, write=True)
 
     def ensure_meta(self, key: str, value: str) -> str:
         def work(conn: Conn) -> str:
-            conn.execute(
-                "INSERT INTO meta (key, value) VALUES (%s, %s) ON CONFLICT (key) DO NOTHING",
-                (key, value),
-            )
-            row = conn.execute("SELECT value FROM meta WHERE key = %s", (key,)).fetchone()
+            conn.execute(dialect(sql.ENSURE_META), (key, value))
+            row = conn.execute(dialect(sql.GET_META), (key,)).fetchone()
             assert row is not None
             return str(row[0])
 
