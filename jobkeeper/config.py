@@ -95,6 +95,10 @@ def load_config(keep: Path) -> KeepConfig:
         data = tomllib.loads(path.read_text(encoding="utf-8"))
     except (OSError, UnicodeDecodeError, tomllib.TOMLDecodeError) as exc:
         raise ConfigError(f"{path}: cannot read the configuration: {exc}") from exc
+    except RecursionError:
+        # tomllib parses nested arrays and tables recursively: a hostile or broken file
+        # nested some thousand levels deep exhausts the stack instead of failing to parse.
+        raise ConfigError(f"{path}: cannot read the configuration: nested too deeply") from None
     try:
         return KeepConfig.model_validate(data)
     except ValidationError as exc:

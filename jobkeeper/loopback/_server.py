@@ -91,6 +91,9 @@ def serve(
         raise ConfigError(
             f"loopback device cannot listen on {address}:{port}: {exc.strerror}"
         ) from None
+    except OverflowError:
+        listener.close()
+        raise ConfigError(f"loopback device: port {port} is not in 0-65535") from None
     config = uvicorn.Config(
         app, host=address, port=port, http="h11", ws="none", lifespan="off", log_level=log_level
     )

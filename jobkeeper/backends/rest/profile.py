@@ -261,6 +261,8 @@ def load_profile(ref: str = DEFAULT_PROFILE) -> DeviceProfile:
             text = path.read_text(encoding="utf-8")
         except OSError as exc:
             raise ConfigError(f"cannot read device profile {ref}: {exc.strerror}") from None
+        except UnicodeDecodeError as exc:
+            raise ConfigError(f"device profile {ref} is not UTF-8 text: {exc.reason}") from None
         source = str(path)
     else:
         entry = resources.files("jobkeeper").joinpath("profiles", f"{ref}.toml")
@@ -275,4 +277,6 @@ def load_profile(ref: str = DEFAULT_PROFILE) -> DeviceProfile:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise ConfigError(f"device profile {source} is not valid TOML: {exc}") from None
+    except RecursionError:  # tomllib recurses once per level of nesting
+        raise ConfigError(f"device profile {source} is nested too deeply") from None
     return parse_profile(data, source=source)
