@@ -107,14 +107,15 @@ class RetryPolicy(BaseModel):
 
 
 class LeasePolicy(BaseModel):
-    """Heartbeat 10 s, lease 60 s, sweep 15 s: a dead worker's jobs are back in the queue
-    within about heartbeat + lease + sweep ≈ 85 s, and a live one never loses its lease."""
+    """Heartbeat 10 s, lease 60 s, expiry check 15 s: a dead worker's jobs are back in the
+    queue within about heartbeat + lease + expiry check ≈ 85 s, and a live one never loses
+    its lease. ``expiry_check`` is how often a worker looks for expired leases."""
 
     model_config = ConfigDict(frozen=True)
 
     lease: float = Field(default=60.0, gt=0)
     heartbeat: float = Field(default=10.0, gt=0)
-    sweep: float = Field(default=15.0, gt=0)
+    expiry_check: float = Field(default=15.0, gt=0)
 
 
 class PollPolicy(BaseModel):

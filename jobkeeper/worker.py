@@ -217,15 +217,15 @@ class Worker:
             announce(self.owner)
         heartbeat = asyncio.create_task(self._heartbeat())
         self._finisher = asyncio.create_task(self._finish_loop())
-        next_sweep = 0.0
+        next_expiry_check = 0.0
         unreachable_since: float | None = None
         try:
             while not self._stopping.is_set():
                 now = loop.time()
                 try:
-                    if now >= next_sweep:
+                    if now >= next_expiry_check:
                         await self._store(self.store.requeue_expired)
-                        next_sweep = now + self.lease.sweep
+                        next_expiry_check = now + self.lease.expiry_check
                     claimed = await self._claim_more()
                     drained = once and not claimed and not self._held and await self._drained()
                     unreachable_since = None

@@ -218,7 +218,12 @@ def worker(
     ] = None,
     lease: Annotated[float, typer.Option("--lease", help="Lease length, seconds.")] = 60.0,
     heartbeat: Annotated[float, typer.Option("--heartbeat", help="Lease renewal, seconds.")] = 10.0,
-    sweep: Annotated[float, typer.Option("--sweep", help="Expired-lease sweep, seconds.")] = 15.0,
+    lease_check: Annotated[
+        float,
+        typer.Option(
+            "--lease-check", min=0.1, help="How often to look for expired leases, seconds."
+        ),
+    ] = 15.0,
     keep: KeepOpt = None,
     store: StoreOpt = None,
     json_out: JsonOpt = False,
@@ -235,7 +240,7 @@ def worker(
     stats = keeper.work(
         once=once, install_signals=True, concurrency=concurrency, in_flight=in_flight,
         backends=backend or None,
-        lease=LeasePolicy(lease=lease, heartbeat=heartbeat, sweep=sweep),
+        lease=LeasePolicy(lease=lease, heartbeat=heartbeat, expiry_check=lease_check),
         announce=lambda owner: typer.echo(
             f"worker {owner} started on {keeper.store.location}", err=True
         ),
@@ -253,7 +258,7 @@ def worker(
 def jobs(
     label: LabelOpt = None,
     state: Annotated[str | None, typer.Option("--state", help="Only jobs in this state.")] = None,
-    limit: Annotated[int | None, typer.Option("--limit", help="At most this many.")] = None,
+    limit: Annotated[int | None, typer.Option("--limit", min=1, help="At most this many.")] = None,
     keep: KeepOpt = None,
     store: StoreOpt = None,
     json_out: JsonOpt = False,

@@ -27,7 +27,7 @@ from tests.integration.helpers import (
 
 JOBS = 300
 KILLS = 10
-FAST_LEASE = ("--lease", "1.5", "--heartbeat", "0.3", "--sweep", "0.3")
+FAST_LEASE = ("--lease", "1.5", "--heartbeat", "0.3", "--lease-check", "0.3")
 
 
 @pytest.mark.slow

@@ -41,8 +41,8 @@ FAULT_JOBS = 1200
 WORKERS = 4
 # Leases: long enough that a live worker on a busy machine keeps its jobs; in the fault
 # test short, so a killed worker's jobs come back within seconds, not the default 85 s.
-STEADY_LEASE = ["--lease", "15", "--heartbeat", "1", "--sweep", "1"]
-SHORT_LEASE = ["--lease", "3", "--heartbeat", "1", "--sweep", "1"]
+STEADY_LEASE = ["--lease", "15", "--heartbeat", "1", "--lease-check", "1"]
+SHORT_LEASE = ["--lease", "3", "--heartbeat", "1", "--lease-check", "1"]
 
 
 def circuit(i: int) -> str:

@@ -23,7 +23,7 @@ from jobkeeper import Keeper
 from jobkeeper.loopback.testing import running_device
 from tests.integration.helpers import circuit_text, jobkeeper_cmd, start_worker
 
-FAST_LEASE = ("--lease", "1.5", "--heartbeat", "0.3", "--sweep", "0.3")
+FAST_LEASE = ("--lease", "1.5", "--heartbeat", "0.3", "--lease-check", "0.3")
 CLIENT = {
     "timeout": {"connect": 2.0, "read": 0.5, "write": 2.0, "pool": 20.0},
     "max_connections": 32,
