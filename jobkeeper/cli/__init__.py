@@ -1,23 +1,25 @@
 """The ``jobkeeper`` command line: thin over :mod:`jobkeeper.keeper`.
 
-Commands parse arguments, call the library and render. One handler turns every
-:class:`~jobkeeper.exceptions.JobkeeperError` into a one-line message and the exit code of
-DESIGN §4: 0 success, 1 a job failed or verification found a problem, 2 bad input or
-usage, 3 a backend or store could not be reached.
+Commands parse arguments, call the library and render. :mod:`jobkeeper.cli._entry` turns
+every :class:`~jobkeeper.exceptions.JobkeeperError` and every usage error of the framework
+into a one-line message and the exit code of DESIGN §4: 0 success, 1 a job failed or
+verification found a problem, 2 bad input or usage, 3 a backend or store could not be
+reached.
 """
 
 from __future__ import annotations
 
 import sys
+from pathlib import Path
 from typing import Annotated
 
-import click
 import typer
 
 from jobkeeper._version import __version__
 from jobkeeper.cli import _device, _jobs, _proof  # noqa: F401  (they register commands)
-from jobkeeper.cli._app import app
-from jobkeeper.exceptions import JobkeeperError
+from jobkeeper.cli._app import KEEP_HELP, ROOT, STORE_HELP, app
+from jobkeeper.cli._entry import run_app
+from jobkeeper.exceptions import ConfigError
 
 __all__ = ["app", "main"]
 
@@ -32,33 +34,28 @@ app.registered_commands.sort(
 
 @app.callback(invoke_without_command=True)
 def _root(
+    ctx: typer.Context,
+    keep: Annotated[
+        Path | None,
+        typer.Option("--keep", envvar="JOBKEEPER_KEEP", help=KEEP_HELP, show_default=False),
+    ] = None,
+    store: Annotated[
+        str | None,
+        typer.Option("--store", envvar="JOBKEEPER_STORE", help=STORE_HELP, show_default=False),
+    ] = None,
     version: Annotated[bool, typer.Option("--version", help="Print the version.")] = False,
 ) -> None:
+    ROOT.keep, ROOT.store = keep, store
     if version:
         typer.echo(f"jobkeeper {__version__}")
         raise typer.Exit(0)
+    if ctx.invoked_subcommand is None:
+        raise ConfigError("give a command (see 'jobkeeper --help')")
 
 
 def main(argv: list[str] | None = None) -> int:
-    """Entry point: every jobkeeper error becomes one line on stderr and an exit code."""
-    try:
-        # Without standalone mode, click returns the code of a typer.Exit instead of exiting.
-        code = app(args=argv, prog_name="jobkeeper", standalone_mode=False)
-    except JobkeeperError as exc:
-        typer.echo(f"jobkeeper: {exc}", err=True)
-        return exc.exit_code
-    except click.exceptions.Exit as exc:
-        return int(exc.exit_code or 0)
-    except click.ClickException as exc:
-        typer.echo(f"jobkeeper: {exc.format_message()}", err=True)
-        return 2
-    except click.exceptions.Abort:
-        typer.echo("jobkeeper: interrupted", err=True)
-        return 130
-    except KeyboardInterrupt:
-        typer.echo("jobkeeper: interrupted", err=True)
-        return 130
-    return code if isinstance(code, int) else 0
+    """Entry point: every error becomes one line on stderr and an exit code."""
+    return run_app(app, argv)
 
 
 if __name__ == "__main__":

@@ -5,13 +5,14 @@ from __future__ import annotations
 
 import json
 import sys
+from dataclasses import dataclass
 from pathlib import Path
-from typing import Annotated, Any
+from typing import TYPE_CHECKING, Annotated, Any
 
-import click
 import typer
 
-from jobkeeper.keeper import Keeper
+if TYPE_CHECKING:
+    from jobkeeper.keeper import Keeper
 
 app = typer.Typer(
     name="jobkeeper",
@@ -21,16 +22,25 @@ app = typer.Typer(
     pretty_exceptions_enable=False,
 )
 
-KeepOpt = Annotated[
-    Path | None,
-    typer.Option("--keep", envvar="JOBKEEPER_KEEP", help="Keep directory [default: ./.jobkeeper]."),
-]
-StoreOpt = Annotated[
-    str | None,
-    typer.Option(
-        "--store", envvar="JOBKEEPER_STORE", help="Archive location: a postgresql:// URL."
-    ),
-]
+# --keep and --store are taken before the command (`jobkeeper --keep K jobs`) and after it
+# (`jobkeeper jobs --keep K`). The environment variables belong to the root options only:
+# were they on the command's options too, JOBKEEPER_KEEP would silently beat a --keep
+# given before the command. Precedence: after the command, before it, environment.
+KEEP_HELP = "Keep directory (or JOBKEEPER_KEEP) [default: ./.jobkeeper]."
+STORE_HELP = "Archive location: a postgresql:// URL (or JOBKEEPER_STORE)."
+KeepOpt = Annotated[Path | None, typer.Option("--keep", help=KEEP_HELP, show_default=False)]
+StoreOpt = Annotated[str | None, typer.Option("--store", help=STORE_HELP, show_default=False)]
+
+
+@dataclass
+class RootOptions:
+    """What was given before the command; the root callback sets it on every run."""
+
+    keep: Path | None = None
+    store: str | None = None
+
+
+ROOT = RootOptions()
 JsonOpt = Annotated[bool, typer.Option("--json", help="Print JSON for scripts.")]
 BackendOpt = Annotated[
     str | None, typer.Option("--backend", "-b", help="Backend name [default: statevector].")
@@ -47,7 +57,13 @@ OverBudgetOpt = Annotated[
 
 
 def open_keeper(keep: Path | None, store: str | None, *, create: bool = True) -> Keeper:
-    return Keeper.open(keep, store=store, create=create)
+    from jobkeeper.keeper import Keeper
+
+    return Keeper.open(
+        keep if keep is not None else ROOT.keep,
+        store=store if store is not None else ROOT.store,
+        create=create,
+    )
 
 
 def echo_json(value: Any) -> None:
@@ -58,7 +74,7 @@ def progress_wait(keeper: Keeper, ids: list[str], timeout: float | None) -> None
     if not sys.stderr.isatty():
         keeper.wait(ids, timeout=timeout)
         return
-    with click.progressbar(length=len(ids), label="waiting", file=sys.stderr) as bar:
+    with typer.progressbar(length=len(ids), label="waiting", file=sys.stderr) as bar:
         seen = [0]
 
         def progress(ended: int, total: int) -> None:

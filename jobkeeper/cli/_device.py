@@ -5,7 +5,6 @@ from __future__ import annotations
 import contextlib
 from typing import Annotated
 
-import click
 import typer
 
 from jobkeeper.cli._app import app
@@ -14,7 +13,9 @@ from jobkeeper.exceptions import ConfigError
 
 @app.command("loopback-device")
 def loopback_device(
-    port: Annotated[int, typer.Option("--port", help="Port on 127.0.0.1.")] = 8765,
+    port: Annotated[
+        int, typer.Option("--port", min=1, max=65535, help="Port on 127.0.0.1.")
+    ] = 8765,
     token: Annotated[
         str | None,
         typer.Option(
@@ -64,7 +65,7 @@ def loopback_device(
         err=True,
     )
     # uvicorn re-raises the signal it stopped on: stopping is the normal end here.
-    with contextlib.suppress(KeyboardInterrupt, click.exceptions.Abort):
+    with contextlib.suppress(KeyboardInterrupt, typer.Abort):
         serve(
             host, port, token=token, queue_delay=queue_delay, fault_rate=fault_rate, seed=seed,
             faults=kinds, slow_delay=slow_delay, retry_after=retry_after, max_qubits=max_qubits,
