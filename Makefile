@@ -29,6 +29,7 @@ lint: $(STAMP)
 	$(BIN)/ruff check jobkeeper tests benchmarks examples
 	$(BIN)/ruff format --check jobkeeper tests benchmarks examples
 	$(BIN)/mypy
+	$(BIN)/lint-imports --no-cache
 
 clean:
 	rm -rf $(VENV) .pytest_cache .mypy_cache .ruff_cache
