@@ -6,17 +6,16 @@ state as the view ``(2^(n-1-t_1), 2, 2^(t_1-t_2-1), 2, ..., 2, 2^(t_k))``: free 
 even positions, target axes (size 2) at odd ones. No 2^n × 2^n matrix is ever built and
 no Python loop runs over amplitudes; Python loops run over cache-sized chunks only.
 
-Why the kernels look as they do (measured at 24 qubits, as a ratio to np.copyto's
-bandwidth, in interleaved runs): a pass with a single numpy operation per cache-sized
-chunk reaches only 0.9 of it (0.73 with complex arithmetic), so a gate must be few
-operations per chunk, and OpenBLAS's real products are the cheapest ones. A dense gate takes one of five
-routes: on the lowest qubits, rows of the state times the gate widened to them, as a
-real product of interleaved (re, im) floats; a high and a low qubit, four such products
-on the two halves of the high qubit; a high single qubit, phases around a real rotation;
-consecutive higher qubits, complex products on blocks in place; otherwise each chunk is
-gathered with the target axes first, multiplied and scattered back (on qubits 4-5 the
-gather and scatter alone reach 0.50-0.58 of copy bandwidth, on the pair (4, 3) 0.44).
-Diagonal gates multiply slices in place and permutation gates move slices.
+A pass over the state is bound by memory bandwidth, so a gate must be few numpy
+operations per cache-sized chunk, and OpenBLAS's real products are the cheapest. A dense
+gate takes one of five routes: on the lowest qubits, rows of the state times the gate
+widened to them, as a real product of interleaved (re, im) floats; a high and a low
+qubit, four such products on the two halves of the high qubit; a high single qubit,
+phases around a real rotation; consecutive higher qubits, complex products on blocks in
+place; otherwise each chunk is gathered with the target axes first, multiplied and
+scattered back. Diagonal gates multiply slices in place and permutation gates move
+slices. The measurements behind each route and constant are in benchmarks/README.md
+(re-measure with benchmarks/bench_statevector.py before changing one).
 """
 
 from __future__ import annotations
@@ -33,23 +32,19 @@ from jobkeeper.backends.sim.gates import Matrix, embed
 State = npt.NDArray[np.complex128]
 
 #: amplitudes per chunk (2^14 × 16 bytes = 256 KiB: chunk, copy and product stay in the
-#: 2 MiB L2 cache; 512 KiB chunks measured up to a fifth slower at 24 qubits).
+#: L2 cache).
 CHUNK = 1 << 14
 #: amplitudes per chunk on the low route, by width in qubits: OpenBLAS's real product
-#: slows down past a size that falls as rows widen (rows of 32 floats: 0.43 of copy
-#: bandwidth with 2^13 amplitudes per product, 0.30 with 2^14).
+#: slows down past a size that falls as rows widen.
 LOW_CHUNK = {2: 1 << 14, 3: 1 << 14, 4: 1 << 13, 5: 1 << 12, 6: 1 << 12}
 #: dense gates whose targets all lie below this qubit act on the low qubits as rows (no
-#: gather), and below LOW_QUBITS_DENSE when widening adds at most two qubits (1-2 qubits
-#: on qubits 0-1 twice as fast as gathering, 5-qubit blocks on qubits 0-4 too).
+#: gather), and below LOW_QUBITS_DENSE when widening adds at most two qubits.
 LOW_QUBITS = 4
 LOW_QUBITS_DENSE = 6
-#: a two-qubit gate on one high qubit and one below this takes the split route (pair
-#: (21, 2): 0.26 of copy bandwidth against 0.16 gathered).
+#: a two-qubit gate on one high qubit and one below this takes the split route.
 SPLIT_LOW = 3
 #: consecutive targets t..t+k-1 with t + k at least this skip the gather: products on
-#: (2^k × 2^t) blocks in place (qubit 7 gathered 0.35 against 0.30 in blocks, pair (7, 6)
-#: 0.33 against 0.29; qubit 8 and pair (8, 7) on par).
+#: (2^k × 2^t) blocks in place (below it, gathering wins).
 DIRECT_BLOCK = 9
 
 _local = threading.local()
@@ -134,8 +129,8 @@ def apply_dense(state: State, n: int, matrix: Matrix, qubits: tuple[int, ...]) -
             return
     if desc[0] - desc[-1] == k - 1 and (desc[-1] + k >= DIRECT_BLOCK or 1 << n <= CHUNK):
         # Consecutive targets with enough amplitudes below them, or a state of one chunk
-        # (one product, against a gather's copies: 8 against 18 µs at 8 qubits): (D × D)
-        # times (D × 2^t) blocks straight from the state, no gather.
+        # (one product beats a gather's copies): (D × D) times (D × 2^t) blocks straight
+        # from the state, no gather.
         _apply_consecutive(state.reshape(-1, 1 << k, 1 << desc[-1]), matrix)
         return
     _apply_gathered(state, n, matrix, desc)
@@ -148,9 +143,8 @@ def _apply_gathered(state: State, n: int, matrix: Matrix, desc: tuple[int, ...])
     buf_in, buf_out = _scratch(0, size), _scratch(1, size)
     if desc[-1] >= 3 and shape[-1] << k <= CHUNK:
         # The runs below the lowest target as single opaque items: one transposed copy
-        # of them per chunk runs faster than numpy's copy of short complex runs (at 24
-        # qubits: pair (4, 3) 0.25 of copy bandwidth against 0.20, qubit 5 0.29 against
-        # 0.26) and than one copy per target pattern (qubits 4-6: 0.30-0.34).
+        # of them per chunk runs faster than numpy's copy of short complex runs and than
+        # one copy per target pattern.
         item = np.dtype((np.void, 16 * shape[-1]))
         items = state.view(item).reshape(shape[:-1])
         first = [*range(1, 2 * k, 2), *range(0, 2 * k, 2)]
@@ -166,8 +160,7 @@ def _apply_gathered(state: State, n: int, matrix: Matrix, desc: tuple[int, ...])
             np.copyto(runs, items_out[:count].reshape(runs.shape))
         return
     # Few amplitudes below the lowest target: one copy per target pattern, as a single
-    # transposed copy would run its inner loop over a target axis of length 2 (measured
-    # up to twice as slow).
+    # transposed copy would run its inner loop over a target axis of length 2.
     view = state.reshape(shape)
     first = [*range(1, 2 * k, 2), *range(0, 2 * k + 1, 2)]
     patterns = [tuple((p >> (k - 1 - j)) & 1 for j in range(k)) for p in range(1 << k)]
@@ -184,8 +177,8 @@ def _apply_gathered(state: State, n: int, matrix: Matrix, desc: tuple[int, ...])
 
 def _real_right(matrix: Matrix) -> npt.NDArray[np.float64]:
     """The real 2D × 2D matrix R with real(x) @ R = real(x @ matrix.T) for complex rows x
-    seen as interleaved (re, im) floats (rows of 8 floats: 0.8-1.5 ns per amplitude in
-    cache; a complex 4 × 4 product on gathered rows 1.8-2.8)."""
+    seen as interleaved (re, im) floats (cheaper than a complex product on gathered
+    rows)."""
     right = matrix.T
     dim = right.shape[0]
     out = np.empty((2 * dim, 2 * dim))
@@ -202,8 +195,7 @@ def _low_right(matrix: Matrix, desc: tuple[int, ...], width: int) -> npt.NDArray
 
 def _apply_low(state: State, n: int, matrix: Matrix, desc: tuple[int, ...]) -> None:
     # Rows of 2^w amplitudes times the gate widened to the w lowest qubits; at least two
-    # qubits wide, as rows of 8 floats run faster than rows of 4 (0.83 against 1.13 ns
-    # per amplitude in cache).
+    # qubits wide, as rows of 8 floats run faster than rows of 4.
     width = min(max(desc[0] + 1, 2), n)
     right = _low_right(matrix, desc, width)
     rows = state.view(np.float64).reshape(-1, 2 << width)
@@ -212,7 +204,7 @@ def _apply_low(state: State, n: int, matrix: Matrix, desc: tuple[int, ...]) -> N
     for start in range(0, rows.shape[0], step):
         part = rows[start : start + step]
         # Copy first, then the product writes the state: the copy streams from memory
-        # faster than the product reads it (0.62 of copy bandwidth against 0.50).
+        # faster than the product reads it.
         buf = held[: part.shape[0]]
         np.copyto(buf, part)
         np.matmul(buf, right, out=part)
@@ -221,8 +213,7 @@ def _apply_low(state: State, n: int, matrix: Matrix, desc: tuple[int, ...]) -> N
 def _apply_split(state: State, matrix: Matrix, desc: tuple[int, ...]) -> None:
     # A high qubit h and a low qubit l: the halves h = 0 and h = 1 of a chunk are rows of
     # the low route, and out_i = sum_j rows_j @ R_ij with R_ij the gate's 2 × 2 block
-    # (i, j) acting on l, widened (at 24 qubits 0.26-0.37 of copy bandwidth, 0.12-0.23
-    # gathered).
+    # (i, j) acting on l, widened.
     high, low = desc
     width = max(low + 1, 2)
     rights = [
@@ -235,8 +226,7 @@ def _apply_split(state: State, matrix: Matrix, desc: tuple[int, ...]) -> None:
     bufs = [_scratch(slot, per * span) for slot in range(5)]
 
     # Products write the state, one per run, when a chunk holds at most four runs of each
-    # half ((12, 0): 0.29 against 0.26 through buffers copied back; (9, 0): 0.22 against
-    # 0.26, the calls costing more than the copies).
+    # half; with more runs the calls cost more than copying through buffers.
     direct = per <= 4
 
     def rows(x: State, count: int) -> npt.NDArray[np.float64]:
@@ -282,12 +272,9 @@ def _apply_rotation(
     view: State, p0: complex, p1: complex, q: complex, rotation: npt.NDArray[np.float64]
 ) -> None:
     # One qubit with at least half a chunk below it, as phases around a real rotation:
-    # OpenBLAS's real (2 × 2) @ (2 × m) product runs at 0.9 ns per amplitude in cache
-    # against 2.4 for the complex one, and the three half-chunk phase products cost less
-    # than the difference (at 24 qubits 0.46-0.54 of copy bandwidth against 0.40-0.48).
-    # Lower qubits gain nothing: the phase products on strided halves (which would also
-    # gather and scatter) run slower than on contiguous ones (qubits 4-8: on par with
-    # the gather route; qubits 10-12: 0.31 against 0.36-0.39).
+    # OpenBLAS's real (2 × 2) @ (2 × m) product is much cheaper than the complex one, and
+    # the three half-chunk phase products cost less than the difference. Lower qubits
+    # gain nothing: phase products on strided halves run slower than on contiguous ones.
     span = CHUNK // 2
     held = _scratch(0, 2 * span).view(np.float64).reshape(2, -1)
     for row in view:
