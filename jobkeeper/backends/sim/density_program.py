@@ -26,14 +26,8 @@ from jobkeeper.backends.sim.noise import NoiseModel
 
 # The validation and the final-measurement rule are the state-vector program's own, so
 # the two simulators accept the same circuits and read the same measurements at the end.
-from jobkeeper.backends.sim.program import (
-    IDENTITY_GATES,
-    Measure,
-    Reset,
-    check_operation,
-    final_measurements,
-)
-from jobkeeper.circuit.ir import BARRIER, MEASURE, RESET, Circuit, Condition, Operation
+from jobkeeper.backends.sim.program import IDENTITY_GATES, Measure, Reset, outline
+from jobkeeper.circuit.ir import MEASURE, RESET, Circuit, Condition, Operation
 from jobkeeper.circuit.stdgates import expand_standard
 
 #: widest fused block in vector qubits (a two-qubit gate and its noise: 16 × 16).
@@ -66,7 +60,8 @@ Step = Channel | Measure | Reset
 class DensityProgram:
     num_qubits: int
     steps: tuple[Step, ...]
-    #: (qubit, clbit) of the final measurements, in circuit order.
+    #: (qubit, clbit) of the final measurements, in ascending clbit order (see
+    #: program.Outline).
     final: tuple[tuple[int, int], ...]
     #: whether the circuit measures anything at all.
     measures: bool
@@ -128,10 +123,8 @@ def operation_terms(n: int, op: Operation, noise: NoiseModel, counts: list[int])
 def compile_density(circuit: Circuit, noise: NoiseModel, max_width: int) -> DensityProgram:
     """Validate ``circuit`` (PermanentBackendError naming the first operation that cannot
     be simulated) and turn it into steps on the vectorised ρ."""
-    for op in circuit.operations:
-        check_operation(circuit, op)
+    plan = outline(circuit)
     n = circuit.num_qubits
-    final_index = final_measurements(circuit.operations)
     steps: list[Step] = []
     pending: list[Term] = []
     pending_condition: list[Condition | None] = [None]
@@ -147,14 +140,7 @@ def compile_density(circuit: Circuit, noise: NoiseModel, max_width: int) -> Dens
             steps.append(Channel(blocks, pending_condition[0], unitary=unitary))
             pending.clear()
 
-    final: list[tuple[int, int]] = []
-    for index, op in enumerate(circuit.operations):
-        if op.name == BARRIER:
-            continue
-        if op.name == MEASURE and op.condition is None and index in final_index:
-            if final_index[index]:
-                final.append((op.qubits[0], op.clbits[0]))
-            continue
+    for op in plan.body:
         if op.name == MEASURE:
             flush()
             steps.append(Measure(op.qubits[0], op.clbits[0], op.condition))
@@ -174,9 +160,6 @@ def compile_density(circuit: Circuit, noise: NoiseModel, max_width: int) -> Dens
             else:
                 pending += operation_terms(n, op, noise, counts)
     flush()
-    measures = any(op.name == MEASURE for op in circuit.operations)
-    # Outcome index bits in classical-bit order, as the state-vector program orders them.
-    final.sort(key=lambda pair: pair[1])
     return DensityProgram(
-        n, tuple(steps), tuple(final), measures, (counts[0], counts[1], counts[2])
+        n, tuple(steps), plan.final, plan.measures, (counts[0], counts[1], counts[2])
     )

@@ -115,20 +115,26 @@ def final_measurements(ops: tuple[Operation, ...]) -> dict[int, bool]:
     return final
 
 
-def compile_circuit(circuit: Circuit, max_width: int) -> Program:
-    """Validate ``circuit`` and turn it into simulation steps (raises
-    PermanentBackendError naming the first operation that cannot be simulated)."""
+@dataclass(frozen=True, slots=True)
+class Outline:
+    """A validated circuit split as every simulator runs it: the operations to simulate
+    (no barriers, no final measurements), and the final measurements."""
+
+    body: tuple[Operation, ...]
+    #: (qubit, clbit) of the final measurements whose bits survive, in ascending clbit
+    #: order (the order of the bits of an outcome index, see sampling).
+    final: tuple[tuple[int, int], ...]
+    #: whether the circuit measures anything at all.
+    measures: bool
+
+
+def outline(circuit: Circuit) -> Outline:
+    """Validate ``circuit`` (PermanentBackendError naming the first operation that cannot
+    be simulated) and take out its barriers and final measurements."""
     for op in circuit.operations:
         check_operation(circuit, op)
     final_index = final_measurements(circuit.operations)
-    steps: list[Step] = []
-    pending: list[tuple[tuple[int, ...], Matrix]] = []
-
-    def flush() -> None:
-        if pending:
-            steps.append(Gates(tuple(fuse(pending, max_width))))
-            pending.clear()
-
+    body: list[Operation] = []
     final: list[tuple[int, int]] = []
     for index, op in enumerate(circuit.operations):
         if op.name == BARRIER:
@@ -137,6 +143,25 @@ def compile_circuit(circuit: Circuit, max_width: int) -> Program:
             if final_index[index]:
                 final.append((op.qubits[0], op.clbits[0]))
             continue
+        body.append(op)
+    final.sort(key=lambda pair: pair[1])
+    measures = any(op.name == MEASURE for op in circuit.operations)
+    return Outline(tuple(body), tuple(final), measures)
+
+
+def compile_circuit(circuit: Circuit, max_width: int) -> Program:
+    """Validate ``circuit`` and turn it into simulation steps (raises
+    PermanentBackendError naming the first operation that cannot be simulated)."""
+    plan = outline(circuit)
+    steps: list[Step] = []
+    pending: list[tuple[tuple[int, ...], Matrix]] = []
+
+    def flush() -> None:
+        if pending:
+            steps.append(Gates(tuple(fuse(pending, max_width))))
+            pending.clear()
+
+    for op in plan.body:
         if op.name in (MEASURE, RESET) or op.condition is not None:
             flush()
             if op.name == MEASURE:
@@ -153,6 +178,4 @@ def compile_circuit(circuit: Circuit, max_width: int) -> Program:
         if op.name not in IDENTITY_GATES:
             pending.append((op.qubits, gate_matrix(op.name, op.params)))
     flush()
-    measures = any(op.name == MEASURE for op in circuit.operations)
-    final.sort(key=lambda pair: pair[1])
-    return Program(circuit.num_qubits, tuple(steps), tuple(final), measures)
+    return Program(circuit.num_qubits, tuple(steps), plan.final, plan.measures)
