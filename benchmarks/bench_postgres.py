@@ -57,7 +57,7 @@ def _jobs(n: int) -> list[Any]:
             shots=100,
             seed=None,
             repeat=0,
-            label="bench",
+            labels=("bench",),
             spec={"circuit": "bench"},
             max_attempts=3,
         )

@@ -9,6 +9,11 @@ Errors: :class:`~jobkeeper.exceptions.TransientBackendError` (retry later, maybe
 ``retry_after`` seconds) or :class:`~jobkeeper.exceptions.PermanentBackendError` (fail
 now, the message says why). Nothing else may escape a backend method.
 
+Tries inside one call: a backend that retries within ``start``, ``poll`` or ``cancel``
+(quick retries of a flaky connection, say) calls :func:`report_try` with the error of
+each try it is about to retry. The worker records each as an attempt of the job, so no
+try against a device goes unrecorded; outside a worker the call does nothing.
+
 This is a :class:`typing.Protocol`: third-party backends need not inherit from anything.
 They register a factory under the entry-point group ``jobkeeper.backends``; the factory
 is called as ``factory(name=..., config={...})`` and returns a backend.
@@ -16,7 +21,10 @@ is called as ``factory(name=..., config={...})`` and returns a backend.
 
 from __future__ import annotations
 
-from collections.abc import Mapping
+import time
+from collections.abc import Iterator, Mapping
+from contextlib import contextmanager
+from contextvars import ContextVar
 from dataclasses import dataclass, field
 from typing import Any, Literal, Protocol, runtime_checkable
 
@@ -143,3 +151,36 @@ class LocalBackend(Backend, Protocol):
     runs inline."""
 
     def execute(self, task: Task) -> Result: ...
+
+
+@dataclass(frozen=True)
+class Try:
+    """A try a backend retried inside one call: the error's class and message, and when it
+    failed (``time.monotonic()``)."""
+
+    error_class: str
+    message: str
+    at: float
+
+
+# The tries of the call in progress, per asyncio task (each job is handled in its own task,
+# so concurrent jobs never see each other's tries).
+_tries: ContextVar[list[Try] | None] = ContextVar("jobkeeper_tries", default=None)
+
+
+def report_try(error: BaseException) -> None:
+    """Tell whoever runs this backend call that one try failed with ``error`` and will be
+    retried within the call. Safe to call anywhere: without a collector it does nothing."""
+    sink = _tries.get()
+    if sink is not None:
+        sink.append(Try(type(error).__name__, str(error), time.monotonic()))
+
+
+@contextmanager
+def collect_tries(sink: list[Try]) -> Iterator[list[Try]]:
+    """Collect, into ``sink``, the tries backends report inside this block (in this task)."""
+    token = _tries.set(sink)
+    try:
+        yield sink
+    finally:
+        _tries.reset(token)

@@ -322,7 +322,7 @@ class Keeper:
                     shots=shots,
                     seed=None if seed is None else str(seed),
                     repeat=repeat,
-                    label=label,
+                    labels=() if label is None else (label,),
                     spec={
                         "circuit": text,
                         "circuitHash": chash,

@@ -22,6 +22,7 @@ import contextlib
 import gc
 import logging
 import signal
+import time
 import uuid
 from collections.abc import Callable, Collection
 from concurrent.futures import Executor, ProcessPoolExecutor, ThreadPoolExecutor
@@ -31,7 +32,7 @@ from typing import Any, TypeVar, cast
 
 from jobkeeper._execution import build_task, one_blas_thread, run_local
 from jobkeeper.audit.sealing import Sealer
-from jobkeeper.backend import Backend, LocalBackend, Result, Task
+from jobkeeper.backend import Backend, LocalBackend, Result, Task, Try, collect_tries
 from jobkeeper.exceptions import (
     JobkeeperError,
     LeaseLost,
@@ -49,7 +50,7 @@ from jobkeeper.queue import (
     PollPolicy,
     RetryPolicy,
 )
-from jobkeeper.store import Claim, Completion, Store
+from jobkeeper.store import Claim, Completion, Store, TryInCall
 
 log = logging.getLogger("jobkeeper.worker")
 T = TypeVar("T")
@@ -108,6 +109,9 @@ class _Held:
     task: asyncio.Task[None] | None = None
     lost: bool = False
     archiving: bool = False
+    #: Tries the backend retried inside its calls, not yet recorded.
+    tries: list[Try] = field(default_factory=list)
+    tried_in_call: bool = False
 
 
 class Worker:
@@ -320,7 +324,9 @@ class Worker:
             backend = self._backend(job.backend)
             if job.cancel_requested:
                 if claim.was == JobState.WAITING and job.handle:
-                    await backend.cancel(job.handle)
+                    with collect_tries(held.tries):
+                        await backend.cancel(job.handle)
+                await self._record_tries(held)
                 await self._store(self.store.mark_cancelled, job.id, claim.token)
                 self.stats.cancelled += 1
                 return
@@ -342,15 +348,15 @@ class Worker:
                 with contextlib.suppress(JobkeeperError):
                     await self._store(self.store.release, self.owner, [(job.id, claim.token)])
         except TransientBackendError as exc:
-            await self._retry(claim, exc, exc.retry_after)
+            await self._retry(held, exc, exc.retry_after)
         except (PermanentBackendError, JobkeeperError) as exc:
-            await self._fail(claim, exc)
+            await self._fail(held, exc)
         except BrokenProcessPool as exc:
             self._pool = None
-            await self._retry(claim, exc, None)
+            await self._retry(held, exc, None)
         except Exception as exc:  # a bug in a backend must fail its job, not the worker
             log.exception("job %s: unexpected error", job.id)
-            await self._fail(claim, exc)
+            await self._fail(held, exc)
         finally:
             self._held.pop(job.id, None)
             self._wake.set()
@@ -369,7 +375,9 @@ class Worker:
                     result = await loop.run_in_executor(executor, run_local, local, task)
             await self._archive(held, backend, result)
             return
-        started = await backend.start(task, client_key=claim.job.job_key)
+        with collect_tries(held.tries):
+            started = await backend.start(task, client_key=claim.job.job_key)
+        await self._record_tries(held)
         if started.result is not None:
             await self._archive(held, backend, started.result)
             return
@@ -385,7 +393,9 @@ class Worker:
     async def _poll(self, held: _Held, backend: Backend) -> None:
         claim = held.claim
         assert claim.job.handle is not None
-        polled = await backend.poll(claim.job.handle)
+        with collect_tries(held.tries):
+            polled = await backend.poll(claim.job.handle)
+        await self._record_tries(held)
         self.stats.polls += 1
         if polled.state == "done" and polled.result is not None:
             await self._archive(held, backend, polled.result)
@@ -412,7 +422,9 @@ class Worker:
         claim = held.claim
         # Most jobs succeed at the first try: only read their history when there is one.
         attempts = (
-            await self._store(self.store.attempts, claim.job.id) if claim.job.attempts else []
+            await self._store(self.store.attempts, claim.job.id)
+            if claim.job.attempts or held.tried_in_call
+            else []
         )
         completion = self.sealer.seal(claim, result, backend.info, attempts)
         future: asyncio.Future[bool] = asyncio.get_running_loop().create_future()
@@ -448,9 +460,23 @@ class Worker:
                 if not future.done():
                     future.set_result(ok)
 
-    async def _retry(self, claim: Claim, exc: BaseException, hint: float | None) -> None:
+    async def _record_tries(self, held: _Held) -> None:
+        """Record the tries the backend retried inside its last call, before the job's
+        next move (so they are numbered before the attempt that move may record)."""
+        if not held.tries:
+            return
+        now = time.monotonic()
+        tries = [TryInCall(t.error_class, t.message, max(0.0, now - t.at)) for t in held.tries]
+        held.tries.clear()
+        held.tried_in_call = True
+        job = held.claim.job
+        await self._store(self.store.record_tries, job.id, held.claim.token, tries)
+
+    async def _retry(self, held: _Held, exc: BaseException, hint: float | None) -> None:
+        claim = held.claim
         delay = self.retry.delay(claim.job.attempts + 1, backend_hint=hint)
         try:
+            await self._record_tries(held)
             state = await self._store(
                 self.store.retry, claim.job.id, claim.token, type(exc).__name__, str(exc), delay
             )
@@ -462,8 +488,10 @@ class Worker:
         else:
             self.stats.retried += 1
 
-    async def _fail(self, claim: Claim, exc: BaseException) -> None:
+    async def _fail(self, held: _Held, exc: BaseException) -> None:
+        claim = held.claim
         try:
+            await self._record_tries(held)
             await self._store(
                 self.store.fail, claim.job.id, claim.token, type(exc).__name__, str(exc)
             )

@@ -110,7 +110,6 @@ class Sealer:
             "repeat": job.repeat,
             "exact": bool(spec.get("exact", False)),
             "options": dict(spec.get("options", {})),
-            "label": job.label,
         }
         if result.probabilities is not None:
             parameters["probabilities"] = dict(result.probabilities)
@@ -145,7 +144,7 @@ class Sealer:
                 {
                     "number": a.number,
                     "startedOn": rfc3339(a.at),
-                    "outcome": "retried",
+                    "outcome": "retried in the call" if a.in_call else "retried",
                     "errorClass": a.error_class,
                     "message": a.message,
                 }

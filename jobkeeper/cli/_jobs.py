@@ -273,9 +273,9 @@ def jobs(
     if json_out:
         echo_json([job_json(r) for r in records])
         return
-    rows = [[r.id[:12], r.state, r.backend, str(r.shots), r.label or "-",
+    rows = [[r.id[:12], r.state, r.backend, str(r.shots), ", ".join(r.labels) or "-",
              str(r.spec.get("sourceName") or "-"), when(r.created_at)] for r in records]  # fmt: skip
-    typer.echo(table(rows, ["ID", "STATE", "BACKEND", "SHOTS", "LABEL", "SOURCE", "CREATED"]))
+    typer.echo(table(rows, ["ID", "STATE", "BACKEND", "SHOTS", "LABELS", "SOURCE", "CREATED"]))
 
 
 @app.command()

@@ -34,7 +34,7 @@ def job_json(job: JobRecord) -> dict[str, Any]:
         "shots": job.shots,
         "seed": job.seed,
         "repeat": job.repeat,
-        "label": job.label,
+        "labels": list(job.labels),
         "circuit_hash": spec.get("circuitHash"),
         "source": spec.get("sourceName"),
         "created_at": when_iso(job.created_at),

@@ -29,7 +29,13 @@ def describe_job(keeper: Keeper, job: Job) -> JobDetails:
     data["code_version"] = record.spec.get("codeVersion")
     data["options"] = record.spec.get("options", {})
     data["attempt_history"] = [
-        {"number": a.number, "at": when(a.at), "error_class": a.error_class, "message": a.message}
+        {
+            "number": a.number,
+            "at": when(a.at),
+            "error_class": a.error_class,
+            "message": a.message,
+            "in_call": a.in_call,
+        }
         for a in job.attempts
     ]
     result = job.result
@@ -60,7 +66,7 @@ def _text(d: dict[str, Any]) -> str:
         f"  backend    {d['backend']}",
         f"  shots      {d['shots']}   seed {d.get('result_metadata', {}).get('seed', d['seed'])}"
         f"   repeat {d['repeat']}",
-        f"  label      {d['label'] or '-'}",
+        f"  labels     {', '.join(d['labels']) or '-'}",
         f"  source     {d['source'] or '-'}  ({d['source_hash'] or 'no source hash'})",
         f"  circuit    {d['circuit_hash']}",
         f"  job key    {d['job_key']}",
@@ -77,7 +83,8 @@ def _text(d: dict[str, Any]) -> str:
     if d["attempt_history"]:
         lines.append("  attempts:")
         for a in d["attempt_history"]:
-            lines.append(f"    {a['number']}. {a['at']}  {a['error_class']}: {a['message']}")
+            how = "  (retried within the call)" if a["in_call"] else ""
+            lines.append(f"    {a['number']}. {a['at']}  {a['error_class']}: {a['message']}{how}")
     if d.get("probabilities") is not None:
         lines.append("  exact probabilities:")
         lines.append(bar_chart(d["probabilities"], total=1.0))

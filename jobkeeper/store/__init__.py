@@ -24,7 +24,7 @@ from __future__ import annotations
 
 import json
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Any, Protocol
 
@@ -42,10 +42,11 @@ class NewJob:
     shots: int
     seed: str | None
     repeat: int
-    label: str | None
     spec: Mapping[str, Any]
     max_attempts: int
     cost: float | None = None
+    #: Labels to give the job; a live or done job found under the same key gets them too.
+    labels: Sequence[str] = ()
 
 
 @dataclass(frozen=True)
@@ -59,7 +60,6 @@ class JobRecord:
     shots: int
     seed: str | None
     repeat: int
-    label: str | None
     spec: Mapping[str, Any]
     created_at: float
     updated_at: float
@@ -75,6 +75,9 @@ class JobRecord:
     error: str | None
     cancel_requested: bool
     cost: float | None
+    #: The job's labels, sorted: unsigned annotations for finding and grouping jobs (the
+    #: labels it was submitted with, and those of every later submission deduplicated to it).
+    labels: tuple[str, ...] = ()
 
 
 @dataclass(frozen=True)
@@ -89,7 +92,9 @@ class Claim:
 
 @dataclass(frozen=True)
 class Attempt:
-    """One failed try: when, what kind of error, what it said, and when to try again."""
+    """One failed try against the backend: when, what kind of error, what it said, and when
+    to try again. ``in_call`` marks a try the backend itself retried inside one call (a
+    REST adapter's quick retries, say): it used up none of the job's attempts."""
 
     job_id: str
     number: int
@@ -97,6 +102,17 @@ class Attempt:
     error_class: str
     message: str
     retry_at: float | None = None
+    in_call: bool = False
+
+
+@dataclass(frozen=True)
+class TryInCall:
+    """A try a backend retried inside one call, to be recorded as an attempt:
+    ``seconds_ago`` is how long before the store call it failed."""
+
+    error_class: str
+    message: str
+    seconds_ago: float
 
 
 @dataclass(frozen=True)
@@ -223,6 +239,11 @@ class Store(Protocol):
         """Record the attempt and end the job ``failed``."""
         ...
 
+    def record_tries(self, job_id: str, token: int, tries: Sequence[TryInCall]) -> None:
+        """Record tries the backend retried inside one call as attempts (``in_call``),
+        numbered after the job's earlier attempts. Fenced on the token; uses no attempt."""
+        ...
+
     def finish(self, completions: Sequence[Completion], appender: LogAppender) -> list[bool]:
         """Archive results, append their envelopes to the log and sign a checkpoint, all
         in one transaction. Each completion is fenced on its token: one whose lease was
@@ -318,6 +339,21 @@ def counts_text(counts: Mapping[str, int]) -> str:
     return canonical_json(counts if isinstance(counts, CountTable) else dict(counts)).decode()
 
 
+def job_row(job: NewJob) -> tuple[Any, ...]:
+    """The parameters of ``sql.INSERT_JOB`` for a new job."""
+    spec = json.dumps(dict(job.spec), sort_keys=True)
+    return (job.id, job.job_key, job.backend, job.shots, job.seed, job.repeat, spec,
+            job.max_attempts, job.cost)  # fmt: skip
+
+
+def labelled(record: JobRecord, labels: Sequence[str]) -> JobRecord:
+    """``record`` with ``labels`` added to its own (what the archive holds once the
+    labels are written in the same transaction)."""
+    if not labels:
+        return record
+    return replace(record, labels=tuple(sorted({*record.labels, *labels})))
+
+
 def result_row(item: Completion) -> tuple[str, str | None, str | None, str]:
     """The results row of a completion (job id, counts, probabilities, metadata as text),
     made before the finishing transaction so that the write lock is held for SQL only."""
@@ -353,6 +389,7 @@ __all__ = [
     "Store",
     "StoredCheckpoint",
     "StoredResult",
+    "TryInCall",
     "counts_text",
     "open_store",
 ]

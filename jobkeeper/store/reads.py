@@ -31,7 +31,6 @@ def record_of(row: Sequence[Any]) -> JobRecord:
         shots,
         seed,
         repeat,
-        label,
         spec,
         created,
         updated,
@@ -47,14 +46,16 @@ def record_of(row: Sequence[Any]) -> JobRecord:
         error,
         cancel,
         cost,
+        labels,
     ) = row
     return JobRecord(
         id=id_, job_key=key, state=JobState(state), backend=backend, shots=shots, seed=seed,
-        repeat=repeat, label=label, spec=json.loads(spec), created_at=created,
+        repeat=repeat, spec=json.loads(spec), created_at=created,
         updated_at=updated, not_before=not_before, attempts=attempts,
         max_attempts=max_attempts, lease_owner=owner, lease_token=token,
         lease_expires=expires, handle=handle, started_at=started, finished_at=finished,
         error=error, cancel_requested=bool(cancel), cost=cost,
+        labels=tuple(sorted(json.loads(labels) or ())) if labels else (),
     )  # fmt: skip
 
 
@@ -66,7 +67,9 @@ def entry_of(row: Sequence[Any]) -> LogEntry:
 class StoreReads:
     """Reading methods of a store; the store provides ``_read``."""
 
-    def _read(self, statement: str, params: Sequence[Any] = ()) -> list[Any]:
+    def _read(self, statement: str, params: Sequence[Any] = (), **extra: str) -> list[Any]:
+        """Run one statement of :mod:`jobkeeper.store.sql` (its slots filled from
+        ``extra``) and return every row."""
         raise NotImplementedError
 
     def get(self, id_or_prefix: str) -> JobRecord:
@@ -87,7 +90,7 @@ class StoreReads:
         for start in range(0, len(ids), 500):
             chunk = list(ids[start : start + 500])
             marks = ", ".join("?" for _ in chunk)
-            rows = self._read(sql.JOBS_BY_IDS.format(marks=marks), chunk)
+            rows = self._read(sql.JOBS_BY_IDS, chunk, marks=marks)
             out.extend(record_of(row) for row in rows)
         order = {job_id: i for i, job_id in enumerate(ids)}
         out.sort(key=lambda job: order[job.id])
@@ -105,7 +108,7 @@ class StoreReads:
             params.append(state)
         clause = f"WHERE {' AND '.join(where)}" if where else ""
         tail = f"LIMIT {int(limit)}" if limit else ""
-        rows = self._read(sql.LIST_JOBS.format(where=clause, limit=tail), params)
+        rows = self._read(sql.LIST_JOBS, params, where=clause, limit=tail)
         return [record_of(row) for row in rows]
 
     def counts_by_state(self) -> dict[str, int]:
@@ -113,7 +116,10 @@ class StoreReads:
 
     def attempts(self, job_id: str) -> list[Attempt]:
         rows = self._read(sql.ATTEMPTS_OF, (job_id,))
-        return [Attempt(*row) for row in rows]
+        return [
+            Attempt(job, number, at, error_class, message, retry_at, bool(in_call))
+            for job, number, at, error_class, message, retry_at, in_call in rows
+        ]
 
     def result(self, job_id: str) -> StoredResult | None:
         rows = self._read(sql.RESULT_OF, (job_id,))
@@ -149,7 +155,7 @@ class StoreReads:
 
     def comparisons(self, job_id: str | None = None) -> list[ComparisonRecord]:
         where, params = (sql.COMPARISONS_OF_JOB, (job_id, job_id)) if job_id else ("", ())
-        rows = self._read(sql.COMPARISONS.format(where=where), params)
+        rows = self._read(sql.COMPARISONS, params, where=where)
         return [ComparisonRecord(*row) for row in rows]
 
     def public_keys(self) -> dict[str, str]:

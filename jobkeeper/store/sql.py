@@ -18,18 +18,21 @@ def _states(states: frozenset[JobState]) -> str:
     return "(" + ", ".join(f"'{state}'" for state in JobState if state in states) + ")"
 
 
-SCHEMA_VERSION = 2
+SCHEMA_VERSION = 3
 
 LIVE = _states(LIVE_STATES)
 KEYED = _states(KEYED_STATES)
 # The claim's subselect and the due-jobs index: jobs a worker may take now or later.
 DUE = _states(frozenset({JobState.QUEUED, JobState.WAITING}))
 
+#: A job's columns, its labels last: ``{labels}`` is each store's expression for the JSON
+#: array of the job's labels (the dialects name their aggregate differently).
 JOB_COLUMNS = (
-    "id, job_key, state, backend, shots, seed, repeat, label, spec, created_at, updated_at, "
+    "id, job_key, state, backend, shots, seed, repeat, spec, created_at, updated_at, "
     "not_before, attempts, max_attempts, lease_owner, lease_token, lease_expires, handle, "
-    "started_at, finished_at, error, cancel_requested, cost"
+    "started_at, finished_at, error, cancel_requested, cost, {labels}"
 )
+LABELS_OF_JOB = "FROM job_labels WHERE job_labels.job_id = jobs.id"
 
 # Migrations: index i holds the statements that take schema version i to i + 1.
 MIGRATIONS: list[list[str]] = [
@@ -137,12 +140,29 @@ MIGRATIONS: list[list[str]] = [
         "DROP TABLE log_entries",
         "ALTER TABLE log_entries_v2 RENAME TO log_entries",
     ],
+    # 3: labels become a set per job (a job found again under a new label gets that label
+    # too; labels annotate, nothing signs them), and attempts record the tries a backend
+    # retried inside one call (in_call = 1; they use up none of the job's attempts).
+    [
+        """CREATE TABLE job_labels (
+            job_id TEXT NOT NULL REFERENCES jobs (id),
+            label TEXT NOT NULL,
+            added_at DOUBLE PRECISION NOT NULL,
+            PRIMARY KEY (job_id, label)
+        )""",
+        "CREATE INDEX job_labels_by_label ON job_labels (label, job_id)",
+        "INSERT INTO job_labels (job_id, label, added_at) "
+        "SELECT id, label, created_at FROM jobs WHERE label IS NOT NULL",
+        "DROP INDEX jobs_label",
+        "ALTER TABLE jobs DROP COLUMN label",
+        "ALTER TABLE attempts ADD COLUMN in_call INTEGER NOT NULL DEFAULT 0",
+    ],
 ]
 
 INSERT_JOB = f"""
-INSERT INTO jobs (id, job_key, state, backend, shots, seed, repeat, label, spec, created_at,
+INSERT INTO jobs (id, job_key, state, backend, shots, seed, repeat, spec, created_at,
                   updated_at, not_before, max_attempts, cost)
-VALUES (?, ?, 'queued', ?, ?, ?, ?, ?, ?, {{now}}, {{now}}, {{now}}, ?, ?)
+VALUES (?, ?, 'queued', ?, ?, ?, ?, ?, {{now}}, {{now}}, {{now}}, ?, ?)
 ON CONFLICT (job_key) WHERE state IN {KEYED} DO NOTHING
 RETURNING {JOB_COLUMNS}
 """
@@ -178,10 +198,26 @@ UPDATE jobs SET state = 'waiting', not_before = {now} + ?, lease_owner = NULL,
 WHERE id = ? AND lease_token = ? AND state = 'running'
 """
 
-INSERT_ATTEMPT = """
+# Attempts are numbered per job in the order they happened, tries inside a call included.
+NEXT_ATTEMPT = "(SELECT COALESCE(MAX(a.number), 0) + 1 FROM attempts a WHERE a.job_id = jobs.id)"
+
+INSERT_ATTEMPT = f"""
 INSERT INTO attempts (job_id, number, at, error_class, message, retry_at)
-SELECT id, attempts + 1, {now}, ?, ?, {now} + ? FROM jobs
+SELECT id, {NEXT_ATTEMPT}, {{now}}, ?, ?, {{now}} + ? FROM jobs
 WHERE id = ? AND lease_token = ? AND state = 'running'
+"""
+
+# A try the backend retried inside one call, ``?`` seconds ago (measured on the worker's
+# monotonic clock, so the time is on the database's clock like every other).
+INSERT_TRY_IN_CALL = f"""
+INSERT INTO attempts (job_id, number, at, error_class, message, retry_at, in_call)
+SELECT id, {NEXT_ATTEMPT}, {{now}} - ?, ?, ?, NULL, 1 FROM jobs
+WHERE id = ? AND lease_token = ? AND state = 'running'
+"""
+
+ADD_LABEL = """
+INSERT INTO job_labels (job_id, label, added_at) VALUES (?, ?, {now})
+ON CONFLICT (job_id, label) DO NOTHING
 """
 
 RETRY = """
@@ -288,11 +324,11 @@ JOB_BY_PREFIX = f"SELECT {JOB_COLUMNS} FROM jobs WHERE id >= ? AND id < ? ORDER 
 JOBS_BY_IDS = f"SELECT {JOB_COLUMNS} FROM jobs WHERE id IN ({{marks}})"
 LIST_JOBS = f"SELECT {JOB_COLUMNS} FROM jobs {{where}} ORDER BY created_at, id {{limit}}"
 #: Conditions of a job listing, joined with AND (each takes one parameter).
-JOBS_WITH_LABEL = "label = ?"
+JOBS_WITH_LABEL = "id IN (SELECT job_id FROM job_labels WHERE label = ?)"
 JOBS_IN_STATE = "state = ?"
 COUNT_BY_STATE = "SELECT state, COUNT(*) FROM jobs GROUP BY state"
 ATTEMPTS_OF = """
-SELECT job_id, number, at, error_class, message, retry_at FROM attempts
+SELECT job_id, number, at, error_class, message, retry_at, in_call FROM attempts
 WHERE job_id = ? ORDER BY number
 """
 RESULT_OF = """
@@ -312,6 +348,7 @@ SPENT = f"SELECT COALESCE(SUM(cost), 0) FROM jobs WHERE state IN {KEYED}"
 # -- SQLite only -------------------------------------------------------------------------------
 
 SQLITE_NOW = "((julianday('now') - 2440587.5) * 86400.0)"
+SQLITE_LABELS = f"(SELECT json_group_array(label) {LABELS_OF_JOB})"
 SQLITE_OPEN = ("PRAGMA journal_mode=WAL", "PRAGMA synchronous=FULL", "PRAGMA foreign_keys=ON")
 SQLITE_SYNC_FULL = "PRAGMA synchronous=FULL"
 SQLITE_SYNC_NORMAL = "PRAGMA synchronous=NORMAL"
@@ -322,6 +359,7 @@ SQLITE_ROLLBACK = "ROLLBACK"
 # -- PostgreSQL only ---------------------------------------------------------------------------
 
 PG_NOW = "extract(epoch from statement_timestamp())::float8"
+PG_LABELS = f"(SELECT json_agg(label)::text {LABELS_OF_JOB})"
 #: Serialises migrations of one schema (keyed by a hash of the schema's name, so archives
 #: in other schemas of the same database do not wait for each other).
 PG_MIGRATION_LOCK = "SELECT pg_advisory_xact_lock(?, hashtext(coalesce(?, current_schema(), '')))"

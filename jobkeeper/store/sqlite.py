@@ -12,7 +12,6 @@ retry ourselves with small random sleeps, so waiting writers get their turn at r
 
 from __future__ import annotations
 
-import json
 import random
 import sqlite3
 import threading
@@ -32,10 +31,14 @@ from jobkeeper.store import (
     JobRecord,
     LogAppender,
     NewJob,
+    TryInCall,
+    job_row,
+    labelled,
     result_row,
     sql,
 )
 from jobkeeper.store.reads import StoreReads, record_of
+from jobkeeper.store.sqlite_schema import check_migrated, sqlite_dialect
 
 T = TypeVar("T")
 NOW = sql.SQLITE_NOW
@@ -46,16 +49,18 @@ _BUSY_CODES = frozenset({sqlite3.SQLITE_BUSY, sqlite3.SQLITE_LOCKED})
 
 
 def _q(statement: str, **extra: str) -> str:
-    return (
-        statement.replace("{now}", NOW).format(**extra)
-        if extra
-        else statement.replace("{now}", NOW)
-    )
+    """A statement of :mod:`jobkeeper.store.sql` in SQLite's dialect, its slots filled."""
+    text = statement.replace("{now}", NOW).replace("{labels}", sql.SQLITE_LABELS)
+    return text.format(**extra) if extra else text
 
 
 _FINISH = _q(sql.FINISH)
 _INSERT_RESULT = _q(sql.INSERT_RESULT)
 _INSERT_LOG_ENTRY = _q(sql.INSERT_LOG_ENTRY)
+_INSERT_JOB = _q(sql.INSERT_JOB)
+_SELECT_LIVE_BY_KEY = _q(sql.SELECT_LIVE_BY_KEY)
+_ADD_LABEL = _q(sql.ADD_LABEL)
+_INSERT_TRY_IN_CALL = _q(sql.INSERT_TRY_IN_CALL)
 
 
 def is_busy(exc: sqlite3.Error) -> bool:
@@ -150,8 +155,8 @@ class SqliteStore(StoreReads):
                 if not durable:
                     conn.execute(sql.SQLITE_SYNC_FULL)
 
-    def _read(self, statement: str, params: Sequence[Any] = ()) -> list[Any]:
-        text = _q(statement)
+    def _read(self, statement: str, params: Sequence[Any] = (), **extra: str) -> list[Any]:
+        text = _q(statement, **extra)
         with self._lock, map_errors(f"archive error at {self.path}"):
             rows: list[Any] = patiently(
                 lambda: self._conn.execute(text, params).fetchall(), what=self._where
@@ -168,11 +173,14 @@ class SqliteStore(StoreReads):
                     f"the archive at {self.path} has schema version {version}, newer than "
                     f"this jobkeeper understands ({sql.SCHEMA_VERSION}); upgrade jobkeeper"
                 )
+            if version == sql.SCHEMA_VERSION:
+                return
             for step in sql.MIGRATIONS[version:]:
                 for statement in step:
-                    conn.execute(statement.replace("BYTEA", "BLOB"))
-            if version != sql.SCHEMA_VERSION:
-                conn.execute(sql.SET_META, ("schema_version", str(sql.SCHEMA_VERSION)))
+                    conn.execute(sqlite_dialect(statement))
+            if version > 0:  # an archive that held rows: check what the steps made of it
+                check_migrated(conn, where=str(self.path), found=version)
+            conn.execute(sql.SET_META, ("schema_version", str(sql.SCHEMA_VERSION)))
 
     # -- queue ----------------------------------------------------------------------------
 
@@ -183,17 +191,14 @@ class SqliteStore(StoreReads):
         out: list[tuple[JobRecord, bool]] = []
         with self._write() as conn:
             for job in jobs:
-                row = conn.execute(
-                    _q(sql.INSERT_JOB),
-                    (job.id, job.job_key, job.backend, job.shots, job.seed, job.repeat,
-                     job.label, json.dumps(dict(job.spec), sort_keys=True), job.max_attempts,
-                     job.cost),
-                ).fetchone()  # fmt: skip
-                if row is not None:
-                    out.append((record_of(row), True))
-                    continue
-                existing = conn.execute(sql.SELECT_LIVE_BY_KEY, (job.job_key,)).fetchone()
-                out.append((record_of(existing), False))
+                row = conn.execute(_INSERT_JOB, job_row(job)).fetchone()
+                created = row is not None
+                if not created:  # a live or done job has the key: that job is the answer
+                    row = conn.execute(_SELECT_LIVE_BY_KEY, (job.job_key,)).fetchone()
+                record = record_of(row)
+                if job.labels:
+                    conn.executemany(_ADD_LABEL, [(record.id, label) for label in job.labels])
+                out.append((labelled(record, job.labels), created))
         return out
 
     def claim(
@@ -272,6 +277,15 @@ class SqliteStore(StoreReads):
             ).rowcount
             if inserted != 1 or conn.execute(_q(sql.FAIL), (message, job_id, token)).rowcount != 1:
                 raise LeaseLost(f"job {job_id}: lease lost, another worker holds it now")
+
+    def record_tries(self, job_id: str, token: int, tries: Sequence[TryInCall]) -> None:
+        if not tries:
+            return
+        with self._write() as conn:
+            for item in tries:
+                params = (item.seconds_ago, item.error_class, item.message, job_id, token)
+                if conn.execute(_INSERT_TRY_IN_CALL, params).rowcount != 1:
+                    raise LeaseLost(f"job {job_id}: lease lost, another worker holds it now")
 
     def finish(self, completions: Sequence[Completion], appender: LogAppender) -> list[bool]:
         rows = [result_row(item) for item in completions]

@@ -71,7 +71,7 @@ def test_submit_twice_reports_the_done_job(capsys, keep) -> None:
 def test_jobs_show_counts_cancel_json_shapes(capsys, keep) -> None:
     jk(capsys, "run", str(BELL), "--keep", keep, "--label", "demo")
     [job] = jobs_in(keep, capsys)
-    assert set(job) >= {"id", "state", "backend", "shots", "label", "created_at"}
+    assert set(job) >= {"id", "state", "backend", "shots", "labels", "created_at"}
     code, out, _ = jk(capsys, "show", job["id"][:8], "--keep", keep, "--json")
     shown = json.loads(out)
     assert shown["envelope"]["payloadType"] == "application/vnd.in-toto+json"

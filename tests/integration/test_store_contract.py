@@ -31,7 +31,7 @@ def store(request: pytest.FixtureRequest, tmp_path) -> Iterator[Store]:
 def new_job(key: str | None = None, **fields) -> NewJob:
     defaults = dict(
         id=uuid.uuid4().hex, job_key=key or f"sha256:{uuid.uuid4().hex}", backend="sim",
-        shots=100, seed=None, repeat=0, label=None, spec={"circuit": "x"}, max_attempts=3,
+        shots=100, seed=None, repeat=0, spec={"circuit": "x"}, max_attempts=3,
     )  # fmt: skip
     defaults.update(fields)
     return NewJob(**defaults)
@@ -197,8 +197,8 @@ def test_log_and_checkpoints_grow_with_each_finishing_transaction(store: Store) 
 
 
 def test_spent_sums_costs_of_live_and_done_jobs(store: Store) -> None:
-    store.enqueue([new_job(cost=2.5, label="x"), new_job(cost=1.0)])
-    [(cancelled, _)] = store.enqueue([new_job(cost=100.0, label="x")])
+    store.enqueue([new_job(cost=2.5, labels=("x",)), new_job(cost=1.0)])
+    [(cancelled, _)] = store.enqueue([new_job(cost=100.0, labels=("x",))])
     store.request_cancel(cancelled.id)
     assert store.spent() == pytest.approx(3.5)
     assert store.spent("x") == pytest.approx(2.5)

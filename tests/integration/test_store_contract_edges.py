@@ -135,3 +135,31 @@ def test_sqlite_waits_on_the_busy_code_not_on_the_message(
             holder.close()
         the_store.enqueue([new_job()])  # the lock is gone: the write goes through
         assert len(the_store.list_jobs()) == 1
+
+
+def test_labels_are_a_set_and_a_deduplicated_submission_adds_its_own(store: Store) -> None:
+    first = new_job("sha256:lab", labels=("fig2",))
+    [(job, created)] = store.enqueue([first])
+    assert created and job.labels == ("fig2",)
+    # the same job again, under another label and the same one twice: one job, both labels
+    [(again, created)] = store.enqueue([new_job("sha256:lab", labels=("fig3", "fig3", "fig2"))])
+    assert not created and again.id == job.id and again.labels == ("fig2", "fig3")
+    [claim] = store.claim("w", limit=1, lease_seconds=60)
+    assert claim.job.labels == ("fig2", "fig3")
+    assert store.finish([completion(claim)], appender) == [True]
+    # after it is done, a third label still reaches it (a figure reuses an archived run)
+    [(done, created)] = store.enqueue([new_job("sha256:lab", labels=("fig4",))])
+    assert not created and done.state == "done" and done.labels == ("fig2", "fig3", "fig4")
+    [(other, _)] = store.enqueue([new_job(labels=("fig3",))])
+    assert store.get(job.id[:10]).labels == ("fig2", "fig3", "fig4")
+    assert [j.id for j in store.list_jobs(label="fig3")] == [job.id, other.id]
+    assert [j.id for j in store.list_jobs(label="fig4", state="done")] == [job.id]
+    assert store.list_jobs(label="nope") == []
+    assert [j.labels for j in store.get_many([other.id, job.id])] == [
+        ("fig3",), ("fig2", "fig3", "fig4"),
+    ]  # fmt: skip
+
+
+def test_a_new_job_without_labels_has_none(store: Store) -> None:
+    [(job, _)] = store.enqueue([new_job()])
+    assert job.labels == () and store.get(job.id).labels == ()

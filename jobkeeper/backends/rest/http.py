@@ -31,6 +31,7 @@ from tenacity import (
     wait_random_exponential,
 )
 
+from jobkeeper.backend import report_try
 from jobkeeper.backends.rest.wire import PointerError, parse_retry_after, redact, resolve_pointer
 from jobkeeper.exceptions import PermanentBackendError, TransientBackendError
 
@@ -225,13 +226,23 @@ def _wait(policy: InCallRetry) -> Callable[[RetryCallState], float]:
     return wait
 
 
+def _report(state: RetryCallState) -> None:
+    # Each try tenacity is about to retry becomes an attempt of the job; the last one, if
+    # it fails too, is re-raised and recorded by the worker as the call's own attempt.
+    error = state.outcome.exception() if state.outcome is not None else None
+    if error is not None:
+        report_try(error)
+
+
 def retrying(policy: InCallRetry) -> AsyncRetrying:
     """tenacity's loop for ``policy``: it retries only our TransientBackendError (whose
-    Retry-After is short enough), and re-raises the last one when it gives up."""
+    Retry-After is short enough), reports each try it retries (see
+    :func:`jobkeeper.backend.report_try`), and re-raises the last one when it gives up."""
     return AsyncRetrying(
         stop=stop_after_attempt(max(1, policy.attempts)),
         wait=_wait(policy),
         retry=retry_if_exception(_quick_retry(policy)),
+        before_sleep=_report,
         reraise=True,
     )
 

@@ -13,7 +13,7 @@ from jobkeeper.store.postgres.database import Conn
 def translate(statement: str, **extra: Any) -> str:
     """A shared query in PostgreSQL's dialect: the database clock for ``{now}``, the
     extra slots filled, ``%s`` placeholders for ``?``."""
-    text = statement.replace("{now}", sql.PG_NOW)
+    text = statement.replace("{now}", sql.PG_NOW).replace("{labels}", sql.PG_LABELS)
     if extra:
         text = text.format(**extra)
     return text.replace("%", "%%").replace("?", "%s")

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import json
 from collections.abc import Sequence
 from typing import Any
 
@@ -17,6 +16,9 @@ from jobkeeper.store import (
     JobRecord,
     LogAppender,
     NewJob,
+    TryInCall,
+    job_row,
+    labelled,
     result_row,
     sql,
 )
@@ -60,9 +62,9 @@ class PostgresStore(StoreReads):
 
     # -- plumbing -------------------------------------------------------------------------
 
-    def _read(self, statement: str, params: Sequence[Any] = ()) -> list[Any]:
+    def _read(self, statement: str, params: Sequence[Any] = (), **extra: str) -> list[Any]:
         # Single autocommit statements on a pooled connection: no transaction held open.
-        query = dialect(statement)
+        query = translate(statement, **extra).encode() if extra else dialect(statement)
 
         def work(conn: Conn) -> list[Any]:
             return conn.execute(query, params).fetchall()
@@ -84,11 +86,7 @@ class PostgresStore(StoreReads):
     def enqueue(self, jobs: Sequence[NewJob]) -> list[tuple[JobRecord, bool]]:
         if not jobs:
             return []
-        rows = [
-            (job.id, job.job_key, job.backend, job.shots, job.seed, job.repeat, job.label,
-             json.dumps(dict(job.spec), sort_keys=True), job.max_attempts, job.cost)
-            for job in jobs
-        ]  # fmt: skip
+        rows = [job_row(job) for job in jobs]
 
         def work(conn: Conn) -> list[tuple[JobRecord, bool]]:
             out: list[tuple[JobRecord, bool]] = []
@@ -100,9 +98,17 @@ class PostgresStore(StoreReads):
                     out.append((_record(row), True))
                     continue
                 out.append((self._existing_or_insert(conn, job), False))
+            labels = [
+                (r.id, label) for (r, _), job in zip(out, jobs, strict=True) for label in job.labels
+            ]
+            if labels:
+                with conn.cursor() as cur:
+                    cur.executemany(dialect(sql.ADD_LABEL), labels)
             if any(created for _, created in out):
                 conn.execute(dialect(sql.PG_NOTIFY), (WAKE_CHANNEL,))
-            return out
+            return [
+                (labelled(r, job.labels), made) for (r, made), job in zip(out, jobs, strict=True)
+            ]
 
         return self._db.run(work, write=True)
 
@@ -111,12 +117,7 @@ class PostgresStore(StoreReads):
         if existing is None:
             # The conflicting job left the keyed states between our insert and this read
             # (cancelled or failed meanwhile): the key is free again, so insert ours.
-            row = conn.execute(
-                dialect(sql.INSERT_JOB),
-                (job.id, job.job_key, job.backend, job.shots, job.seed, job.repeat,
-                 job.label, json.dumps(dict(job.spec), sort_keys=True), job.max_attempts,
-                 job.cost),
-            ).fetchone()  # fmt: skip
+            row = conn.execute(dialect(sql.INSERT_JOB), job_row(job)).fetchone()
             if row is not None:
                 return _record(row)
             existing = conn.execute(dialect(sql.SELECT_LIVE_BY_KEY), (job.job_key,)).fetchone()
@@ -217,6 +218,19 @@ class PostgresStore(StoreReads):
                 or conn.execute(dialect(sql.FAIL), (message, job_id, token)).rowcount != 1
             ):
                 raise _lost(job_id)
+
+        self._db.run(work, write=True)
+
+    def record_tries(self, job_id: str, token: int, tries: Sequence[TryInCall]) -> None:
+        if not tries:
+            return
+        rows = [(t.seconds_ago, t.error_class, t.message, job_id, token) for t in tries]
+
+        def work(conn: Conn) -> None:
+            # One at a time: each number follows the one inserted before it.
+            for row in rows:
+                if conn.execute(dialect(sql.INSERT_TRY_IN_CALL), row).rowcount != 1:
+                    raise _lost(job_id)
 
         self._db.run(work, write=True)
 
