@@ -68,7 +68,7 @@ PLANTS = [
     # a cycle between two packages of jobkeeper
     ("circuit/ir.py", "import jobkeeper.spec", "cycle"),  # spec imports circuit.ir
     # another package's private module
-    ("keeper.py", "import jobkeeper.store._sql", "private"),
+    ("keeper.py", "import jobkeeper.cli._render", "private"),
     # one adapter importing another
     ("backends/rest/results.py", "import jobkeeper.backends.sim.sampling", "independent"),
 ]
