@@ -1,4 +1,7 @@
-"""OpenQASM 2.0 → :class:`~jobkeeper.circuit.ir.Circuit` (arXiv:1707.03429).
+"""OpenQASM 2.0 → :class:`~jobkeeper.circuit.ir.Circuit` (arXiv:1707.03429), and the
+entry point for both languages: the version line decides (``OPENQASM 2.x;`` is read here;
+``OPENQASM 3``/``3.x`` or no version line goes to :mod:`jobkeeper.circuit.qasm3`),
+whatever the file is called.
 
 Recursive descent over the tokens of :mod:`jobkeeper.circuit.lexer`. User gates are
 inlined here, iteratively (an explicit stack, not recursion), down to standard gates,
@@ -21,6 +24,7 @@ from jobkeeper.circuit.expressions import ExpressionError, parse_expression
 from jobkeeper.circuit.gates import RESERVED, GateSpec, check_arity, parse_gate_definition
 from jobkeeper.circuit.ir import BARRIER, MEASURE, RESET, Circuit, Condition, Operation, Register
 from jobkeeper.circuit.lexer import EOF, ID, INT, REAL, STRING, Token, TokenStream, tokenize
+from jobkeeper.circuit.qasm3 import language_version, parse_qasm3
 from jobkeeper.circuit.sources import decode_source, read_source
 from jobkeeper.circuit.stdgates import ORIGINAL_GATES, STANDARD_GATES
 from jobkeeper.exceptions import CircuitError
@@ -38,9 +42,11 @@ _CX_SPEC = GateSpec("CX", (), ("c", "t"), None, standard=True)
 
 
 def parse_qasm(text: str, *, filename: str | None = None, base_dir: Path | None = None) -> Circuit:
-    """Parse an OpenQASM 2.0 program. ``filename`` names it in error messages;
-    ``base_dir`` is the folder other includes are resolved in (without it, only the
-    standard header may be included)."""
+    """Parse an OpenQASM program (2.0, or 3 by its version line). ``filename`` names it in
+    error messages; ``base_dir`` is the folder other OpenQASM 2.0 includes are resolved in
+    (without it, only the standard header may be included)."""
+    if language_version(text) == 3:
+        return parse_qasm3(text, filename=filename)
     program = _Program()
     _guarded(program, text, filename, base_dir)
     return program.circuit(
@@ -52,8 +58,11 @@ def load_qasm(path: str | os.PathLike[str]) -> Circuit:
     """Read and parse a file; ``source_hash`` is the hash of its bytes."""
     path = Path(path)
     data = read_source(path, str(path), file=str(path))
+    text = decode_source(data, str(path))
+    if language_version(text) == 3:
+        return parse_qasm3(text, filename=str(path), source_hash=sha256_tag(data))
     program = _Program()
-    _guarded(program, decode_source(data, str(path)), str(path), path.parent)
+    _guarded(program, text, str(path), path.parent)
     return program.circuit(source_hash=sha256_tag(data), source_name=str(path))
 
 

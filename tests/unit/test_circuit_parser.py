@@ -273,9 +273,11 @@ def test_errors_name_the_place_and_what_was_expected(
 @pytest.mark.parametrize(
     ("text", "line", "column", "words"),
     [
-        ("", 1, 1, "'OPENQASM 2.0;' as the first statement"),
-        ('include "qelib1.inc";', 1, 1, "'OPENQASM 2.0;' as the first statement"),
-        ("OPENQASM 3.0;", 1, 10, "only OpenQASM 2.0"),
+        # Without a version line a program is OpenQASM 3, where qelib1.inc is refused
+        # with a pointer to the 2.0 header.
+        ('include "qelib1.inc";', 1, 1, 'start the program with "OPENQASM 2.0;"'),
+        ("OPENQASM 2.1;", 1, 10, "only OpenQASM 2.0"),
+        ("OPENQASM 4.0;", 1, 10, "version '3' or '3.x'"),
         ("OPENQASM 2.0\nqreg q[1];", 1, 13, "expected ';'"),
         ("OPENQASM 2.0;\nqreg q[1];\nh q[0];", 3, 1, 'include "qelib1.inc" defines it'),
         ('OPENQASM 2.0;\ngate h a { U(0,0,0) a; }\ninclude "qelib1.inc";', 3, 9, "defines 'h'"),
