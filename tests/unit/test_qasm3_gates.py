@@ -16,7 +16,7 @@ import math
 import numpy as np
 import pytest
 
-from jobkeeper.backends._gates import gate_matrix
+from jobkeeper.backends.sim.gates import gate_matrix
 from jobkeeper.circuit import Circuit, parse_qasm
 from jobkeeper.circuit.qasm3.modifiers import MatrixSink
 from jobkeeper.circuit.qasm3.stdlib import STANDARD_LIBRARY
