@@ -13,22 +13,19 @@ from __future__ import annotations
 
 from collections.abc import Iterator
 from dataclasses import replace
-from typing import TYPE_CHECKING
 
 from jobkeeper.circuit.ir import BARRIER, Condition, Operation
 from jobkeeper.circuit.lexer import Token
 from jobkeeper.circuit.qasm3 import nodes as n
+from jobkeeper.circuit.qasm3.state import State
 from jobkeeper.circuit.qasm3.values import truthy
-
-if TYPE_CHECKING:
-    from jobkeeper.circuit.qasm3.interpret import Interpreter
 
 #: Conditions are expanded over every value of the register they read; past this many
 #: bits only ``register == value`` (without else) is accepted.
 MAX_ENUMERATED_BITS = 10
 
 
-def runtime_if(interp: Interpreter, stmt: n.If) -> None:
+def runtime_if(interp: State, stmt: n.If) -> None:
     names = {tok.text for tok in _names(stmt.condition) if is_register_name(interp, tok.text)}
     if len(names) != 1:
         interp.unsupported("a condition on more than one bit register", stmt.condition.tok)
@@ -74,7 +71,7 @@ def runtime_if(interp: Interpreter, stmt: n.If) -> None:
             interp.condition = outer
 
 
-def equality_value(interp: Interpreter, cond: n.Expr, name: str) -> int | None:
+def equality_value(interp: State, cond: n.Expr, name: str) -> int | None:
     """``v`` when ``cond`` is ``name == v`` (either side), else None."""
     if not (isinstance(cond, n.Chain) and len(cond.rest) == 1 and cond.rest[0][0].text == "=="):
         return None
@@ -86,11 +83,11 @@ def equality_value(interp: Interpreter, cond: n.Expr, name: str) -> int | None:
     return interp.evaluator.integer(interp.evaluate(right), right.tok)
 
 
-def is_register_name(interp: Interpreter, name: str) -> bool:
+def is_register_name(interp: State, name: str) -> bool:
     return name in interp.cregs and not any(name in scope for scope in interp.scopes)
 
 
-def emit(interp: Interpreter, ops: list[Operation]) -> None:
+def emit(interp: State, ops: list[Operation]) -> None:
     if interp.condition is None:
         interp.ops.extend(ops)
         return

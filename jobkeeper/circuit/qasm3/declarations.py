@@ -2,23 +2,17 @@
 
 from __future__ import annotations
 
-from typing import TYPE_CHECKING
-
 from jobkeeper.circuit.ir import Register
 from jobkeeper.circuit.qasm3 import nodes as n
+from jobkeeper.circuit.qasm3.state import State, Var
 from jobkeeper.circuit.qasm3.stdlib import STANDARD_LIBRARY
 from jobkeeper.circuit.qasm3.values import CONSTANTS, number
-
-if TYPE_CHECKING:
-    from jobkeeper.circuit.qasm3.interpret import Interpreter
-
-from jobkeeper.circuit.qasm3.interpret_vars import Var
 
 MAX_REGISTER_SIZE = 1 << 24
 INPUT_TYPES = frozenset({"float", "angle", "int", "uint", "bool"})
 
 
-def include(interp: Interpreter, stmt: n.Include) -> None:
+def include(interp: State, stmt: n.Include) -> None:
     if stmt.path == "stdgates.inc":
         interp.global_only("include", stmt.tok)
         for name, gate in STANDARD_LIBRARY.items():
@@ -35,7 +29,7 @@ def include(interp: Interpreter, stmt: n.Include) -> None:
     interp.unsupported(f'include "{stmt.path}" (only "stdgates.inc")', stmt.tok)
 
 
-def input_declaration(interp: Interpreter, stmt: n.InputDecl) -> None:
+def input_declaration(interp: State, stmt: n.InputDecl) -> None:
     interp.global_only("input", stmt.tok)
     name = stmt.name.text
     if stmt.type.name not in INPUT_TYPES:
@@ -49,7 +43,7 @@ def input_declaration(interp: Interpreter, stmt: n.InputDecl) -> None:
     interp.declare(stmt.name, Var(stmt.type.name, width, value, const=True, input=True))
 
 
-def register(interp: Interpreter, stmt: n.QubitDecl | n.BitDecl) -> None:
+def register(interp: State, stmt: n.QubitDecl | n.BitDecl) -> None:
     interp.global_only("qubit and bit declarations", stmt.tok)
     name = stmt.name
     size = 1 if stmt.size is None else interp.size(stmt.size)
@@ -74,7 +68,7 @@ def register(interp: Interpreter, stmt: n.QubitDecl | n.BitDecl) -> None:
     interp.num_clbits += size
 
 
-def define_gate(interp: Interpreter, stmt: n.GateDef) -> None:
+def define_gate(interp: State, stmt: n.GateDef) -> None:
     interp.global_only("gate definitions", stmt.tok)
     name = stmt.name
     if name.text in interp.gates or name.text in ("U", "gphase"):

@@ -27,14 +27,18 @@ from jobkeeper.circuit.qasm3.declarations import (
     input_declaration,
     register,
 )
-from jobkeeper.circuit.qasm3.interpret_vars import Var
 from jobkeeper.circuit.qasm3.modifiers import Expander, Gate
 from jobkeeper.circuit.qasm3.sinks import OperationSink
+from jobkeeper.circuit.qasm3.state import Var
 from jobkeeper.circuit.qasm3.stdlib import STANDARD_LIBRARY
 from jobkeeper.circuit.qasm3.values import CONSTANTS, Bits, Evaluator, Value, number, truthy, wrap
 from jobkeeper.exceptions import CircuitError
 
 MAX_WORK = 8_000_000
+#: Units charged per statement run and per loop iteration: running a statement costs
+#: several times what emitting one operation does, and refusing a runaway program must
+#: come in seconds.
+STEP_COST = 8
 
 
 class _Runtime(Exception):
@@ -88,7 +92,7 @@ class Interpreter:
 
     def run(self, body: Iterable[n.Statement]) -> None:
         for stmt in body:
-            self.charge(1)
+            self.charge(STEP_COST)
             self.statement(stmt)
 
     def size(self, expr: n.Expr) -> int:
@@ -243,7 +247,7 @@ class Interpreter:
             values = range(start, stop + (1 if step > 0 else -1), step)
         width = None if stmt.type.size is None else self.size(stmt.type.size)
         for value in values:
-            self.charge(1)
+            self.charge(STEP_COST)
             self.scopes.append({})
             try:
                 coerced = self.coerce(stmt.type.name, width, value, stmt.var)

@@ -28,10 +28,12 @@ from typing import NoReturn
 
 from jobkeeper.circuit.lexer import Token
 from jobkeeper.circuit.qasm3 import nodes as n
-from jobkeeper.circuit.qasm3.sinks import MCX, Controls, MatrixSink, Sink
+from jobkeeper.circuit.qasm3.sinks import MCX, NUMERIC_COST, Controls, MatrixSink, Sink
 from jobkeeper.circuit.qasm3.unitary import angles_of, principal_power
 
 MAX_CALL_DEPTH = 64
+#: Work units per gate-body statement expanded (see interpret.STEP_COST).
+STEP_COST = 8
 MAX_REPEAT = 1 << 20
 
 #: Standard-library names whose IR name differs (aliases the library defines).
@@ -197,6 +199,7 @@ class Expander:
                 self.fail(
                     "pow with a non-integer exponent is supported on single-qubit gates only", tok
                 )
+            self.charge(NUMERIC_COST)
             inner = MatrixSink(lambda message: self.fail(message, tok))
             self.apply(inner, rest, gate, params, (0,), (), False, at)
             matrix = principal_power(inner.matrix, k)
@@ -280,7 +283,7 @@ class Expander:
         where = dict(zip(gate.qubits, qubits, strict=True))
         body = reversed(gate.body) if inv else iter(gate.body)
         for stmt in body:
-            self.charge(1)
+            self.charge(STEP_COST)
             if isinstance(stmt, n.Barrier):
                 mapped = tuple(where[o.tok.text] for o in stmt.operands) or qubits
                 if not ctrls:

@@ -24,6 +24,9 @@ Controls = tuple[tuple[int, bool], ...]
 #: Multi-controlled X gates of the standard set, by number of controls.
 MCX = {1: "cx", 2: "ccx", 3: "c3x", 4: "c4x"}
 _X = u3_matrix(math.pi, 0.0, math.pi)
+#: Work units of one numerical step (a matrix root and its angles): tens of microseconds,
+#: a hundred times the cost of emitting an operation.
+NUMERIC_COST = 400
 
 
 class Sink:
@@ -93,6 +96,7 @@ class OperationSink(Sink):
         if len(controls) == 1:
             self.named("cu", angles_of(matrix), (controls[0], target))
             return
+        self.charge(NUMERIC_COST)
         root = principal_power(matrix, 0.5)
         last, rest = controls[-1], controls[:-1]
         self.named("cu", angles_of(root), (last, target))
