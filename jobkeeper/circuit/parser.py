@@ -24,7 +24,7 @@ from jobkeeper.circuit.expressions import ExpressionError, parse_expression
 from jobkeeper.circuit.gates import RESERVED, GateSpec, check_arity, parse_gate_definition
 from jobkeeper.circuit.ir import BARRIER, MEASURE, RESET, Circuit, Condition, Operation, Register
 from jobkeeper.circuit.lexer import EOF, ID, INT, REAL, STRING, Token, TokenStream, tokenize
-from jobkeeper.circuit.qasm3 import language_version, parse_qasm3
+from jobkeeper.circuit.qasm3 import Template, language_version, parse_qasm3
 from jobkeeper.circuit.sources import decode_source, read_source
 from jobkeeper.circuit.stdgates import ORIGINAL_GATES, STANDARD_GATES
 from jobkeeper.exceptions import CircuitError
@@ -64,6 +64,30 @@ def load_qasm(path: str | os.PathLike[str]) -> Circuit:
     program = _Program()
     _guarded(program, text, str(path), path.parent)
     return program.circuit(source_hash=sha256_tag(data), source_name=str(path))
+
+
+def parse_template(
+    text: str, *, filename: str | None = None, base_dir: Path | None = None
+) -> Template:
+    """A program as a template: OpenQASM 3 with its ``input`` parameters, or an OpenQASM
+    2.0 program (no inputs) read now."""
+    if language_version(text) == 3:
+        return Template(text, filename=filename)
+    return Template(
+        text, filename=filename, fixed=parse_qasm(text, filename=filename, base_dir=base_dir)
+    )
+
+
+def load_template(path: str | os.PathLike[str]) -> Template:
+    """Read a program file as a template; its ``source_hash`` is the hash of the bytes."""
+    path = Path(path)
+    data = read_source(path, str(path), file=str(path))
+    text = decode_source(data, str(path))
+    digest = sha256_tag(data)
+    if language_version(text) == 3:
+        return Template(text, filename=str(path), source_hash=digest)
+    fixed = parse_qasm(text, filename=str(path), base_dir=path.parent)
+    return Template(text, filename=str(path), source_hash=digest, fixed=fixed)
 
 
 def _guarded(program: _Program, text: str, file: str | None, base_dir: Path | None) -> None:

@@ -10,6 +10,7 @@ from __future__ import annotations
 import math
 import re
 from collections.abc import Mapping
+from dataclasses import replace
 from numbers import Real
 
 from jobkeeper.circuit.ir import Circuit
@@ -35,17 +36,32 @@ def language_version(text: str) -> int:
 
 
 class Template:
-    """A parsed OpenQASM 3 program and its inputs (name → declared type)."""
+    """A parsed OpenQASM 3 program and its inputs (name → declared type). A program
+    without inputs read elsewhere (OpenQASM 2.0) is a template too: pass its circuit as
+    ``fixed`` (:func:`jobkeeper.circuit.parser.parse_template` does)."""
 
-    def __init__(self, text: str, *, filename: str | None = None, source_hash: str | None = None):
+    def __init__(
+        self,
+        text: str,
+        *,
+        filename: str | None = None,
+        source_hash: str | None = None,
+        fixed: Circuit | None = None,
+    ):
         self.text = text
         self.filename = filename
         self.source_hash = source_hash or sha256_tag(text.encode("utf-8", "surrogatepass"))
+        self.fixed: Circuit | None = None
+        self.inputs: dict[str, str] = {}
+        self.program: tuple[n.Statement, ...] = ()
+        if fixed is not None:
+            self.fixed = replace(fixed, source_hash=self.source_hash)
+            return
         try:
             self.program = parse_program(text, filename)
         except RecursionError:
             raise CircuitError("program nested too deeply to parse here", file=filename) from None
-        self.inputs: dict[str, str] = {
+        self.inputs = {
             stmt.name.text: stmt.type.name for stmt in self.program if isinstance(stmt, n.InputDecl)
         }
 
@@ -66,6 +82,8 @@ class Template:
             raise CircuitError(
                 f"input(s) without a value: {', '.join(missing)}", file=self.filename
             )
+        if self.fixed is not None:
+            return self.fixed
         for name, value in values.items():
             if isinstance(value, bool) or not isinstance(value, Real) or not math.isfinite(value):
                 raise CircuitError(
