@@ -4,9 +4,10 @@ from __future__ import annotations
 
 import datetime as dt
 from collections.abc import Mapping
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
-from jobkeeper.store import JobRecord
+if TYPE_CHECKING:
+    from jobkeeper.store import JobRecord
 
 BAR_WIDTH = 40
 SMALL_SHOTS = 100
