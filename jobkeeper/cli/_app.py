@@ -4,7 +4,6 @@ command line (no logic: that lives in the library)."""
 from __future__ import annotations
 
 import json
-import sys
 from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING, Annotated, Any
@@ -26,7 +25,7 @@ app = typer.Typer(
 # (`jobkeeper jobs --keep K`). The environment variables belong to the root options only:
 # were they on the command's options too, JOBKEEPER_KEEP would silently beat a --keep
 # given before the command. Precedence: after the command, before it, environment.
-KEEP_HELP = "Keep directory (or JOBKEEPER_KEEP) [default: ./.jobkeeper]."
+KEEP_HELP = "Keep directory (or JOBKEEPER_KEEP; default ./.jobkeeper)."
 STORE_HELP = "Archive location: a postgresql:// URL (or JOBKEEPER_STORE)."
 KeepOpt = Annotated[Path | None, typer.Option("--keep", help=KEEP_HELP, show_default=False)]
 StoreOpt = Annotated[str | None, typer.Option("--store", help=STORE_HELP, show_default=False)]
@@ -43,9 +42,17 @@ class RootOptions:
 ROOT = RootOptions()
 JsonOpt = Annotated[bool, typer.Option("--json", help="Print JSON for scripts.")]
 BackendOpt = Annotated[
-    str | None, typer.Option("--backend", "-b", help="Backend name [default: statevector].")
+    str | None,
+    typer.Option(
+        "--backend",
+        "-b",
+        help="Backend name (default: defaults.backend of the keep's config.toml).",
+    ),
 ]
-ShotsOpt = Annotated[int | None, typer.Option("--shots", help="Shots [default: 1024].")]
+ShotsOpt = Annotated[
+    int | None,
+    typer.Option("--shots", help="Shots (default: defaults.shots of the keep's config.toml)."),
+]
 SeedOpt = Annotated[int | None, typer.Option("--seed", help="Seed for sampling.")]
 LabelOpt = Annotated[str | None, typer.Option("--label", help="A label to group jobs by.")]
 RepeatOpt = Annotated[
@@ -71,14 +78,29 @@ def echo_json(value: Any) -> None:
 
 
 def progress_wait(keeper: Keeper, ids: list[str], timeout: float | None) -> None:
-    if not sys.stderr.isatty():
-        keeper.wait(ids, timeout=timeout)
-        return
-    with typer.progressbar(length=len(ids), label="waiting", file=sys.stderr) as bar:
-        seen = [0]
+    """``keeper.wait`` with a bar on a terminal; on a timeout, the TimeoutError says in
+    which state the jobs still are (a queued job waits for a worker, not for a device)."""
+    from jobkeeper.cli._progress import counting
+
+    with counting("waiting", len(ids)) as bar:
 
         def progress(ended: int, total: int) -> None:
-            bar.update(ended - seen[0])
-            seen[0] = ended
+            bar.advance_to(ended)
 
-        keeper.wait(ids, timeout=timeout, progress=progress)
+        try:
+            keeper.wait(ids, timeout=timeout, progress=progress)
+        except TimeoutError as exc:
+            raise TimeoutError(_not_ended(keeper, ids, timeout)) from exc
+
+
+def _not_ended(keeper: Keeper, ids: list[str], timeout: float | None) -> str:
+    from jobkeeper.queue import JobState
+
+    states: dict[JobState, int] = {}
+    for job_id in ids:
+        state = JobState(keeper.job(job_id).state)
+        if not state.terminal:
+            states[state] = states.get(state, 0) + 1
+    parts = [f"{n} job{'s' if n > 1 else ''} still {state}" for state, n in states.items()]
+    hint = " (no worker has claimed it yet: is one running?)" if JobState.QUEUED in states else ""
+    return f"gave up after {timeout:g} s: " + ", ".join(parts) + hint

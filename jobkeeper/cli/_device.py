@@ -33,7 +33,7 @@ def loopback_device(
     seed: Annotated[int, typer.Option("--seed", help="Seed of faults and device choices.")] = 0,
     faults: Annotated[
         str | None,
-        typer.Option("--faults", help="Fault kinds to inject, comma-separated [default: all]."),
+        typer.Option("--faults", help="Fault kinds to inject, comma-separated (default: all)."),
     ] = None,
     slow_delay: Annotated[
         float, typer.Option("--slow-delay", help="Seconds a 'slow' fault stalls.")

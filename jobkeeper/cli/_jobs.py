@@ -2,11 +2,9 @@
 
 from __future__ import annotations
 
-import csv
-import io
 import json
 from pathlib import Path
-from typing import Annotated, Any
+from typing import TYPE_CHECKING, Annotated, Any
 
 import typer
 
@@ -25,9 +23,12 @@ from jobkeeper.cli._app import (
     open_keeper,
     progress_wait,
 )
+from jobkeeper.cli._progress import activity
 from jobkeeper.cli._render import bar_chart, job_json, shots_warning, table, when
 from jobkeeper.exceptions import ConfigError, JobkeeperError
-from jobkeeper.keeper import Job
+
+if TYPE_CHECKING:
+    from jobkeeper.keeper import Job
 
 
 @app.command()
@@ -69,7 +70,7 @@ def backends(keep: KeepOpt = None, store: StoreOpt = None, json_out: JsonOpt = F
 
 @app.command()
 def check(
-    file: Annotated[Path, typer.Argument(help="OpenQASM 2.0 file.")],
+    file: Annotated[Path, typer.Argument(metavar="FILE", help="OpenQASM 2.0 file.")],
     backend: BackendOpt = None,
     shots: ShotsOpt = None,
     keep: KeepOpt = None,
@@ -99,7 +100,7 @@ def _submit_options(
 
 @app.command()
 def submit(
-    files: Annotated[list[Path], typer.Argument(help="OpenQASM 2.0 files.")],
+    files: Annotated[list[Path], typer.Argument(metavar="FILE", help="OpenQASM 2.0 files.")],
     backend: BackendOpt = None,
     shots: ShotsOpt = None,
     seed: SeedOpt = None,
@@ -157,7 +158,7 @@ def _result_json(job: Job, deduplicated: bool) -> dict[str, Any]:
 
 @app.command()
 def run(
-    file: Annotated[Path, typer.Argument(help="OpenQASM 2.0 file.")],
+    file: Annotated[Path, typer.Argument(metavar="FILE", help="OpenQASM 2.0 file.")],
     backend: BackendOpt = None,
     shots: ShotsOpt = None,
     seed: SeedOpt = None,
@@ -172,7 +173,8 @@ def run(
     """Submit one job, run it here and now, and print its result."""
     keeper = open_keeper(keep, store)
     opts = _submit_options(backend, shots, seed, label, repeat, exact, over_budget)
-    item = keeper.run_many([file], **opts)[0]
+    with activity(f"running {file.name} on {backend or 'the default backend'}"):
+        item = keeper.run_many([file], **opts)[0]
     job = item.job
     if json_out:
         echo_json(_result_json(job, item.deduplicated))
@@ -298,7 +300,7 @@ def show(
 
 @app.command()
 def wait(
-    job_ids: Annotated[list[str], typer.Argument(metavar="JOB...", help="Job ids or prefixes.")],
+    job_ids: Annotated[list[str], typer.Argument(metavar="JOB", help="Job ids or prefixes.")],
     timeout: Annotated[
         float | None, typer.Option("--timeout", help="Give up after seconds.")
     ] = None,
@@ -330,10 +332,13 @@ def counts(
     fmt: Annotated[str, typer.Option("--format", help="json or csv.")] = "json",
     keep: KeepOpt = None,
     store: StoreOpt = None,
+    json_out: JsonOpt = False,
 ) -> None:
-    """Print a done job's counts (or exact probabilities)."""
+    """Print a done job's counts (or exact probabilities): JSON unless --format csv."""
     if fmt not in ("json", "csv"):
         raise ConfigError(f"--format must be json or csv, not {fmt!r}")
+    if json_out and fmt != "json":
+        raise ConfigError("--json and --format csv exclude each other")
     keeper = open_keeper(keep, store, create=False)
     job = keeper.job(job_id)
     result = job.result
@@ -343,6 +348,9 @@ def counts(
     if fmt == "json":
         typer.echo(json.dumps(values, sort_keys=True))
         return
+    import csv  # only this format needs it
+    import io
+
     buffer = io.StringIO()
     writer = csv.writer(buffer, lineterminator="\n")
     writer.writerow(["outcome", "probability" if result.probabilities else "count"])

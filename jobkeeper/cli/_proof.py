@@ -18,6 +18,7 @@ from jobkeeper.cli._app import (
     echo_json,
     open_keeper,
 )
+from jobkeeper.cli._progress import activity
 from jobkeeper.exceptions import ConfigError
 
 
@@ -73,7 +74,7 @@ def _print_report(report: Any, json_out: bool, what: str) -> None:
 @app.command()
 def verify(
     targets: Annotated[
-        list[str] | None, typer.Argument(metavar="[JOB...|BUNDLE]", help="Jobs, or a bundle file.")
+        list[str] | None, typer.Argument(metavar="JOB|BUNDLE", help="Jobs, or a bundle file.")
     ] = None,
     all_jobs: Annotated[bool, typer.Option("--all", help="Every done job in the keep.")] = False,
     key: Annotated[
@@ -89,7 +90,8 @@ def verify(
 
     targets = targets or []
     if len(targets) == 1 and Path(targets[0]).is_file():
-        report = verify_bundle_file(Path(targets[0]), trusted=key)
+        with activity(f"verifying {targets[0]}"):
+            report = verify_bundle_file(Path(targets[0]), trusted=key)
         _print_report(report, json_out, "bundle entries")
         return
     if not targets and not all_jobs:
@@ -97,13 +99,15 @@ def verify(
     keeper = open_keeper(keep, store, create=False)
     ids = None if all_jobs else [keeper.job(t).id for t in targets]
     what = "log entries (jobs and comparisons)" if all_jobs else "jobs"
-    _print_report(verify_jobs(keeper, ids, trusted=key), json_out, what)
+    with activity(f"verifying {what}"):
+        report = verify_jobs(keeper, ids, trusted=key)
+    _print_report(report, json_out, what)
 
 
 @app.command()
 def bundle(
     job_ids: Annotated[
-        list[str] | None, typer.Argument(metavar="[JOB...]", help="Jobs to export.")
+        list[str] | None, typer.Argument(metavar="JOB", help="Jobs to export.")
     ] = None,
     label: LabelOpt = None,
     output: Annotated[
@@ -124,7 +128,8 @@ def bundle(
         ids += [j.id for j in keeper.jobs(label=label, state="done")]
     if not ids:
         raise ConfigError(f"no done job with label {label!r}")
-    count = export_bundle(keeper, sorted(set(ids)), output)
+    with activity(f"writing {output}"):
+        count = export_bundle(keeper, sorted(set(ids)), output)
     fp = keeper.keyring.active_record().fingerprint
     if json_out:
         echo_json({"bundle": str(output), "jobs": count, "fingerprint": fp})
@@ -153,7 +158,7 @@ def rerun(
     job_id: Annotated[str, typer.Argument(metavar="JOB", help="The job to run again.")],
     backend: BackendOpt = None,
     seed: Annotated[
-        int | None, typer.Option("--seed", help="Another seed [default: the one used].")
+        int | None, typer.Option("--seed", help="Another seed (default: the one used).")
     ] = None,
     alpha: AlphaOpt = 0.01,
     keep: KeepOpt = None,
@@ -164,14 +169,15 @@ def rerun(
     from jobkeeper.audit.judging import rerun as do_rerun
 
     keeper = open_keeper(keep, store, create=False)
-    _print_judgement(do_rerun(keeper, keeper.job(job_id), backend=backend, seed=seed,
-                              alpha=alpha), json_out)  # fmt: skip
+    with activity("running again and comparing"):
+        judgement = do_rerun(keeper, keeper.job(job_id), backend=backend, seed=seed, alpha=alpha)
+    _print_judgement(judgement, json_out)
 
 
 @app.command()
 def compare(
     job_a: Annotated[str, typer.Argument(metavar="A", help="A job.")],
-    job_b: Annotated[str | None, typer.Argument(metavar="[B]", help="Another job.")] = None,
+    job_b: Annotated[str | None, typer.Argument(metavar="B", help="Another job.")] = None,
     ideal: Annotated[
         bool, typer.Option("--ideal", help="Compare A with its circuit's exact distribution.")
     ] = False,
@@ -188,8 +194,10 @@ def compare(
     keeper = open_keeper(keep, store, create=False)
     a = keeper.job(job_a)
     if ideal:
-        judgement = compare_ideal(keeper, a, alpha=alpha)
+        with activity("computing the ideal distribution and comparing"):
+            judgement = compare_ideal(keeper, a, alpha=alpha)
     else:
         assert job_b is not None
-        judgement = compare_jobs(keeper, a, keeper.job(job_b), alpha=alpha)
+        with activity("comparing"):
+            judgement = compare_jobs(keeper, a, keeper.job(job_b), alpha=alpha)
     _print_judgement(judgement, json_out)
