@@ -25,7 +25,7 @@ from jobkeeper.cli._app import (
 )
 from jobkeeper.cli._progress import activity
 from jobkeeper.cli._render import bar_chart, job_json, shots_warning, table, when
-from jobkeeper.exceptions import ConfigError, JobkeeperError
+from jobkeeper.exceptions import ConfigError, JobkeeperError, TransientBackendError
 
 if TYPE_CHECKING:
     from jobkeeper.keeper import Job
@@ -181,7 +181,16 @@ def run(
     else:
         _print_result(job, item.deduplicated)
     if job.state != "done":
-        raise typer.Exit(1)
+        raise typer.Exit(_exit_code_of_failure(job))
+
+
+def _exit_code_of_failure(job: Job) -> int:
+    """3 when the retry budget ran out on transient faults (the device could not be
+    reached or kept failing transiently: DESIGN §4's 'backend could not be reached'),
+    1 for any other failure."""
+    attempts = job.attempts if job.state == "failed" else []
+    unreachable = bool(attempts) and attempts[-1].error_class == TransientBackendError.__name__
+    return 3 if unreachable else 1
 
 
 def _print_result(job: Job, deduplicated: bool) -> None:

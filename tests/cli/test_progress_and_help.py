@@ -128,3 +128,28 @@ def test_every_read_command_has_json() -> None:
         if name in read:
             assert command.callback is not None
             assert "json_out" in command.callback.__code__.co_varnames, name
+
+
+def test_run_against_an_unreachable_device_exits_3_after_the_retry_budget(
+    capsys: pytest.CaptureFixture[str], tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    import socket
+
+    keep = tmp_path / "k"
+    assert main(["init", "--keep", str(keep)]) == 0
+    # A port bound on 127.0.0.1 but not listening: every connection is refused.
+    with socket.socket() as closed:
+        closed.bind(("127.0.0.1", 0))
+        port = closed.getsockname()[1]
+        config = (keep / "config.toml").read_text()
+        config = config.replace("max_attempts = 10", "max_attempts = 2")
+        (keep / "config.toml").write_text(
+            config + "\n[retry]\nbase = 0.05\ncap = 0.1\n\n[backends.dev]\nadapter = 'rest'\n"
+            f"profile = 'loopback'\nurl = 'http://127.0.0.1:{port}'\ntoken_env = 'JK_TEST_TOKEN'\n"
+        )
+        monkeypatch.setenv("JK_TEST_TOKEN", "not-a-secret")
+        capsys.readouterr()
+        code = main(["run", BELL, "--keep", str(keep), "-b", "dev"])
+    err = capsys.readouterr().err
+    assert code == 3, err
+    assert "failed" in err and len(err.splitlines()) == 1
