@@ -19,12 +19,8 @@ import uuid
 from collections.abc import Callable, Coroutine, Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any, TypeVar
+from typing import TYPE_CHECKING, Any, TypeAlias, TypeVar
 
-from jobkeeper.audit.sealing import Sealer
-from jobkeeper.backend import Backend, BackendInfo
-from jobkeeper.backends import DEFAULT_BACKENDS, create_backend
-from jobkeeper.circuit import Circuit, canonical_text, load_qasm, parse_qasm
 from jobkeeper.config import (
     ARCHIVE_NAME,
     CONFIG_NAME,
@@ -41,11 +37,8 @@ from jobkeeper.exceptions import (
     JobkeeperError,
     StoreUnavailable,
 )
-from jobkeeper.hashing import sha256_tag
 from jobkeeper.provenance.keys import KeyRing
-from jobkeeper.provenance.manifest import git_code_version
 from jobkeeper.queue import DEFAULT_LEASE, TERMINAL_STATES, LeasePolicy, RetryPolicy
-from jobkeeper.spec import JobSpec, job_key
 from jobkeeper.store import (
     Attempt,
     JobRecord,
@@ -55,10 +48,17 @@ from jobkeeper.store import (
     StoredResult,
     open_store,
 )
-from jobkeeper.worker import Worker, WorkerStats
+
+# Signing, simulating and parsing load numpy, cryptography and the backends: imported
+# where they are used, so that opening a keep to read it (`jobkeeper jobs`) stays quick.
+if TYPE_CHECKING:
+    from jobkeeper.audit.sealing import Sealer
+    from jobkeeper.backend import Backend, BackendInfo
+    from jobkeeper.circuit import Circuit
+    from jobkeeper.worker import Worker, WorkerStats
 
 T = TypeVar("T")
-CircuitInput = str | os.PathLike[str] | Circuit
+CircuitInput: TypeAlias = "str | os.PathLike[str] | Circuit"
 
 
 def _config_text(store: str | None) -> str:
@@ -237,6 +237,8 @@ class Keeper:
     # -- backends -------------------------------------------------------------------------
 
     def backend_configs(self) -> dict[str, dict[str, Any]]:
+        from jobkeeper.backends import DEFAULT_BACKENDS
+
         configs = {name: dict(cfg) for name, cfg in DEFAULT_BACKENDS.items()}
         configs.update({name: dict(cfg) for name, cfg in self.config.backends.items()})
         for cfg in configs.values():
@@ -255,6 +257,8 @@ class Keeper:
             if name not in configs:
                 known = ", ".join(sorted(configs))
                 raise ConfigError(f"unknown backend {name!r}; known backends: {known}")
+            from jobkeeper.backends import create_backend
+
             self._backends[name] = create_backend(name, configs[name])
         return self._backends[name]
 
@@ -265,6 +269,8 @@ class Keeper:
 
     @staticmethod
     def load_circuit(circuit: CircuitInput) -> Circuit:
+        from jobkeeper.circuit import Circuit, load_qasm, parse_qasm
+
         if isinstance(circuit, Circuit):
             return circuit
         if isinstance(circuit, os.PathLike) or (
@@ -294,6 +300,11 @@ class Keeper:
     ) -> list[Submitted]:
         """Queue jobs in one transaction. A job whose key is already done or queued is not
         queued again: the existing job comes back with ``deduplicated=True``."""
+        from jobkeeper.circuit import canonical_text
+        from jobkeeper.hashing import sha256_tag
+        from jobkeeper.provenance.manifest import git_code_version
+        from jobkeeper.spec import JobSpec, job_key
+
         name = backend or self.config.defaults.backend
         the_backend = self.backend(name)
         info = the_backend.info
@@ -365,12 +376,16 @@ class Keeper:
     # -- running --------------------------------------------------------------------------
 
     def sealer(self) -> Sealer:
+        from jobkeeper.audit.sealing import Sealer
+
         origin = self.store.get_meta("origin") or "jobkeeper"
         return Sealer(self.keyring.load_active(), origin=origin)
 
     def worker(self, **options: Any) -> Worker:
         """A worker draining this keep; options as for :class:`~jobkeeper.worker.Worker`
         (retry and poll policies default to the keep's config.toml)."""
+        from jobkeeper.worker import Worker
+
         options.setdefault("retry", self.config.retry)
         options.setdefault("poll", self.config.poll)
         return Worker(
