@@ -40,6 +40,12 @@ def _densitymatrix() -> BackendFactory:
     return from_config
 
 
+def _trajectories() -> BackendFactory:
+    from jobkeeper.backends.sim.trajectories import from_config
+
+    return from_config
+
+
 def _rest() -> BackendFactory:
     from jobkeeper.backends.rest.adapter import from_config
 
@@ -51,6 +57,7 @@ def _rest() -> BackendFactory:
 BUILTIN_ADAPTERS: dict[str, Callable[[], BackendFactory]] = {
     "statevector": _statevector,
     "densitymatrix": _densitymatrix,
+    "trajectories": _trajectories,
     "rest": _rest,
 }
 

@@ -82,10 +82,15 @@ def primitives(name: str, params: tuple[float, ...], qubits: tuple[int, ...]) ->
 
 
 def gate_terms(
-    n: int, qubits: tuple[int, ...], matrix: Matrix | None, noise: NoiseModel
+    n: int,
+    qubits: tuple[int, ...],
+    matrix: Matrix | None,
+    noise: NoiseModel,
+    duration: float | None = None,
 ) -> list[Term]:
     """The superoperator terms of one gate (``matrix`` None: the identity) on ``qubits``
-    of an n-qubit register, followed by its noise, in the order they act."""
+    of an n-qubit register, followed by its noise, in the order they act; relaxation
+    over ``duration`` seconds (default: the gate time of its arity)."""
     rows = tuple(n + q for q in qubits)
     terms: list[Term] = []
     if matrix is not None:
@@ -98,7 +103,8 @@ def gate_terms(
     if p > 0:
         terms.append((rows + qubits, noise_channels.depolarizing(p, arity)))
     if noise.relaxation:
-        duration = noise.gate_time(arity)
+        if duration is None:
+            duration = noise.gate_time(arity)
         for q in qubits:
             gamma, flip = noise.decay(q, duration)
             if gamma > 0 or flip > 0:
@@ -117,7 +123,20 @@ def operation_terms(n: int, op: Operation, noise: NoiseModel, counts: list[int])
         return terms
     counts[min(len(op.qubits), 3) - 1] += 1
     identity = op.name in IDENTITY_GATES
-    return gate_terms(n, op.qubits, None if identity else gate_matrix(op.name, op.params), noise)
+    matrix = None if identity else gate_matrix(op.name, op.params)
+    duration = noise.gate_time("id") if identity else None
+    return gate_terms(n, op.qubits, matrix, noise, duration)
+
+
+def readout_terms(n: int, qubit: int, noise: NoiseModel) -> list[Term]:
+    """Relaxation of ``qubit`` over the readout time (nothing without one)."""
+    duration = noise.gate_time("readout")
+    if not noise.relaxation or duration <= 0:
+        return []
+    gamma, flip = noise.decay(qubit, duration)
+    if gamma <= 0 and flip <= 0:
+        return []
+    return [((n + qubit, qubit), noise_channels.relaxation(gamma, flip))]
 
 
 def compile_density(circuit: Circuit, noise: NoiseModel, max_width: int) -> DensityProgram:
@@ -141,12 +160,19 @@ def compile_density(circuit: Circuit, noise: NoiseModel, max_width: int) -> Dens
             pending.clear()
 
     for op in plan.body:
-        if op.name == MEASURE:
+        if op.name in (MEASURE, RESET):
+            decay = readout_terms(n, op.qubits[0], noise)
+            if decay:
+                # The qubit relaxes while it is read, under the measurement's condition.
+                if op.condition != pending_condition[0]:
+                    flush()
+                    pending_condition[0] = op.condition
+                pending += decay
             flush()
-            steps.append(Measure(op.qubits[0], op.clbits[0], op.condition))
-        elif op.name == RESET:
-            flush()
-            steps.append(Reset(op.qubits[0], op.condition))
+            if op.name == MEASURE:
+                steps.append(Measure(op.qubits[0], op.clbits[0], op.condition))
+            else:
+                steps.append(Reset(op.qubits[0], op.condition))
         else:
             # A run of gates under the same condition (or none) is one step: ``if`` gates
             # come in runs (a correction is several gates), and one step fuses them.
@@ -159,6 +185,12 @@ def compile_density(circuit: Circuit, noise: NoiseModel, max_width: int) -> Dens
                     pending.append((op.qubits, gate_matrix(op.name, op.params)))
             else:
                 pending += operation_terms(n, op, noise, counts)
+    if plan.final and noise.relaxation and noise.gate_time("readout") > 0:
+        if pending_condition[0] is not None:
+            flush()
+            pending_condition[0] = None
+        for qubit, _ in sorted(plan.final):
+            pending += readout_terms(n, qubit, noise)
     flush()
     return DensityProgram(
         n, tuple(steps), plan.final, plan.measures, (counts[0], counts[1], counts[2])

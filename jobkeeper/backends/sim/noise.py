@@ -21,7 +21,11 @@ The model (every figure per qubit where a list is given, qubit q being entry q):
   model has no schedule that would say when a qubit idles), amplitude damping with
   γ = 1 − exp(−t/T1) (Nielsen & Chuang §8.3.5) and pure dephasing at the rate
   1/Tφ = 1/T2 − 1/(2·T1), so that coherences decay by exp(−t/T2) in all. No ``t1``
-  means no damping; no ``t2`` means no pure dephasing (T2 = 2·T1).
+  means no damping; no ``t2`` means no pure dephasing (T2 = 2·T1). An ``id`` gate lasts
+  ``gate_time_id`` (default ``gate_time_1q``). A measurement or reset lasts
+  ``gate_time_readout`` (default 0): the measured qubit relaxes for that long before
+  its outcome is taken (for a final measurement: at the end of the circuit, which is
+  the same, since a finally measured qubit takes no later gate).
 
 After a gate the order is: the gate, its depolarizing error, its relaxation.
 
@@ -58,6 +62,8 @@ NOISE_KEYS = (
     "t2",
     "gate_time_1q",
     "gate_time_2q",
+    "gate_time_id",
+    "gate_time_readout",
 )
 
 
@@ -112,6 +118,8 @@ class NoiseTable(BaseModel):
     t2: Numbers | None = None
     gate_time_1q: Number | None = None
     gate_time_2q: Number | None = None
+    gate_time_id: Number | None = None
+    gate_time_readout: Number | None = None
 
     @model_validator(mode="after")
     def _check(self) -> NoiseTable:
@@ -126,7 +134,7 @@ class NoiseTable(BaseModel):
                 for where, v in _entries(value):
                     if not v > 0:
                         problems.append(f"{key}{where} = {v} must be a positive time in seconds")
-        for key in ("gate_time_1q", "gate_time_2q"):
+        for key in ("gate_time_1q", "gate_time_2q", "gate_time_id", "gate_time_readout"):
             value = getattr(self, key)
             if value is not None and not (value >= 0 and math.isfinite(value)):
                 problems.append(f"{key} = {value} must be a finite time ≥ 0 in seconds")
@@ -174,6 +182,8 @@ class NoiseModel:
     t2: PerQubit | None = None
     gate_time_1q: float | None = None
     gate_time_2q: float | None = None
+    gate_time_id: float | None = None
+    gate_time_readout: float | None = None
 
     def __post_init__(self) -> None:
         table = {k: v for k, v in asdict(self).items() if v is not None}
@@ -205,8 +215,13 @@ class NoiseModel:
         # Beyond the list, the worst listed qubit: see ``at``.
         return at(self.readout_error, qubit, max)
 
-    def gate_time(self, arity: int) -> float:
-        """Seconds a gate of ``arity`` (1 or 2) takes (0 when not given)."""
+    def gate_time(self, arity: int | str) -> float:
+        """Seconds a gate of ``arity`` (1 or 2), an ``"id"`` gate (default: a one-qubit
+        gate's time) or a ``"readout"`` (default 0) takes (0 when not given)."""
+        if arity == "id":
+            return (self.gate_time_1q if self.gate_time_id is None else self.gate_time_id) or 0.0
+        if arity == "readout":
+            return self.gate_time_readout or 0.0
         return (self.gate_time_1q if arity == 1 else self.gate_time_2q) or 0.0
 
     def decay(self, qubit: int, duration: float) -> tuple[float, float]:
@@ -253,7 +268,7 @@ def noise_model_from_calibration(snapshot: Mapping[str, Any]) -> NoiseModel:
     ``depolarizing_2q`` (probability of an error per operation), ``readout_error`` (one
     probability, or a list with one per qubit), ``t1`` and ``t2`` (seconds, one or per
     qubit; T2 ≤ 2·T1), ``gate_time_1q`` and ``gate_time_2q`` (seconds; required with
-    t1/t2). ``NoiseModel.to_json()`` gives a snapshot back, so a model round-trips.
+    t1/t2), ``gate_time_id`` and ``gate_time_readout`` (seconds; optional). ``NoiseModel.to_json()`` gives a snapshot back, so a model round-trips.
     Raises ConfigError naming every bad figure.
     """
     table = validate_noise_table(snapshot, "calibration snapshot")
@@ -265,6 +280,8 @@ def noise_model_from_calibration(snapshot: Mapping[str, Any]) -> NoiseModel:
         t2=table.t2,
         gate_time_1q=table.gate_time_1q,
         gate_time_2q=table.gate_time_2q,
+        gate_time_id=table.gate_time_id,
+        gate_time_readout=table.gate_time_readout,
     )
 
 
@@ -340,15 +357,16 @@ def log10_success_probability(circuit: Circuit, noise: NoiseModel) -> float:
     :func:`decomposition`), each measurement and reset log10(1 − e) of its qubit,
     barriers nothing. Conditional operations count as if they run (an upper bound on the
     work). With t1/t2, each gate adds per qubit it acts on the log10 of the relaxation
-    channel's process fidelity over the gate time, (1 + 2·exp(−t/T2) + exp(−t/T1)) / 4
+    channel's process fidelity over the gate time (a measurement or reset: over the
+    readout time, on its qubit), (1 + 2·exp(−t/T2) + exp(−t/T1)) / 4
     (no T1: exp(−t/T1) = 1; no T2: T2 = 2·T1): for a Pauli channel that fidelity is
     exactly the probability of no error (for the depolarizing terms it is 1 − p), and for
     relaxation it is that probability of the channel's Pauli-twirled form.
     """
     keep = (_log10_keep(noise.depolarizing_1q), _log10_keep(noise.depolarizing_2q))
-    fidelity: dict[tuple[int, int], float] = {}
+    fidelity: dict[tuple[int, int | str], float] = {}
 
-    def relax(qubit: int, arity: int) -> float:
+    def relax(qubit: int, arity: int | str) -> float:
         key = (qubit, arity)
         if key not in fidelity:
             gamma, flip = noise.decay(qubit, noise.gate_time(arity))
@@ -363,12 +381,15 @@ def log10_success_probability(circuit: Circuit, noise: NoiseModel) -> float:
             continue
         if op.name in (MEASURE, RESET):
             total += _log10_keep(noise.readout(op.qubits[0]))
+            if noise.relaxation:
+                total += relax(op.qubits[0], "readout")
             continue
         arity = len(op.qubits)
         if arity <= 2:
             total += keep[arity - 1]
             if noise.relaxation:
-                total += sum(relax(q, arity) for q in op.qubits)
+                kind: int | str = "id" if op.name in ("id", "u0") else arity
+                total += sum(relax(q, kind) for q in op.qubits)
             continue
         for positions in decomposition(op.name, arity):
             qubits = [op.qubits[i] for i in positions]
