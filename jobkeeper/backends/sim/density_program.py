@@ -123,9 +123,9 @@ def operation_terms(n: int, op: Operation, noise: NoiseModel, counts: list[int])
         return terms
     counts[min(len(op.qubits), 3) - 1] += 1
     identity = op.name in IDENTITY_GATES
-    matrix = None if identity else gate_matrix(op.name, op.params)
+    unitary = None if identity else gate_matrix(op.name, op.params)
     duration = noise.gate_time("id") if identity else None
-    return gate_terms(n, op.qubits, matrix, noise, duration)
+    return gate_terms(n, op.qubits, unitary, noise, duration)
 
 
 def readout_terms(n: int, qubit: int, noise: NoiseModel) -> list[Term]:

@@ -10,6 +10,8 @@ Configuration (``[backends.NAME]`` with ``adapter = "densitymatrix"``)::
     t2 = 8e-5                        # optional, seconds (or per qubit), ≤ 2·t1
     gate_time_1q = 2e-8              # seconds, required with t1/t2
     gate_time_2q = 2e-7
+    gate_time_id = 2e-8              # optional (default gate_time_1q)
+    gate_time_readout = 1e-6         # optional: the measured qubit relaxes this long
     max_qubits = 12                  # default 12 (at most 16): ρ of 12 qubits is 256 MiB
     pricing = { per_task = 0.0, per_shot = 0.001, currency = "credits" }   # optional
     # also: max_memory_bytes, max_branches (live classical records, default 1024),

@@ -25,6 +25,7 @@ damping.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from functools import lru_cache
 
 import numpy as np
 import numpy.typing as npt
@@ -55,6 +56,7 @@ _PAULI = (
 )
 
 
+@lru_cache(maxsize=32)
 def pauli(index: int, arity: int) -> Matrix:
     """Pauli product ``index`` (base 4, first qubit most significant; 0 = I, 1 = X,
     2 = Y, 3 = Z) on ``arity`` qubits."""

@@ -44,10 +44,12 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from jobkeeper.backends.sim import kernels
+from jobkeeper.backends.sim.base import holds
 from jobkeeper.backends.sim.gates import Matrix
 from jobkeeper.backends.sim.noise import NoiseModel
 from jobkeeper.backends.sim.program import Measure, Reset
 from jobkeeper.backends.sim.sampling import marginal
+from jobkeeper.backends.sim.statevector import _collapse, initial_state
 from jobkeeper.backends.sim.trajectory_program import (
     DAMP,
     DEPHASE,
@@ -61,8 +63,6 @@ from jobkeeper.backends.sim.trajectory_program import (
     no_jump,
     pauli,
 )
-from jobkeeper.backends.sim.base import holds
-from jobkeeper.backends.sim.statevector import _collapse, initial_state
 
 _X = pauli(1, 1)
 
@@ -98,9 +98,7 @@ def _norm2(state: kernels.State) -> float:
 class Runner:
     """Runs the trajectories of one task (see the module docstring)."""
 
-    def __init__(
-        self, program: TrajectoryProgram, noise: NoiseModel, shots: list[int], seed: int
-    ):
+    def __init__(self, program: TrajectoryProgram, noise: NoiseModel, shots: list[int], seed: int):
         self.program = program
         self.n = program.num_qubits
         self.final_qubits = [q for q, _ in program.final]
@@ -114,7 +112,9 @@ class Runner:
         for step in program.steps:
             if isinstance(step, Segment) and step.blocks:
                 last = step.blocks[-1]
-                self.segment_sites.append((step.blocks[0].first_site, last.first_site + last.num_sites))
+                self.segment_sites.append(
+                    (step.blocks[0].first_site, last.first_site + last.num_sites)
+                )
             else:
                 self.segment_sites.append((0, 0))
         self.diverged = 0
@@ -159,9 +159,7 @@ class Runner:
             self._tail(work, t, index, 0, 0)
         return self.trajectories
 
-    def _skip_quiet(
-        self, waiting: list[tuple[int, int]], calm: list[Trajectory], end: int
-    ) -> None:
+    def _skip_quiet(self, waiting: list[tuple[int, int]], calm: list[Trajectory], end: int) -> None:
         while waiting and waiting[0][0] < end:
             _, i = heapq.heappop(waiting)
             t = self.trajectories[i]
@@ -169,7 +167,9 @@ class Runner:
                 t.ptr += 1
             self._requeue(t, waiting, calm)
 
-    def _requeue(self, t: Trajectory, waiting: list[tuple[int, int]], calm: list[Trajectory]) -> None:
+    def _requeue(
+        self, t: Trajectory, waiting: list[tuple[int, int]], calm: list[Trajectory]
+    ) -> None:
         site = t.next_site()
         if site < 0:
             calm.append(t)
@@ -243,7 +243,9 @@ class Runner:
                 self._read(state, t, s)
         self._sample(t, self._cdf(state))
 
-    def _tail_block(self, state: kernels.State, t: Trajectory, block: NoisyBlock, start: int) -> None:
+    def _tail_block(
+        self, state: kernels.State, t: Trajectory, block: NoisyBlock, start: int
+    ) -> None:
         end = block.first_site + block.num_sites
         if start == 0 and (t.ptr >= len(t.sites) or t.sites[t.ptr] >= end):
             kernels.apply(state, self.n, block.matrix, block.qubits, block.kind)
@@ -280,8 +282,16 @@ class Runner:
         self._apply(state, block, _mul(block.product(done, len(block.items)), pending))
 
     def _apply(self, state: kernels.State, block: NoisyBlock, matrix: Matrix | None) -> None:
-        if matrix is not None:
-            kernels.apply(state, self.n, matrix, block.qubits, kernels.classify(matrix))
+        # A rebuilt piece is dense (an event mixes it); classifying costs more than a
+        # small pass.
+        if matrix is None:
+            return
+        if len(block.qubits) == self.n:
+            # On every qubit: one product with the state (small circuits are one block).
+            ordered, _ = kernels.reorder(matrix, block.qubits)
+            state[...] = ordered @ state
+        else:
+            kernels.apply_dense(state, self.n, matrix, block.qubits)
 
     def _p1(self, state: kernels.State, qubit: int, norm2: float | None = None) -> float:
         if norm2 is None:
