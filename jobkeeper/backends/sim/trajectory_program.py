@@ -38,10 +38,9 @@ from jobkeeper.backends.sim.program import (
     IDENTITY_GATES,
     Measure,
     Reset,
-    check_operation,
-    final_measurements,
+    outline,
 )
-from jobkeeper.circuit.ir import BARRIER, MEASURE, RESET, Circuit, Condition
+from jobkeeper.circuit.ir import MEASURE, RESET, Circuit, Condition
 
 PAULI_1Q, PAULI_2Q, DEPHASE, DAMP = 0, 1, 2, 3
 #: widest fused block, in qubits: the state-vector simulator's own default, so the work
@@ -270,9 +269,7 @@ def compile_trajectories(
 ) -> TrajectoryProgram:
     """Validate ``circuit`` (PermanentBackendError naming the first operation that cannot
     be simulated) and compile it with its noise sites."""
-    for op in circuit.operations:
-        check_operation(circuit, op)
-    final_index = final_measurements(circuit.operations)
+    plan = outline(circuit)
     sites = _Sites()
     steps: list[Step] = []
     pending: list[tuple[Item, int, float, float]] = []
@@ -292,14 +289,7 @@ def compile_trajectories(
         pending.extend(_noise_items(qubits, duration, p, noise))
 
     readout_time = noise.gate_time("readout")
-    final: list[tuple[int, int]] = []
-    for index, op in enumerate(circuit.operations):
-        if op.name == BARRIER:
-            continue
-        if op.name == MEASURE and op.condition is None and index in final_index:
-            if final_index[index]:
-                final.append((op.qubits[0], op.clbits[0]))
-            continue
+    for op in plan.body:
         if op.condition != condition[0]:
             flush()
             condition[0] = op.condition
@@ -322,15 +312,14 @@ def compile_trajectories(
     if condition[0] is not None:
         flush()
         condition[0] = None
-    for qubit, _ in sorted(final):
+    for qubit, _ in sorted(plan.final):
         pending.extend(_noise_items((qubit,), readout_time, 0.0, noise))
     flush()
-    final.sort(key=lambda pair: pair[1])
     return TrajectoryProgram(
         num_qubits=circuit.num_qubits,
         steps=tuple(steps),
-        final=tuple(final),
-        measures=any(op.name == MEASURE for op in circuit.operations),
+        final=plan.final,
+        measures=plan.measures,
         site_kind=np.array(sites.kind, dtype=np.int64),
         site_probability=np.array(sites.probability, dtype=np.float64),
         site_gamma=np.array(sites.gamma, dtype=np.float64),
