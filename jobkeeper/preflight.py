@@ -10,6 +10,7 @@ from typing import TYPE_CHECKING, Any
 
 from jobkeeper.circuit import CircuitMetrics, circuit_hash, load_qasm, metrics
 from jobkeeper.circuit.ir import NON_GATE_OPERATIONS
+from jobkeeper.exceptions import CircuitError
 
 if TYPE_CHECKING:
     from jobkeeper.keeper import Keeper
@@ -33,6 +34,8 @@ class PreflightReport:
     currency: str | None = None
     shots: int = 0
     duration_seconds: float | None = None
+    #: a local simulator's plan: method, memory and a rough CPU time (None elsewhere).
+    simulation: dict[str, Any] | None = None
 
     def to_json(self) -> dict[str, Any]:
         return {
@@ -48,6 +51,7 @@ class PreflightReport:
             "cost": self.cost,
             "currency": self.currency,
             "duration_seconds": self.duration_seconds,
+            "simulation": self.simulation,
             "warnings": self.warnings,
         }
 
@@ -62,6 +66,8 @@ class PreflightReport:
             f"  backend {self.backend}: " + ("fits" if self.fits else "does NOT fit"),
         ]
         lines += [f"    - {p}" for p in self.problems]
+        if self.simulation is not None:
+            lines.append("  simulation: " + _plan(self.simulation))
         if self.success_probability is not None:
             lines.append(f"  estimated probability of an error-free run: {_prob(self)}")
         if self.cost is not None:
@@ -75,6 +81,29 @@ class PreflightReport:
             )
         lines += [f"  WARNING: {w}" for w in self.warnings]
         return "\n".join(lines)
+
+
+def _bytes(n: float) -> str:
+    for unit in ("bytes", "KiB", "MiB", "GiB", "TiB"):
+        if n < 1024 or unit == "TiB":
+            return f"{n:.0f} {unit}" if unit == "bytes" else f"{n:.1f} {unit}"
+        n /= 1024
+    raise AssertionError("unreachable")
+
+
+def _plan(plan: dict[str, Any]) -> str:
+    method = str(plan["method"])
+    if "trajectories" in plan:
+        method += (
+            f" ({plan['trajectories']} trajectories, {plan['shots_per_trajectory']} shot(s) each)"
+        )
+    text = (
+        f"{method}; memory {_bytes(plan['memory_bytes'])} of "
+        f"{_bytes(plan['available_bytes'])} available"
+    )
+    if plan.get("seconds") is not None:
+        text += f"; roughly {plan['seconds']:.2g} s of CPU time (an estimate)"
+    return text
 
 
 def _prob(report: PreflightReport) -> str:
@@ -99,6 +128,17 @@ def preflight(
         file=str(file), circuit_hash=circuit_hash(circuit), backend=name, metrics=m,
         fits=True, shots=shots,
     )  # fmt: skip
+    plan = getattr(the_backend, "simulation_plan", None)
+    if callable(plan):
+        report.simulation = dict(plan(circuit, shots))
+        needed, available = report.simulation["memory_bytes"], report.simulation["available_bytes"]
+        if needed > available:
+            raise CircuitError(
+                f"refused: {circuit.num_qubits} qubits on {name} ({report.simulation['method']}) "
+                f"need {_bytes(needed)} ({report.simulation['memory_arithmetic']}), more than "
+                f"the {_bytes(available)} available",
+                file=str(file),
+            )
     if circuit.num_qubits > info.max_qubits:
         report.problems.append(
             f"{circuit.num_qubits} qubits, but {name} allows at most {info.max_qubits}"

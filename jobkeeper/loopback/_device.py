@@ -294,7 +294,9 @@ class LoopbackDevice:
 
 def _invented_calibration(seed: int, qubits: int) -> dict[str, Any]:
     """Invented calibration numbers (the device simulates an ideal circuit and uses none
-    of them); they exist so that calibration snapshots can be rehearsed end to end."""
+    of them); they exist so that calibration snapshots can be rehearsed end to end, down
+    to a noisy stand-in simulator built from them (``noise_from``; the fields and their
+    mapping: jobkeeper.backends.sim.calibration)."""
     rng = random.Random(f"calibration-{seed}")
     return {
         "invented": True,
@@ -305,4 +307,7 @@ def _invented_calibration(seed: int, qubits: int) -> dict[str, Any]:
         "readout_error": [round(rng.uniform(0.005, 0.03), 4) for _ in range(qubits)],
         "single_qubit_gate_error": round(rng.uniform(1e-4, 5e-4), 6),
         "two_qubit_gate_error": round(rng.uniform(5e-3, 2e-2), 5),
+        "gate_time_1q_ns": round(rng.uniform(30, 80)),
+        "gate_time_2q_ns": round(rng.uniform(200, 500)),
+        "readout_time_ns": round(rng.uniform(500, 1500)),
     }

@@ -65,3 +65,41 @@ def test_a_circuit_too_wide_does_not_fit(capsys, keep, tmp_path) -> None:
     assert code == 1
     assert report["fits"] is False and "14 qubits" in report["problems"][0]
     assert main(["check", str(tmp_path / "w.qasm"), "-b", "noisy", "--keep", keep]) == 1
+
+
+STANDIN = """[backends.standin]
+adapter = "trajectories"
+depolarizing_2q = 0.005
+readout_error = 0.01
+t1 = 1e-4
+t2 = 8e-5
+gate_time_1q = 5e-8
+gate_time_2q = 3e-7
+"""
+
+
+def test_check_says_the_method_its_memory_and_a_time(capsys, tmp_path) -> None:
+    # 2^10 amplitudes × 40 bytes (two state vectors and the probabilities) = 40,960 bytes.
+    (tmp_path / "keep").mkdir()
+    (tmp_path / "keep" / "config.toml").write_text(STANDIN)
+    code, report = run_check(capsys, str(_circuit(tmp_path / "c.qasm", 30, qubits=10)), "-b",
+                             "standin", "--keep", str(tmp_path / "keep"), "--shots", "3000")  # fmt: skip
+    plan = report["simulation"]
+    assert code == 0 and plan["method"] == "trajectories"
+    assert plan["memory_bytes"] == 40_960 and plan["trajectories"] == 1000
+    assert plan["shots_per_trajectory"] == "3" and plan["seconds"] > 0
+    main(["check", str(tmp_path / "c.qasm"), "-b", "standin", "--keep", str(tmp_path / "keep")])
+    assert "simulation: trajectories (" in capsys.readouterr().out
+
+
+def test_check_refuses_a_circuit_beyond_the_memory_available(capsys, tmp_path) -> None:
+    # 40 qubits × 40 bytes per amplitude = 44 TB: more than any machine this runs on has.
+    (tmp_path / "keep").mkdir()
+    (tmp_path / "keep" / "config.toml").write_text(
+        STANDIN.replace("t1 = 1e-4", "max_qubits = 40\nt1 = 1e-4")
+    )
+    code = main(["check", str(_circuit(tmp_path / "big.qasm", 5, qubits=40)), "-b", "standin",
+                 "--keep", str(tmp_path / "keep")])  # fmt: skip
+    assert code == 2
+    err = capsys.readouterr().err
+    assert "refused" in err and "more than" in err and "Traceback" not in err

@@ -27,7 +27,7 @@ from pydantic import BaseModel, ConfigDict, Field, StrictInt, ValidationError
 from jobkeeper._version import __version__
 from jobkeeper.backend import BackendInfo, Polled, Pricing, Result, Started, Task
 from jobkeeper.backends.sim.sampling import BitFormatter, Floats, probabilities_of, sample_counts
-from jobkeeper.circuit.ir import Circuit, Condition
+from jobkeeper.circuit.ir import NON_GATE_OPERATIONS, Circuit, Condition
 from jobkeeper.exceptions import ConfigError, PermanentBackendError
 from jobkeeper.hashing import digest_of
 
@@ -64,6 +64,18 @@ def _read_available_memory() -> int:
     except OSError:
         pass
     return int(os.sysconf("SC_PAGE_SIZE") * os.sysconf("SC_AVPHYS_PAGES"))
+
+
+#: CPU seconds per state entry per fused pass, and per pass, on the development machine
+#: (benchmarks/bench_trajectories.py: a 20-qubit depth-20 noiseless run, 50 passes over
+#: 2^20 amplitudes in 0.47 s): pre-flight's rough time estimates rest on them.
+SECONDS_PER_ENTRY_PASS = 1e-8
+SECONDS_PER_PASS = 1e-4
+
+
+def estimated_seconds(passes: float, entries: int) -> float:
+    """Rough CPU time of ``passes`` fused passes over ``entries`` state entries."""
+    return passes * (entries * SECONDS_PER_ENTRY_PASS + SECONDS_PER_PASS)
 
 
 def holds(condition: Condition, record: int) -> bool:
@@ -146,6 +158,11 @@ class Simulator(Generic[ProgramT]):
     #: short tag in ``info.version`` (``<jobkeeper version>+<tag><kernel version>``).
     version_tag: ClassVar[str]
     description: ClassVar[str]
+    #: qubits of the state per circuit qubit (a density matrix has 2n).
+    entry_qubits: ClassVar[int] = 1
+    #: gates per fused pass over the state, for estimates (a 20-qubit depth-20 random
+    #: circuit: 590 gates in 50 passes).
+    gates_per_pass: ClassVar[float] = 12.0
 
     name: str
     config: dict[str, Any]
@@ -224,6 +241,25 @@ class Simulator(Generic[ProgramT]):
                 f"{num_qubits} qubits need {needed} bytes ({arithmetic}), more than the "
                 f"{limit} bytes available"
             )
+
+    def simulation_plan(self, circuit: Circuit, shots: int) -> dict[str, Any]:
+        """Pre-flight's view of a run: the method, the bytes it needs against those
+        available, and a rough CPU time (None when it does not fit): estimated fused
+        passes over the state × entries × a rate measured on the development machine.
+        Nothing is compiled (a long circuit's compilation is itself a cost)."""
+        needed, arithmetic = self.footprint(circuit.num_qubits, 1)
+        plan: dict[str, Any] = {
+            "method": self.method,
+            "memory_bytes": needed,
+            "memory_arithmetic": arithmetic,
+            "available_bytes": self.memory_limit(),
+            "seconds": None,
+        }
+        if needed <= plan["available_bytes"] and circuit.num_qubits <= self.max_qubits:
+            gates = sum(op.name not in NON_GATE_OPERATIONS for op in circuit.operations)
+            entries = 1 << (self.entry_qubits * circuit.num_qubits)
+            plan["seconds"] = estimated_seconds(max(1.0, gates / self.gates_per_pass), entries)
+        return plan
 
     def too_many_branches(self, what: str) -> PermanentBackendError:
         return PermanentBackendError(

@@ -19,7 +19,9 @@ Configuration (``[backends.NAME]`` with ``adapter = "densitymatrix"``)::
 
 or the noise figures in a ``calibration`` table of the same keys (a device's
 calibration snapshot, see :func:`noise_model_from_calibration`). What each figure does is
-in :mod:`.noise`; ``info.calibration`` is the model as a JSON-ready table.
+in :mod:`.noise`; ``info.calibration`` is the model as a JSON-ready table. Or
+``noise_from = "NAME"``: the noise of the REST backend NAME's latest archived calibration
+snapshot (``noise_refresh = true``: fetched live), mapped as :mod:`.calibration` says.
 
 How a task runs: the circuit is compiled with its noise (:mod:`.density_program`), memory is
 checked before anything is allocated, ρ evolves in place as a vector of 4^n entries (the
@@ -54,6 +56,7 @@ from jobkeeper.backends.sim.base import (
     holds,
     parse_options,
 )
+from jobkeeper.backends.sim.calibration import NoiseSourceOptions, noise_from_source
 from jobkeeper.backends.sim.density_program import (
     DEFAULT_MAX_WIDTH,
     Channel,
@@ -79,7 +82,7 @@ DEFAULT_MAX_QUBITS = 12
 BYTES_PER_ENTRY = 16
 
 
-class DensityMatrixOptions(NoiseTable, SimulatorOptions):
+class DensityMatrixOptions(NoiseTable, NoiseSourceOptions, SimulatorOptions):
     adapter: str = "densitymatrix"
     max_qubits: StrictInt = Field(default=DEFAULT_MAX_QUBITS, ge=1, le=16)
     fusion_width: StrictInt = Field(default=DEFAULT_MAX_WIDTH, ge=2, le=8)
@@ -98,9 +101,19 @@ class DensityMatrixOptions(NoiseTable, SimulatorOptions):
         return self
 
 
-def _parse(name: str, config: Mapping[str, Any]) -> tuple[DensityMatrixOptions, NoiseModel]:
+def _parse(
+    name: str, config: Mapping[str, Any]
+) -> tuple[DensityMatrixOptions, NoiseModel, dict[str, Any] | None]:
     what = f"densitymatrix backend {name!r}"
     table = parse_options(DensityMatrixOptions, what, config)
+    source = noise_from_source(what, table)
+    if source is not None:
+        if table.calibration is not None or set(NOISE_KEYS) & table.model_fields_set:
+            raise ConfigError(f"{what}: noise_from takes the place of the noise keys; give one")
+        try:
+            return table, noise_model_from_calibration(source[0]), source[1]
+        except ConfigError as exc:
+            raise ConfigError(f"{what}: from {table.noise_from!r}'s snapshot: {exc}") from None
     if table.calibration is not None:
         try:
             noise = noise_model_from_calibration(table.calibration)
@@ -110,7 +123,7 @@ def _parse(name: str, config: Mapping[str, Any]) -> tuple[DensityMatrixOptions, 
         noise = noise_model_from_calibration(
             {k: getattr(table, k) for k in NOISE_KEYS if k in table.model_fields_set}
         )
-    return table, noise
+    return table, noise, None
 
 
 class DensityMatrixBackend(Simulator[DensityProgram]):
@@ -123,6 +136,9 @@ class DensityMatrixBackend(Simulator[DensityProgram]):
     method = "densitymatrix"
     kernel_version = "1"
     version_tag = "dm"
+    entry_qubits = 2
+    #: a noisy gate is a block of its own (its superoperator fills the fusion width).
+    gates_per_pass = 1.0
     description = "noisy density-matrix simulator (numpy) with seeded sampling"
     #: up to 4 qubits (a 16 × 16 density matrix) a noisy run takes about a third of a
     #: millisecond: the worker runs such jobs inline (see LocalBackend).
@@ -140,15 +156,20 @@ class DensityMatrixBackend(Simulator[DensityProgram]):
                 raise ConfigError("give either a configuration or a noise model, not both")
             config = {"adapter": "densitymatrix", **noise.to_json()}
         config = dict(config or {"adapter": "densitymatrix"})
-        table, model = _parse(name, config)
+        table, model, provenance = _parse(name, config)
         self._set_limits(name, config, table)
         self.noise = model
+        #: where the noise came from (a calibration snapshot), or None.
+        self.provenance = provenance
         if model.num_qubits is not None:
             self.max_qubits = min(self.max_qubits, model.num_qubits)
         self.pricing = Pricing(**table.pricing.model_dump()) if table.pricing else None
 
     def calibration(self) -> dict[str, Any]:
-        return self.noise.to_json()
+        out = self.noise.to_json()
+        if self.provenance is not None:
+            out["derived_from"] = self.provenance
+        return out
 
     def qubits_that_fit(self, limit: int) -> int:
         return max(0, ((limit // BYTES_PER_ENTRY).bit_length() - 1) // 2)
@@ -174,7 +195,7 @@ class DensityMatrixBackend(Simulator[DensityProgram]):
         }
         ones, twos, wider = program.operations
         details = {
-            "noise": self.noise.to_json(),
+            "noise": self.calibration(),
             "operations": {"1q": ones, "2q": twos, "wider": wider},
         }
         return weights, details

@@ -16,11 +16,12 @@ the density-matrix backend, unchanged, so one block can be switched between the 
     trajectories = 500               # optional: at most this many trajectories
     max_qubits = 28                  # default 28
     # also: max_memory_bytes, fusion_width (qubits per fused block, default 5),
-    # pricing, calibration (a noise table), noise_from (see below)
+    # pricing, calibration (a noise table), noise_from and noise_refresh (see below)
 
 ``noise_from = "NAME"`` takes the noise from the latest calibration snapshot archived by
-the REST backend NAME (see :mod:`.calibration` for the mapping, which is recorded with
-the snapshot's digest in every result); the keep resolves it before the backend is built.
+the REST backend NAME (``noise_refresh = true``: fetched live instead); the keep
+resolves it before the backend is built. :mod:`.calibration` documents the mapping,
+which every result records with the snapshot's digest.
 
 How many trajectories: by default one per shot up to 1,000 shots, so that the counts are
 an exact sample of the noisy distribution; above that 1,000 trajectories, the shots
@@ -32,6 +33,7 @@ for time. The method and its randomness are in :mod:`.trajectory_run`.
 
 from __future__ import annotations
 
+import math
 import secrets
 from collections.abc import Mapping
 from typing import Any
@@ -44,8 +46,10 @@ from jobkeeper.backends.sim.base import (
     PricingTable,
     Simulator,
     SimulatorOptions,
+    estimated_seconds,
     parse_options,
 )
+from jobkeeper.backends.sim.calibration import NoiseSourceOptions, noise_from_source
 from jobkeeper.backends.sim.noise import (
     NOISE_KEYS,
     NoiseModel,
@@ -60,7 +64,7 @@ from jobkeeper.backends.sim.trajectory_program import (
     compile_trajectories,
 )
 from jobkeeper.backends.sim.trajectory_run import Runner, Trajectory
-from jobkeeper.circuit.ir import Circuit
+from jobkeeper.circuit.ir import NON_GATE_OPERATIONS, Circuit
 from jobkeeper.counts import CountTable
 from jobkeeper.exceptions import ConfigError, PermanentBackendError
 
@@ -75,7 +79,7 @@ DEFAULT_TRAJECTORIES = 1000
 BYTES_PER_AMPLITUDE = 40
 
 
-class TrajectoryOptions(NoiseTable, SimulatorOptions):
+class TrajectoryOptions(NoiseTable, NoiseSourceOptions, SimulatorOptions):
     adapter: str = METHOD
     max_qubits: StrictInt = Field(default=DEFAULT_MAX_QUBITS, ge=1, le=40)
     fusion_width: StrictInt = Field(default=DEFAULT_MAX_WIDTH, ge=1, le=8)
@@ -95,9 +99,19 @@ class TrajectoryOptions(NoiseTable, SimulatorOptions):
         return self
 
 
-def _parse(name: str, config: Mapping[str, Any]) -> tuple[TrajectoryOptions, NoiseModel]:
+def _parse(
+    name: str, config: Mapping[str, Any]
+) -> tuple[TrajectoryOptions, NoiseModel, dict[str, Any] | None]:
     what = f"trajectories backend {name!r}"
     table = parse_options(TrajectoryOptions, what, config)
+    source = noise_from_source(what, table)
+    if source is not None:
+        if table.calibration is not None or set(NOISE_KEYS) & table.model_fields_set:
+            raise ConfigError(f"{what}: noise_from takes the place of the noise keys; give one")
+        try:
+            return table, noise_model_from_calibration(source[0]), source[1]
+        except ConfigError as exc:
+            raise ConfigError(f"{what}: from {table.noise_from!r}'s snapshot: {exc}") from None
     if table.calibration is not None:
         try:
             noise = noise_model_from_calibration(table.calibration)
@@ -107,7 +121,7 @@ def _parse(name: str, config: Mapping[str, Any]) -> tuple[TrajectoryOptions, Noi
         noise = noise_model_from_calibration(
             {k: getattr(table, k) for k in NOISE_KEYS if k in table.model_fields_set}
         )
-    return table, noise
+    return table, noise, None
 
 
 def share_shots(shots: int, cap: int | None) -> list[int]:
@@ -146,16 +160,21 @@ class TrajectoryBackend(Simulator[TrajectoryProgram]):
                 raise ConfigError("give either a configuration or a noise model, not both")
             config = {"adapter": METHOD, **noise.to_json()}
         config = dict(config or {"adapter": METHOD})
-        table, model = _parse(name, config)
+        table, model, provenance = _parse(name, config)
         self._set_limits(name, config, table)
         self.noise = model
+        #: where the noise came from (a calibration snapshot), or None.
+        self.provenance = provenance
         if model.num_qubits is not None:
             self.max_qubits = min(self.max_qubits, model.num_qubits)
         self.trajectories = table.trajectories
         self.pricing = Pricing(**table.pricing.model_dump()) if table.pricing else None
 
     def calibration(self) -> dict[str, Any]:
-        return self.noise.to_json()
+        out = self.noise.to_json()
+        if self.provenance is not None:
+            out["derived_from"] = self.provenance
+        return out
 
     def qubits_that_fit(self, limit: int) -> int:
         return max(0, (limit // BYTES_PER_AMPLITUDE).bit_length() - 1)
@@ -225,6 +244,28 @@ class TrajectoryBackend(Simulator[TrajectoryProgram]):
         if notes:
             metadata["note"] = "; ".join(notes)
         return Result(counts=counts, metadata=metadata)
+
+    def simulation_plan(self, circuit: Circuit, shots: int) -> dict[str, Any]:
+        """Pre-flight's view (see Simulator.simulation_plan), with the trajectories and
+        the expected work: one shared quiet run, and per trajectory the part after its
+        first event."""
+        plan = super().simulation_plan(circuit, shots)
+        shares = share_shots(shots, self.trajectories)
+        plan["trajectories"] = len(shares)
+        plan["shots_per_trajectory"] = _sharing(shares)
+        if plan["seconds"] is None:
+            return plan
+        # Errors as events spread evenly over the run at λ = −ln P(error-free): the work
+        # after a trajectory's first event is a fraction 1 − (1 − e^{−λ})/λ of a run.
+        rate = -math.log(10.0) * log10_success_probability(circuit, self.noise)
+        tail = 1.0 - (-math.expm1(-rate) / rate if rate > 1e-12 else 1.0)
+        gates = sum(op.name not in NON_GATE_OPERATIONS for op in circuit.operations)
+        passes = max(1.0, gates / self.gates_per_pass)
+        entries = 1 << circuit.num_qubits
+        # Each trajectory also copies the state and reads its outcome probabilities.
+        per = estimated_seconds(tail * passes + 2, entries)
+        plan["seconds"] = estimated_seconds(passes, entries) + len(shares) * per
+        return plan
 
     def success_probability(self, circuit: Circuit) -> float:
         """**log10** of the estimated probability of an error-free run (as the
