@@ -55,6 +55,7 @@ if TYPE_CHECKING:
     from jobkeeper.audit.sealing import Sealer
     from jobkeeper.backend import Backend, BackendInfo
     from jobkeeper.circuit import Circuit
+    from jobkeeper.store.export import ExportSummary
     from jobkeeper.worker import Worker, WorkerStats
 
 T = TypeVar("T")
@@ -514,6 +515,31 @@ class Keeper:
         self, *, label: str | None = None, state: str | None = None, limit: int | None = None
     ) -> list[Job]:
         return [Job(self, r) for r in self.store.list_jobs(label=label, state=state, limit=limit)]
+
+    def export(
+        self, path: str | os.PathLike[str], *, label: str | None = None, force: bool = False
+    ) -> ExportSummary:
+        """Write the jobs (of ``label``, or all) and their counts to a new SQLite file for
+        analysis (see :mod:`jobkeeper.store.export`). The counts of done jobs are checked
+        against their signed manifests first (VerificationError if any fails). Refuses to
+        replace an existing file unless ``force``, and any path inside the keep."""
+        from jobkeeper.audit.verification import verify_jobs
+        from jobkeeper.exceptions import VerificationError
+        from jobkeeper.store.export import check_target, export_jobs
+
+        check_target(Path(path), keep_dir=self.path, force=force)  # before any work
+        records = self.store.list_jobs(label=label)
+        done = [r.id for r in records if r.state == "done"]
+        if done:
+            report = verify_jobs(self, done)
+            if not report.ok:
+                raise VerificationError(
+                    "not exported: the archive does not verify: " + "; ".join(report.problems[:3])
+                )
+        return export_jobs(
+            self.store, records, Path(path), keep_dir=self.path, force=force, label=label,
+            origin=self.store.get_meta("origin"),
+        )  # fmt: skip
 
     def cancel(self, id_or_prefix: str) -> Job:
         record = self.store.get(id_or_prefix)

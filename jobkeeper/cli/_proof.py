@@ -138,6 +138,31 @@ def bundle(
         typer.echo(f"a referee verifies it with: jobkeeper verify {output} --key {fp}")
 
 
+@app.command()
+def export(
+    output: Annotated[
+        Path, typer.Option("-o", "--output", help="The SQLite file to write (e.g. results.db).")
+    ],
+    label: Annotated[
+        str | None, typer.Option("--label", help="Only jobs with this label.", show_default=False)
+    ] = None,
+    force: Annotated[bool, typer.Option("--force", help="Replace the file if it exists.")] = False,
+    keep: KeepOpt = None,
+    store: StoreOpt = None,
+    json_out: JsonOpt = False,
+) -> None:
+    """Write jobs and their counts to a SQLite file for analysis (tables jobs and counts,
+    one row per job and per outcome). An unsigned copy: the keep holds the signed record."""
+    keeper = open_keeper(keep, store, create=False)
+    summary = keeper.export(output, label=label, force=force)
+    if json_out:
+        echo_json({"path": str(summary.path), "jobs": summary.jobs, "counts": summary.counts,
+                   "probabilities": summary.probabilities})  # fmt: skip
+    else:
+        rows = summary.counts + summary.probabilities
+        typer.echo(f"wrote {summary.jobs} job(s) and {rows} outcome row(s) to {output}")
+
+
 def _print_judgement(judgement: Any, json_out: bool) -> None:
     if json_out:
         echo_json(judgement.to_json())

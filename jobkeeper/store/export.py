@@ -1,0 +1,162 @@
+"""A tidy copy of jobs and their counts for analysis: one SQLite file that any SQLite tool
+or dataframe library reads (``pandas.read_sql``, ``polars.read_database``, ``sqlite3``).
+
+Tables (one fact per row, one row per thing):
+
+- ``jobs``: one row per job: id, state, backend, shots, seed, repeat, labels (a JSON
+  array), bindings (a JSON object of the circuit's input values; empty until programs
+  take inputs), circuit hash, source name, job key, exact (0/1), submitted and finished
+  times (RFC 3339, UTC);
+- ``counts``: one row per job and outcome (``job_id``, ``outcome``, ``count``), for sampled
+  results; ``probabilities``: the same for exact runs (``probability``);
+- ``export``: one row saying what this file is: when and from which keep it was written,
+  the label chosen, and that it is an unsigned copy (the signed record stays in the keep).
+
+The file is written under a temporary name beside the target and renamed into place, so
+a reader never sees half a file. sqlite-utils does the writing: table creation with
+types, keys and foreign keys, and batched inserts.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import datetime as dt
+import json
+import os
+import sqlite3
+from collections.abc import Iterator, Sequence
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+from jobkeeper.exceptions import ConfigError, StoreError
+from jobkeeper.store import JobRecord, Store
+
+NOTE = (
+    "An unsigned copy for analysis. The signed record of each job is in the keep: "
+    "check it with 'jobkeeper verify'."
+)
+
+
+@dataclass(frozen=True)
+class ExportSummary:
+    """What was written: the file, how many jobs, count rows and probability rows."""
+
+    path: Path
+    jobs: int
+    counts: int
+    probabilities: int
+
+
+def check_target(path: Path, *, keep_dir: Path | None, force: bool) -> Path:
+    """The absolute target path, or ConfigError: an existing file without ``force``, a
+    path inside the keep directory (the export is not part of the archive), a directory,
+    or a parent directory that does not exist."""
+    target = path.expanduser().resolve()
+    if keep_dir is not None and target.is_relative_to(keep_dir.expanduser().resolve()):
+        raise ConfigError(f"{path} is inside the keep directory; write the export elsewhere")
+    if target.is_dir():
+        raise ConfigError(f"{path} is a directory; give a file name such as results.db")
+    if target.exists() and not force:
+        raise ConfigError(f"{path} exists; pass --force to replace it")
+    if not target.parent.is_dir():
+        raise ConfigError(f"cannot write {path}: no directory {target.parent}")
+    return target
+
+
+def _when(seconds: float | None) -> str | None:
+    if seconds is None:
+        return None
+    return dt.datetime.fromtimestamp(seconds, tz=dt.UTC).isoformat(timespec="milliseconds")
+
+
+def _seed(record: JobRecord) -> int | None:
+    try:
+        return None if record.seed is None else int(record.seed)
+    except ValueError:
+        return None
+
+
+def job_row(record: JobRecord) -> dict[str, Any]:
+    spec = record.spec
+    return {
+        "id": record.id,
+        "state": str(record.state),
+        "backend": record.backend,
+        "shots": record.shots,
+        "seed": _seed(record),
+        "repeat": record.repeat,
+        "labels": json.dumps(list(record.labels)),
+        "bindings": json.dumps(dict(spec.get("bindings") or {}), sort_keys=True),
+        "circuit_hash": spec.get("circuitHash"),
+        "source_name": spec.get("sourceName"),
+        "job_key": record.job_key,
+        "exact": int(bool(spec.get("exact", False))),
+        "submitted_at": _when(record.created_at),
+        "finished_at": _when(record.finished_at),
+    }
+
+
+JOB_COLUMNS: dict[str, type] = {
+    "id": str, "state": str, "backend": str, "shots": int, "seed": int, "repeat": int,
+    "labels": str, "bindings": str, "circuit_hash": str, "source_name": str, "job_key": str,
+    "exact": int, "submitted_at": str, "finished_at": str,
+}  # fmt: skip
+
+
+def export_jobs(
+    store: Store,
+    records: Sequence[JobRecord],
+    path: Path,
+    *,
+    keep_dir: Path | None = None,
+    force: bool = False,
+    label: str | None = None,
+    origin: str | None = None,
+) -> ExportSummary:
+    """Write ``records`` and their results to the SQLite file ``path`` (see the module
+    docstring). Refuses what :func:`check_target` refuses."""
+    import sqlite_utils
+
+    target = check_target(path, keep_dir=keep_dir, force=force)
+    partial = target.with_name(f".{target.name}.{os.getpid()}.part")
+    found = {"counts": 0, "probabilities": 0}
+
+    def outcomes(kind: str) -> Iterator[dict[str, Any]]:
+        for record in records:
+            result = store.result(record.id)
+            values = None if result is None else getattr(result, kind)
+            column = "count" if kind == "counts" else "probability"
+            for outcome, value in sorted((values or {}).items()):
+                found[kind] += 1
+                yield {"job_id": record.id, "outcome": outcome, column: value}
+
+    try:
+        with contextlib.closing(sqlite3.connect(partial)) as conn:
+            db = sqlite_utils.Database(conn)
+            db.table("jobs").create(JOB_COLUMNS, pk="id", not_null={"id", "state", "backend"})
+            db.table("jobs").insert_all(job_row(r) for r in records)
+            for kind, column, kind_type in (
+                ("counts", "count", int),
+                ("probabilities", "probability", float),
+            ):
+                db.table(kind).create(
+                    {"job_id": str, "outcome": str, column: kind_type},
+                    pk=("job_id", "outcome"),
+                    foreign_keys=[("job_id", "jobs", "id")],
+                )
+                db.table(kind).insert_all(outcomes(kind), batch_size=5000)
+            db.table("export").insert(
+                {"written_at": _when(dt.datetime.now(tz=dt.UTC).timestamp()),
+                 "keep": origin, "label": label, "jobs": len(records), "note": NOTE}
+            )  # fmt: skip
+            conn.commit()
+        os.replace(partial, target)
+    except (OSError, sqlite3.Error) as exc:
+        partial.unlink(missing_ok=True)
+        error = ConfigError if isinstance(exc, OSError) else StoreError
+        raise error(f"cannot write {path}: {exc}") from exc
+    except BaseException:
+        partial.unlink(missing_ok=True)
+        raise
+    return ExportSummary(target, len(records), found["counts"], found["probabilities"])
