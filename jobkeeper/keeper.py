@@ -53,6 +53,7 @@ from jobkeeper.store import (
 # where they are used, so that opening a keep to read it (`jobkeeper jobs`) stays quick.
 if TYPE_CHECKING:
     from jobkeeper.audit.sealing import Sealer
+    from jobkeeper.audit.trust import KeepTrust
     from jobkeeper.backend import Backend, BackendInfo
     from jobkeeper.circuit import Circuit
     from jobkeeper.store.export import ExportSummary
@@ -195,6 +196,11 @@ class Keeper:
                 keyring.ensure()
             except OSError as exc:
                 raise ConfigError(f"cannot write the signing key in {keep}: {exc}") from exc
+            # A new keep starts its list of trusted signers (only its own key, for now); a
+            # keep made before the list existed starts it at its first verify, which says so.
+            from jobkeeper.audit.trust import start_trust_file
+
+            start_trust_file(keep)
         the_store = open_store(location, create=create)
         keeper = cls(path=keep, store=the_store, config=config, keyring=keyring)
         if keyring.exists():
@@ -225,6 +231,13 @@ class Keeper:
 
         for record in self.keyring.public_keys():
             self.store.register_key(record.fingerprint, base64.b64encode(record.raw).decode())
+
+    @property
+    def trust(self) -> KeepTrust:
+        """Whose signatures ``verify`` accepts: add, remove, list, import, rotate."""
+        from jobkeeper.audit.trust import KeepTrust
+
+        return KeepTrust(self.path, self.keyring, self.store)
 
     def close(self) -> None:
         self.store.close()

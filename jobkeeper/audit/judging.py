@@ -10,7 +10,6 @@ the two count tables are compared statistically (:mod:`jobkeeper.stats`).
 
 from __future__ import annotations
 
-import base64
 import datetime as dt
 import json
 import uuid
@@ -58,11 +57,12 @@ class Judgement:
 
 
 def verified_manifest(keeper: Keeper, job: Job) -> dict[str, Any]:
-    """The job's signed Statement, verified against the keys this keep's log lists."""
+    """The job's signed Statement, verified against the keys this keep trusts (not those
+    the archive merely lists: anyone who can write the archive can list a key)."""
     entry = job.log_entry
     if entry is None:
         raise JobkeeperError(f"job {job.id[:12]} is {job.state}: it has no signed manifest")
-    keys = {fp: base64.b64decode(k) for fp, k in keeper.store.public_keys().items()}
+    keys = keeper.trust.load().keys
     try:
         payload = verify_envelope(json.loads(entry.envelope), keys)
         return parse_statement(payload)
