@@ -36,9 +36,7 @@ def keys(
     import base64
 
     keeper = open_keeper(keep, store)
-    if rotate:
-        keeper.keyring.rotate()
-        keeper._register_keys()
+    retired = keeper.trust.rotate() if rotate else None
     record = keeper.keyring.active_record()
     public = base64.b64encode(record.raw).decode()
     if export is not None:
@@ -46,8 +44,12 @@ def keys(
             json.dumps({"fingerprint": record.fingerprint, "public_key": public}) + "\n"
         )
     if json_out:
-        echo_json({"fingerprint": record.fingerprint, "public_key": public})
+        extra = {} if retired is None else {"retired": retired[0], "retired_from": retired[2]}
+        echo_json({"fingerprint": record.fingerprint, "public_key": public, **extra})
         return
+    if retired is not None:
+        typer.echo(f"retired {retired[0]}: it stays trusted for log entries before index "
+                   f"{retired[2]}; the new key signs from there")  # fmt: skip
     typer.echo(f"fingerprint: {record.fingerprint}")
     typer.echo(f"public key (base64, raw Ed25519): {public}")
     others = [
@@ -57,14 +59,28 @@ def keys(
         typer.echo(f"earlier keys still trusted for old entries: {', '.join(others)}")
 
 
+def _verdict(report: Any) -> str:
+    if report.only_trust_failed:
+        return (
+            "signatures, digests and the log hold, but a signer is not trusted here "
+            "(a key this verifier has not trusted signed them)"
+        )
+    if not report.ok:
+        return f"{len(report.problems) + len(report.trust_problems)} problem(s) found"
+    if report.integrity_only:
+        return "everything holds (integrity only: whether the signers are trusted was not checked)"
+    return "everything holds"
+
+
 def _print_report(report: Any, json_out: bool, what: str) -> None:
     if json_out:
         echo_json(report.to_dict())
     else:
-        verdict = "everything holds" if report.ok else f"{len(report.problems)} problem(s) found"
-        typer.echo(f"verified {report.checked} {what}: {verdict}")
+        typer.echo(f"verified {report.checked} {what}: {_verdict(report)}")
         for problem in report.problems:
             typer.echo(f"  PROBLEM: {problem}")
+        for problem in report.trust_problems:
+            typer.echo(f"  UNTRUSTED SIGNER: {problem}")
     for warning in report.warnings:
         typer.echo(f"jobkeeper: warning: {warning}", err=True)
     if not report.ok:
@@ -79,19 +95,27 @@ def verify(
     all_jobs: Annotated[bool, typer.Option("--all", help="Every done job in the keep.")] = False,
     key: Annotated[
         list[str] | None,
-        typer.Option("--key", help="Trust only this key fingerprint (repeatable)."),
+        typer.Option("--key", help="Trust only this full key fingerprint, this once (repeatable)."),
     ] = None,
+    integrity_only: Annotated[
+        bool,
+        typer.Option("--integrity-only", help="Check everything but whether signers are trusted."),
+    ] = False,
     keep: KeepOpt = None,
     store: StoreOpt = None,
     json_out: JsonOpt = False,
 ) -> None:
-    """Check signatures, counts digests, log inclusion and checkpoint consistency."""
+    """Check signatures and their signers' trust, counts digests, log inclusion and
+    checkpoint consistency."""
     from jobkeeper.audit.verification import verify_bundle_file, verify_jobs
 
     targets = targets or []
     if len(targets) == 1 and Path(targets[0]).is_file():
         with activity(f"verifying {targets[0]}"):
-            report = verify_bundle_file(Path(targets[0]), trusted=key)
+            report = verify_bundle_file(
+                Path(targets[0]), trusted=key, trust_set=_keep_trust(keep),
+                integrity_only=integrity_only,
+            )  # fmt: skip
         _print_report(report, json_out, "bundle entries")
         return
     if not targets and not all_jobs:
@@ -100,8 +124,23 @@ def verify(
     ids = None if all_jobs else [keeper.job(t).id for t in targets]
     what = "log entries (jobs and comparisons)" if all_jobs else "jobs"
     with activity(f"verifying {what}"):
-        report = verify_jobs(keeper, ids, trusted=key)
+        report = verify_jobs(keeper, ids, trusted=key, integrity_only=integrity_only)
     _print_report(report, json_out, what)
+
+
+def _keep_trust(keep: Path | None) -> Any:
+    """The trusted keys of the keep at hand (--keep, JOBKEEPER_KEEP or ./.jobkeeper), or
+    None when there is none: a bundle then needs --key."""
+    from jobkeeper.audit.trust import load_trust
+    from jobkeeper.cli._app import ROOT
+    from jobkeeper.config import DEFAULT_KEEP, KEYS_DIR
+    from jobkeeper.provenance.keys import KeyRing
+
+    path = keep if keep is not None else ROOT.keep if ROOT.keep is not None else DEFAULT_KEEP
+    keyring = KeyRing(path / KEYS_DIR)
+    if not keyring.exists():
+        return None
+    return load_trust(path, keyring)
 
 
 @app.command()
