@@ -139,16 +139,22 @@ def test_rewriting_the_log_is_caught(archive: Path, tmp_path: Path, damage: str)
         assert any("checkpoint" in p for p in problems), problems
 
 
-def test_a_bundle_with_a_swapped_key_fails_under_key(archive: Path, tmp_path: Path, capsys) -> None:
+def test_a_bundle_with_a_swapped_key_fails_under_key(
+    archive: Path, tmp_path: Path, capsys, monkeypatch: pytest.MonkeyPatch
+) -> None:
     bundle = tmp_path / "b.json"
+    monkeypatch.chdir(tmp_path)  # no keep at hand here
+    monkeypatch.delenv("JOBKEEPER_KEEP", raising=False)
     with Keeper.open(archive, create=False) as keeper:
         fingerprint = keeper.keyring.active_record().fingerprint
         ids = [j.id for j in keeper.jobs()[:3]]
     assert main(["bundle", *ids, "--keep", str(archive), "-o", str(bundle)]) == 0
     assert main(["verify", str(bundle), "--key", fingerprint]) == 0
+    assert main(["verify", str(bundle), "--keep", str(archive)]) == 0  # the keep trusts it
     capsys.readouterr()
-    assert main(["verify", str(bundle)]) == 0
-    assert "trusted" in capsys.readouterr().err  # the self-asserted warning
+    # No keep and no --key: the keys inside the bundle prove nothing, so no trusted signer.
+    assert main(["verify", str(bundle)]) == 1
+    assert "no keep at hand and no --key" in capsys.readouterr().err
     # Swap in an attacker's key, re-sign everything with it: self-consistent, but not ours.
     from cryptography.hazmat.primitives.asymmetric.ed25519 import Ed25519PrivateKey
 

@@ -49,7 +49,8 @@ def test_a_big_table_is_archived_signed_and_verifies(tmp_path: Path) -> None:
         assert report.ok, report.problems
         assert report.checked >= 1
         assert export_bundle(keeper, [job.id], tmp_path / "big.bundle") == 1
-    offline = verify_bundle_file(tmp_path / "big.bundle")
+        fingerprint = keeper.keyring.active_fingerprint()
+    offline = verify_bundle_file(tmp_path / "big.bundle", trusted=[fingerprint])
     assert offline.ok, offline.problems
 
 
