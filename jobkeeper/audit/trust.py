@@ -12,7 +12,7 @@ from __future__ import annotations
 import base64
 import os
 from collections.abc import Mapping
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import TYPE_CHECKING
 
@@ -177,6 +177,8 @@ def import_file(keep: Path, keyring: KeyRing, source: Path) -> tuple[int, int]:
     current = {k.fingerprint: k for k in trusted_keys(keep)}
     added = retired = 0
     for key in incoming:
+        if key.name == OWN_NAME:  # another keep's own key, named after the shared file
+            key = replace(key, name=source.stem)
         have = current.get(key.fingerprint)
         if have is None and key.fingerprint in own and not key.retired:
             continue

@@ -85,13 +85,15 @@ def check_signers(
     trusted_raw = list(trusted.keys.values())
     for j, note in enumerate(notes):
         try:
+            verify_checkpoint(note, trusted_raw, origin=origin)
+            continue  # the usual case: one more signature check per checkpoint
+        except VerificationError:
+            pass
+        try:
             verify_checkpoint(note, list(all_keys.values()), origin=origin)
         except VerificationError:
             continue  # an integrity problem, reported by the integrity pass
-        try:
-            verify_checkpoint(note, trusted_raw, origin=origin)
-        except VerificationError:
-            report.trust_problems.append(f"checkpoint {j} is signed by no key trusted here")
+        report.trust_problems.append(f"checkpoint {j} is signed by no key trusted here")
 
 
 def _finish(report: VerifyReport, integrity_only: bool, what: str) -> None:
