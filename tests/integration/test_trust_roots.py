@@ -219,19 +219,27 @@ def test_a_shared_list_is_imported_with_its_retirements(
     owner: Path, tmp_path: Path, capsys: pytest.CaptureFixture[str]
 ) -> None:
     worker = tmp_path / "worker"
-    with Keeper.open(worker) as keeper:
-        first = _fp(worker)
-        keeper.trust.rotate()
     shared = tmp_path / "team-keys.json"
-    code, out, _ = jk(capsys, "trust", "list", "--keep", str(worker), "--json")
-    assert code == 0
-    shared.write_text(out)
-    code, out, _ = jk(capsys, "trust", "import", str(shared), "--keep", str(owner))
-    assert code == 0 and "trusted 2 new key(s)" in out
+    Keeper.open(worker).close()
+    first = _fp(worker)
+
+    def share_and_import() -> str:
+        code, out, _ = jk(capsys, "trust", "list", "--keep", str(worker), "--json")
+        assert code == 0
+        shared.write_text(out)  # as committed to the team's repository
+        code, out, _ = jk(capsys, "trust", "import", str(shared), "--keep", str(owner))
+        assert code == 0
+        return out
+
+    assert "trusted 1 new key(s); adopted 0 retirement(s)" in share_and_import()
+    with Keeper.open(worker, create=False) as keeper:
+        assert keeper.trust.rotate() == (first, _fp(worker), 0)
+    assert "trusted 1 new key(s); adopted 1 retirement(s)" in share_and_import()
     with Keeper.open(owner, create=False) as keeper:
         trust = keeper.trust.load()
         assert first in trust.keys and _fp(worker) in trust.keys
         assert trust.retired_from == {first: 0}
+        assert trust.names[first] == "team-keys"  # not "this keep": it is the worker's key
     bad = json.loads(shared.read_text())
     bad["keys"][0]["publicKey"] = bad["keys"][1]["publicKey"]
     shared.write_text(json.dumps(bad))
