@@ -1,4 +1,4 @@
-"""Multinomial resampling for :mod:`jobkeeper.stats`: TVD replicates and intervals.
+"""Multinomial resampling for :mod:`jobkeeper.stats`: the draws, and TVDs of resamples.
 
 Vectorised over replicates with numpy (no loop over shots or outcomes), in chunks so that
 memory stays bounded for tables with many outcomes.
@@ -6,6 +6,7 @@ memory stays bounded for tables with many outcomes.
 
 from __future__ import annotations
 
+from collections.abc import Iterator
 from concurrent.futures import ThreadPoolExecutor
 from contextlib import nullcontext
 
@@ -26,6 +27,7 @@ _CHUNK_CELLS = 1 << 22
 #: Above this many resampled cells, the two sides are drawn in two threads.
 _THREAD_CELLS = 1 << 20
 
+IntArray = NDArray[np.int64]
 FloatArray = NDArray[np.float64]
 
 
@@ -40,6 +42,44 @@ def bootstrap_reps(requested: int, cells: int, fewest: int = MIN_BOOTSTRAP) -> i
     return max(fewest, MAX_BOOTSTRAP_CELLS // cells)
 
 
+def two_sample_draws(
+    rngs: tuple[np.random.Generator, np.random.Generator],
+    px: FloatArray,
+    nx: int,
+    py: FloatArray,
+    ny: int,
+    reps: int,
+) -> Iterator[tuple[int, IntArray, IntArray]]:
+    """Independent multinomial resamples of (nx, px) and (ny, py): (first row, x, y) chunks.
+
+    Chunked over replicates so memory stays bounded for large tables; no loop over shots or
+    outcomes. Each side has its own random stream, so the two sides can be drawn in two
+    threads (numpy releases the GIL while sampling) and the numbers do not depend on
+    whether they were.
+    """
+    step = _rows_per_chunk(px.size)
+    threaded = reps * px.size >= _THREAD_CELLS
+    with ThreadPoolExecutor(max_workers=2) if threaded else nullcontext() as pool:
+        for start in range(0, reps, step):
+            rows = min(reps, start + step) - start
+            if pool is not None:
+                fx = pool.submit(rngs[0].multinomial, nx, px, size=rows)
+                fy = pool.submit(rngs[1].multinomial, ny, py, size=rows)
+                yield start, fx.result(), fy.result()
+            else:
+                rx = rngs[0].multinomial(nx, px, size=rows)
+                yield start, rx, rngs[1].multinomial(ny, py, size=rows)
+
+
+def one_sample_draws(
+    rng: np.random.Generator, p: FloatArray, shots: int, reps: int
+) -> Iterator[tuple[int, IntArray]]:
+    """Multinomial resamples of (shots, p) in chunks: (first row, counts)."""
+    step = _rows_per_chunk(p.size)
+    for start in range(0, reps, step):
+        yield start, rng.multinomial(shots, p, size=min(reps, start + step) - start)
+
+
 def resampled_tvd_two(
     rngs: tuple[np.random.Generator, np.random.Generator],
     px: FloatArray,
@@ -48,33 +88,16 @@ def resampled_tvd_two(
     ny: int,
     reps: int,
 ) -> FloatArray:
-    """TVD between independent multinomial resamples of (nx, px) and (ny, py), per replicate.
-
-    Vectorised over replicates in chunks so memory stays bounded for large tables; no loop
-    over shots or outcomes. Each side has its own random stream, so the two sides can be
-    drawn in two threads (numpy releases the GIL while sampling) and the numbers do not
-    depend on whether they were.
-    """
+    """TVD between independent multinomial resamples of (nx, px) and (ny, py), per replicate."""
     out = np.empty(reps, dtype=np.float64)
-    step = _rows_per_chunk(px.size)
-    threaded = reps * px.size >= _THREAD_CELLS
     exact = nx * ny < 2**62
-    with ThreadPoolExecutor(max_workers=2) if threaded else nullcontext() as pool:
-        for start in range(0, reps, step):
-            rows = min(reps, start + step) - start
-            if pool is not None:
-                fx = pool.submit(rngs[0].multinomial, nx, px, size=rows)
-                fy = pool.submit(rngs[1].multinomial, ny, py, size=rows)
-                rx, ry = fx.result(), fy.result()
-            else:
-                rx = rngs[0].multinomial(nx, px, size=rows)
-                ry = rngs[1].multinomial(ny, py, size=rows)
-            if exact:
-                # Integer arithmetic (|x·ny − y·nx|) is exact until the last division.
-                diff = np.abs(rx * ny - ry * nx).sum(axis=1) / (2.0 * nx * ny)
-            else:  # shot counts so large that x·ny could overflow int64
-                diff = 0.5 * np.abs(rx / nx - ry / ny).sum(axis=1)
-            out[start : start + rows] = diff
+    for start, rx, ry in two_sample_draws(rngs, px, nx, py, ny, reps):
+        if exact:
+            # Integer arithmetic (|x·ny − y·nx|) is exact until the last division.
+            diff = np.abs(rx * ny - ry * nx).sum(axis=1) / (2.0 * nx * ny)
+        else:  # shot counts so large that x·ny could overflow int64
+            diff = 0.5 * np.abs(rx / nx - ry / ny).sum(axis=1)
+        out[start : start + diff.size] = diff
     return out
 
 
@@ -87,11 +110,8 @@ def resampled_tvd_one(
     the caller (a resample never lands there, so it contributes a constant).
     """
     out = np.empty(reps, dtype=np.float64)
-    step = _rows_per_chunk(draw_p.size)
-    for start in range(0, reps, step):
-        stop = min(reps, start + step)
-        sample = rng.multinomial(shots, draw_p, size=stop - start)
-        out[start:stop] = 0.5 * np.abs(sample / shots - ref).sum(axis=1)
+    for start, sample in one_sample_draws(rng, draw_p, shots, reps):
+        out[start : start + len(sample)] = 0.5 * np.abs(sample / shots - ref).sum(axis=1)
     return out
 
 
@@ -121,20 +141,3 @@ def sampled_noise_tvd_one(
         sums = np.bincount(cells // ref.size, weights=terms, minlength=rows)
         out[start : start + rows] = 0.5 * (1.0 + sums)
     return out
-
-
-def basic_interval(
-    estimate: float, replicates: FloatArray, confidence: float
-) -> tuple[float, float]:
-    """The basic (reverse-percentile) bootstrap interval, clipped to [0, 1].
-
-    Why not the plain percentile interval: the observed TVD is biased upwards (sampling noise
-    only ever adds distance), and the bootstrap TVDs are biased upwards again around it, so
-    the percentile interval sits about two biases above the truth. In our simulations it
-    covered the true TVD in 0-10 % of trials for typical tables. Reflecting the bootstrap
-    quantiles about the estimate (2θ̂ - q) removes one bias and the worst of that.
-    """
-    low_q, high_q = np.quantile(replicates, [(1 - confidence) / 2, (1 + confidence) / 2])
-    low = min(max(2 * estimate - float(high_q), 0.0), 1.0)
-    high = min(max(2 * estimate - float(low_q), 0.0), 1.0)
-    return low, high

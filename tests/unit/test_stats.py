@@ -190,7 +190,10 @@ def test_identical_tables_are_identical() -> None:
     result = compare_counts(counts, {"11": 488, "00": 512, "01": 0})
     assert result.verdict == "identical"
     assert result.tvd == 0.0 and result.hellinger_fidelity == pytest.approx(1.0)
-    assert result.tvd_ci == (0.0, 0.0)
+    # Identical counts do not prove identical distributions: the interval starts at zero
+    # but allows what sampling noise could hide.
+    assert result.tvd_estimate == 0.0 and result.tvd_ci[0] == 0.0
+    assert 0.0 < result.tvd_ci[1] < 0.1
     assert "identical" in result.summary()
 
 
@@ -345,36 +348,6 @@ def test_minimum_detectable_tvd_has_its_power() -> None:
     # More shots, smaller detectable distance; one sample beats two of the same size.
     assert minimum_detectable_tvd(4 * shots, 4 * shots, 8) < smallest
     assert minimum_detectable_tvd(shots, None, 8) < smallest
-
-
-@pytest.mark.parametrize(("tvd", "floor"), [(0.0, 0.9), (0.05, 0.85)])
-def test_tvd_interval_covers_truth(tvd: float, floor: float) -> None:
-    # Rough sanity (generous): the 95 % interval covers the true TVD in most trials. The
-    # plain percentile interval fails this badly (0-10 % coverage), see jobkeeper.stats.
-    p, q = shifted_pair(tvd, spread=True)
-    rng = np.random.default_rng(31)
-    xs, ys = rng.multinomial(10_000, p, size=200), rng.multinomial(10_000, q, size=200)
-    covered = 0
-    for seed, (x, y) in enumerate(zip(xs, ys, strict=True)):
-        low, high = compare_counts(as_counts(x), as_counts(y), bootstrap=500, seed=seed).tvd_ci
-        covered += low <= tvd <= high
-    assert covered / 200 >= floor, f"coverage {covered}/200"
-
-
-@pytest.mark.parametrize(("spread", "floor"), [(True, 0.85), (False, 0.7)])
-def test_one_sample_tvd_interval_covers_truth(spread: bool, floor: float) -> None:
-    # spread=False leaves six outcomes with no difference at all; their sampling noise
-    # inflates the observed TVD more than the bootstrap can see, and the interval is known
-    # to under-cover there (measured 77 %): the lower floor records that, so a regression
-    # still shows. See the method notes in jobkeeper.stats.
-    p, q = shifted_pair(0.05, spread=spread)
-    ideal = dict(zip(KEYS8, q, strict=True))
-    rng = np.random.default_rng(41)
-    covered = 0
-    for seed, x in enumerate(rng.multinomial(10_000, p, size=200)):
-        low, high = compare_to_distribution(as_counts(x), ideal, bootstrap=500, seed=seed).tvd_ci
-        covered += low <= 0.05 <= high
-    assert covered / 200 >= floor, f"coverage {covered}/200"
 
 
 def test_bootstrap_over_1024_outcomes_is_fast() -> None:
