@@ -26,8 +26,8 @@ bench: $(STAMP)
 	$(BIN)/python benchmarks/run_all.py
 
 lint: $(STAMP)
-	$(BIN)/ruff check jobkeeper tests benchmarks examples
-	$(BIN)/ruff format --check jobkeeper tests benchmarks examples
+	$(BIN)/ruff check jobkeeper tests benchmarks examples conftest.py
+	$(BIN)/ruff format --check jobkeeper tests benchmarks examples conftest.py
 	$(BIN)/mypy
 	$(BIN)/lint-imports --no-cache
 
