@@ -3,7 +3,7 @@ against the bare Ed25519 verify rate, measured in one run.
 
 Jobs run on the shipped recording backend (a fast stand-in device; the runs are invented)
 through the real worker: sealed, logged in group commits with a signed checkpoint per
-commit. Then ``verify_jobs`` checks every envelope signature and subject digest against
+commit. Then ``Keeper.verify`` checks every envelope signature and subject digest against
 the stored counts, every checkpoint's signature and root, and consistency; the bare rate is
 ``Ed25519PublicKey.verify`` over the same envelopes' signatures. Target ratio ≥ 0.5.
 """
@@ -18,7 +18,6 @@ import time
 from pathlib import Path
 
 from jobkeeper import Keeper
-from jobkeeper.audit.verification import verify_jobs
 from jobkeeper.provenance import pae
 from jobkeeper.provenance.keys import load_public_key
 
@@ -49,7 +48,7 @@ def main() -> None:
             entries = keeper.store.log_entries()
             checkpoints = len(keeper.store.checkpoints())
             start = time.perf_counter()
-            report = verify_jobs(keeper)
+            report = keeper.verify()
             verify_s = time.perf_counter() - start
             assert report.ok, report.problems[:5]
             keys = {fp: load_public_key(base64.b64decode(k))

@@ -47,18 +47,16 @@ STAYING_TARGET = 0.7
 
 
 def _jobs(n: int) -> list[Any]:
+    from jobkeeper.spec import JobSpec
     from jobkeeper.store import NewJob
 
+    spec = JobSpec(circuit_text="bench", circuit_hash="", backend="bench", shots=100, seed=1)
     return [
         NewJob(
             id=uuid.uuid4().hex,
             job_key=f"sha256:{uuid.uuid4().hex}",
-            backend="bench",
-            shots=100,
-            seed=None,
-            repeat=0,
+            spec=spec,
             labels=("bench",),
-            spec={"circuit": "bench"},
             max_attempts=3,
         )
         for _ in range(n)

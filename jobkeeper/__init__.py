@@ -5,7 +5,11 @@ The public API (also listed in ``__all__`` and checked by tests/unit/test_public
     from jobkeeper import Keeper
     keeper = Keeper.open(".jobkeeper")
     job = keeper.run("bell.qasm", shots=1000, seed=7)
-    job.counts
+    job.counts, job.spec.seed
+
+Everything the command line does is a method of :class:`Keeper`: ``submit``, ``run``,
+``work``, ``jobs``, ``job``, ``wait``, ``cancel``, ``check``, ``rerun``, ``compare``,
+``verify``, ``verify_bundle``, ``bundle``, ``keys``, ``trust`` and ``export``.
 """
 
 from __future__ import annotations
@@ -29,6 +33,7 @@ from jobkeeper.exceptions import (
 )
 
 if TYPE_CHECKING:
+    from jobkeeper.audit.judging import Judgement
     from jobkeeper.backend import (
         Backend,
         BackendInfo,
@@ -39,7 +44,11 @@ if TYPE_CHECKING:
         Started,
         Task,
     )
-    from jobkeeper.keeper import Job, Keeper, Submitted
+    from jobkeeper.job import Job, Submitted
+    from jobkeeper.keeper import Keeper
+    from jobkeeper.options import SubmitOptions
+    from jobkeeper.preflight import PreflightReport
+    from jobkeeper.provenance import VerifyReport
     from jobkeeper.spec import JobSpec, job_key
 
 # Imported on first use (PEP 562): `import jobkeeper` (which every command line run does)
@@ -53,9 +62,13 @@ _LAZY = {
     "Result": "jobkeeper.backend",
     "Started": "jobkeeper.backend",
     "Task": "jobkeeper.backend",
-    "Job": "jobkeeper.keeper",
+    "Job": "jobkeeper.job",
+    "Judgement": "jobkeeper.audit.judging",
     "Keeper": "jobkeeper.keeper",
-    "Submitted": "jobkeeper.keeper",
+    "PreflightReport": "jobkeeper.preflight",
+    "Submitted": "jobkeeper.job",
+    "SubmitOptions": "jobkeeper.options",
+    "VerifyReport": "jobkeeper.provenance",
     "JobSpec": "jobkeeper.spec",
     "job_key": "jobkeeper.spec",
 }
@@ -85,19 +98,23 @@ __all__ = [
     "JobFailed",
     "JobSpec",
     "JobkeeperError",
+    "Judgement",
     "Keeper",
     "LocalBackend",
     "PermanentBackendError",
     "Polled",
+    "PreflightReport",
     "Pricing",
     "ProvenanceError",
     "Result",
     "Started",
     "StoreError",
+    "SubmitOptions",
     "Submitted",
     "Task",
     "TransientBackendError",
     "VerificationError",
+    "VerifyReport",
     "__version__",
     "job_key",
 ]

@@ -1,160 +1,64 @@
-"""The Python API: :class:`Keeper` (one keep) and :class:`Job` (one job in it).
-
-Everything the command line does goes through here, so a notebook can do it too::
+"""The Python API: :class:`Keeper`, one keep. Everything the command line does goes
+through here, so a notebook can do it too::
 
     from jobkeeper import Keeper
     keeper = Keeper.open(".jobkeeper")
     job = keeper.run("bell.qasm", shots=1000, seed=7)
-    job.counts
+    job.counts, job.spec.seed
+
+Options are checked once, by :class:`~jobkeeper.options.SubmitOptions`, whether they come
+from here or from the command line.
 """
 
 from __future__ import annotations
 
 import asyncio
-import concurrent.futures
-import json
 import os
-import time
 import uuid
-from collections.abc import Callable, Coroutine, Mapping, Sequence
-from dataclasses import dataclass
+from collections.abc import Callable, Iterable, Mapping, Sequence
 from pathlib import Path
-from typing import TYPE_CHECKING, Any, TypeAlias, TypeVar
+from typing import TYPE_CHECKING, Any, TypeAlias, Unpack
 
 from jobkeeper.config import (
     ARCHIVE_NAME,
     CONFIG_NAME,
-    CONFIG_TEMPLATE,
     DEFAULT_KEEP,
     KEYS_DIR,
     KeepConfig,
+    backend_configs,
+    config_text,
+    create_keep_dir,
     load_config,
+    write_config,
 )
-from jobkeeper.exceptions import (
-    BudgetExceeded,
-    ConfigError,
-    JobFailed,
-    JobkeeperError,
-    StoreUnavailable,
-)
-from jobkeeper.provenance.keys import KeyRing
-from jobkeeper.queue import DEFAULT_LEASE, TERMINAL_STATES, LeasePolicy, RetryPolicy
-from jobkeeper.store import (
-    Attempt,
-    JobRecord,
-    LogEntry,
-    NewJob,
-    Store,
-    StoredResult,
-    open_store,
-)
+from jobkeeper.exceptions import ConfigError, JobkeeperError, StoreUnavailable
+from jobkeeper.job import Job, Submitted, wait_for
+from jobkeeper.provenance.keys import KeyRing, PublicKeyRecord
+from jobkeeper.queue import TERMINAL_STATES
+from jobkeeper.store import NewJob, Store, open_store
 
 # Signing, simulating and parsing load numpy, cryptography and the backends: imported
 # where they are used, so that opening a keep to read it (`jobkeeper jobs`) stays quick.
 if TYPE_CHECKING:
+    from jobkeeper.audit.judging import Judgement
     from jobkeeper.audit.sealing import Sealer
     from jobkeeper.audit.trust import KeepTrust
     from jobkeeper.backend import Backend, BackendInfo
     from jobkeeper.circuit import Circuit
+    from jobkeeper.options import SubmitFields, SubmitOptions
+    from jobkeeper.preflight import PreflightReport
+    from jobkeeper.provenance import VerifyReport
+    from jobkeeper.queue import RetryPolicy
     from jobkeeper.store.export import ExportSummary
-    from jobkeeper.worker import Worker, WorkerStats
+    from jobkeeper.worker import Worker, WorkerSettings, WorkerStats
 
-T = TypeVar("T")
 CircuitInput: TypeAlias = "str | os.PathLike[str] | Circuit"
 
 
-def _config_text(store: str | None) -> str:
-    """A new keep's config.toml; a store URL given at creation is remembered there, so
-    later commands need no --store (a URL holding a password is not written down)."""
-    if store is None:
-        return CONFIG_TEMPLATE
-    from urllib.parse import urlsplit
+def _options(options: SubmitOptions | None, fields: SubmitFields) -> SubmitOptions:
+    from jobkeeper.options import SubmitOptions
 
-    if urlsplit(store).password:
-        return CONFIG_TEMPLATE.replace(
-            "# jobkeeper keep configuration.",
-            "# jobkeeper keep configuration. Its store URL holds a password, so it is not\n"
-            "# written here: pass --store or set JOBKEEPER_STORE (or use ~/.pgpass).\n#",
-        )
-    return f"store = {json.dumps(store)}\n\n" + CONFIG_TEMPLATE
-
-
-def run_coroutine(coro: Coroutine[Any, Any, T]) -> T:
-    """Run a coroutine to the end, also from inside a running event loop (a notebook):
-    there it runs on a fresh loop in a helper thread."""
-    try:
-        asyncio.get_running_loop()
-    except RuntimeError:
-        return asyncio.run(coro)
-    with concurrent.futures.ThreadPoolExecutor(max_workers=1) as pool:
-        return pool.submit(asyncio.run, coro).result()
-
-
-@dataclass(frozen=True)
-class Submitted:
-    """What ``submit`` did with one job: created it, or found it already there."""
-
-    job: Job
-    deduplicated: bool
-
-
-class Job:
-    """A job in a keep. Attributes read the archive afresh after :meth:`refresh`."""
-
-    def __init__(self, keeper: Keeper, record: JobRecord) -> None:
-        self._keeper = keeper
-        self.record = record
-
-    def __repr__(self) -> str:
-        return f"<Job {self.id[:12]} {self.state} on {self.record.backend}>"
-
-    @property
-    def id(self) -> str:
-        return self.record.id
-
-    @property
-    def state(self) -> str:
-        return self.record.state
-
-    def refresh(self) -> Job:
-        self.record = self._keeper.store.get(self.id)
-        return self
-
-    def wait(self, timeout: float | None = None, *, poll: float = 0.2) -> Job:
-        """Block until the job ends (a worker must be running, or use ``Keeper.run``);
-        raises TimeoutError after ``timeout`` seconds and JobFailed if it failed."""
-        self._keeper.wait([self.id], timeout=timeout, poll=poll)
-        self.refresh()
-        if self.state != "done":
-            raise JobFailed(f"job {self.id[:12]} ended {self.state}: {self.record.error or ''}")
-        return self
-
-    @property
-    def result(self) -> StoredResult | None:
-        return self._keeper.store.result(self.id)
-
-    @property
-    def counts(self) -> dict[str, int]:
-        """The counts of a done job (bit string → shots)."""
-        result = self.result
-        if result is None:
-            raise JobFailed(f"job {self.id[:12]} is {self.refresh().state}: no counts yet")
-        return dict(result.counts or {})
-
-    @property
-    def probabilities(self) -> dict[str, float] | None:
-        result = self.result
-        return (
-            None if result is None or result.probabilities is None else dict(result.probabilities)
-        )
-
-    @property
-    def attempts(self) -> list[Attempt]:
-        return self._keeper.store.attempts(self.id)
-
-    @property
-    def log_entry(self) -> LogEntry | None:
-        return self._keeper.store.log_entry_for(self.id)
+    return SubmitOptions.of(options, **fields)
 
 
 class Keeper:
@@ -180,12 +84,12 @@ class Keeper:
         if not keep.exists():
             if not create:
                 raise StoreUnavailable(f"no keep at {keep} (run 'jobkeeper init' first)")
-            cls._create_dir(keep)
+            create_keep_dir(keep)
         elif not keep.is_dir():
             raise ConfigError(f"{keep} is not a directory")
         config = load_config(keep)
         if not (keep / CONFIG_NAME).exists() and create:
-            cls._write(keep / CONFIG_NAME, _config_text(store))
+            write_config(keep / CONFIG_NAME, config_text(store))
             config = load_config(keep)
         location = store or config.store or str(keep / ARCHIVE_NAME)
         if not create and not location.startswith("postgres") and not Path(location).exists():
@@ -208,23 +112,6 @@ class Keeper:
         if the_store.get_meta("origin") is None:
             the_store.ensure_meta("origin", f"jobkeeper/{uuid.uuid4().hex[:16]}")
         return keeper
-
-    @staticmethod
-    def _create_dir(keep: Path) -> None:
-        try:
-            keep.mkdir(parents=True, exist_ok=True)
-            probe = keep / ".write-test"
-            probe.write_text("")
-            probe.unlink()
-        except OSError as exc:
-            raise ConfigError(f"cannot write the keep directory {keep}: {exc.strerror}") from exc
-
-    @staticmethod
-    def _write(path: Path, text: str) -> None:
-        try:
-            path.write_text(text, encoding="utf-8")
-        except OSError as exc:
-            raise ConfigError(f"cannot write {path}: {exc.strerror}") from exc
 
     def _register_keys(self) -> None:
         import base64
@@ -253,16 +140,7 @@ class Keeper:
     def backend_configs(self) -> dict[str, dict[str, Any]]:
         from jobkeeper.backends import DEFAULT_BACKENDS
 
-        configs = {name: dict(cfg) for name, cfg in DEFAULT_BACKENDS.items()}
-        configs.update({name: dict(cfg) for name, cfg in self.config.backends.items()})
-        for cfg in configs.values():
-            # A profile given as a relative path means relative to the keep, not to
-            # wherever the command happens to run.
-            profile = cfg.get("profile")
-            if isinstance(profile, str) and profile.endswith(".toml"):
-                path = Path(profile).expanduser()
-                cfg["profile"] = str(path if path.is_absolute() else self.path.resolve() / path)
-        return configs
+        return backend_configs(self.config, self.path, DEFAULT_BACKENDS)
 
     def backend(self, name: str) -> Backend:
         """The backend called ``name`` (built in, or declared in config.toml)."""
@@ -307,7 +185,7 @@ class Keeper:
         return {**config, "noise_snapshot": snapshot}
 
     def _latest_calibration(self, source: str) -> dict[str, Any] | None:
-        done = [job for job in self.store.list_jobs(state="done") if job.backend == source]
+        done = [job for job in self.store.list_jobs(state="done") if job.spec.backend == source]
         for job in sorted(done, key=lambda j: j.finished_at or 0.0, reverse=True):
             result = self.store.result(job.id)
             snapshot = None if result is None else result.metadata.get("calibration")
@@ -329,6 +207,8 @@ class Keeper:
             finally:
                 await backend.aclose()
 
+        from jobkeeper.worker import run_coroutine
+
         snapshot = run_coroutine(fetch())
         return dict(snapshot) if isinstance(snapshot, Mapping) else None
 
@@ -349,99 +229,71 @@ class Keeper:
             return load_qasm(Path(circuit))
         return parse_qasm(circuit)
 
-    def submit(self, circuit: CircuitInput, **options: Any) -> Job:
-        """Queue one job (see :meth:`submit_many` for the options)."""
-        return self.submit_many([circuit], **options)[0].job
+    def check(self, circuit: CircuitInput, **fields: Unpack[SubmitFields]) -> PreflightReport:
+        """Before spending: does the circuit fit the backend, its metrics, the estimated
+        cost, device time and chance of an error-free run (nothing is queued)."""
+        from jobkeeper.preflight import preflight
+
+        options = _options(None, fields)
+        name = options.backend or self.config.defaults.backend
+        shots = options.shots or self.config.defaults.shots
+        label = str(circuit) if isinstance(circuit, (str, os.PathLike)) else "<circuit>"
+        return preflight(self.load_circuit(circuit), self.backend(name), name=name,
+                         shots=shots, source=label)  # fmt: skip
+
+    def submit(self, circuit: CircuitInput, /, **fields: Unpack[SubmitFields]) -> Job:
+        """Queue one job (the options are those of :class:`SubmitOptions`)."""
+        return self.submit_many([circuit], **fields)[0].job
 
     def submit_many(
-        self,
-        circuits: Sequence[CircuitInput],
-        *,
-        backend: str | None = None,
-        shots: int | None = None,
-        seed: int | None = None,
-        label: str | None = None,
-        repeat: int = 0,
-        exact: bool = False,
-        options: Mapping[str, Any] | None = None,
-        over_budget: bool = False,
-        code_dir: str | os.PathLike[str] | None = None,
-        rerun_of: str | None = None,
-    ) -> list[Submitted]:
+        self, circuits: Sequence[CircuitInput], options: SubmitOptions | None = None, /,
+        **fields: Unpack[SubmitFields],
+    ) -> list[Submitted]:  # fmt: skip
         """Queue jobs in one transaction. A job whose key is already done or queued is not
         queued again: the existing job comes back with ``deduplicated=True``."""
+        return self._submit(circuits, _options(options, fields))
+
+    def _submit(
+        self, circuits: Sequence[CircuitInput], options: SubmitOptions,
+        rerun_of: str | None = None,
+    ) -> list[Submitted]:  # fmt: skip
         from jobkeeper.circuit import canonical_text
         from jobkeeper.hashing import sha256_tag
         from jobkeeper.provenance.manifest import git_code_version
         from jobkeeper.spec import JobSpec, job_key
 
-        name = backend or self.config.defaults.backend
-        the_backend = self.backend(name)
-        info = the_backend.info
-        shots = self.config.defaults.shots if shots is None else shots
-        if shots <= 0:
-            raise ConfigError(f"shots must be a positive whole number, got {shots}")
+        name = options.backend or self.config.defaults.backend
+        info = self.backend(name).info
+        shots = options.shots or self.config.defaults.shots
         if shots > info.max_shots:
             raise ConfigError(f"backend {name} allows at most {info.max_shots} shots, got {shots}")
-        code_version = git_code_version(Path(code_dir) if code_dir else Path.cwd())
+        code_version = git_code_version(Path(options.code_dir or Path.cwd()))
+        cost = info.pricing.cost(shots) if info.pricing is not None else None
         new_jobs: list[NewJob] = []
         for item in circuits:
             circuit = self.load_circuit(item)
-            spec = JobSpec(
-                circuit=circuit, backend=name, shots=shots, seed=seed, repeat=repeat,
-                exact=exact, options=dict(options or {}), rerun_of=rerun_of,
-            )  # fmt: skip
             text = canonical_text(circuit)
-            chash = sha256_tag(text.encode("utf-8"))  # circuit_hash, without writing it twice
-            key = job_key(spec, circuit_hash=chash, backend_config_hash=info.config_hash)
-            cost = info.pricing.cost(shots) if info.pricing is not None else None
+            spec = JobSpec.new(
+                circuit_text=text, circuit_hash=sha256_tag(text.encode("utf-8")), backend=name,
+                shots=shots, seed=options.seed, repeat=options.repeat, exact=options.exact,
+                options=options.backend_options, source_hash=circuit.source_hash,
+                source_name=circuit.source_name, code_version=code_version, rerun_of=rerun_of,
+            )  # fmt: skip
             new_jobs.append(
                 NewJob(
                     id=uuid.uuid4().hex,
-                    job_key=key,
-                    backend=name,
-                    shots=shots,
-                    seed=None if seed is None else str(seed),
-                    repeat=repeat,
-                    labels=() if label is None else (label,),
-                    spec={
-                        "circuit": text,
-                        "circuitHash": chash,
-                        "sourceHash": circuit.source_hash,
-                        "sourceName": circuit.source_name,
-                        "exact": exact,
-                        "options": dict(options or {}),
-                        "codeVersion": code_version,
-                        "rerunOf": rerun_of,
-                    },
-                    max_attempts=self.config.defaults.max_attempts,
+                    spec=spec,
+                    labels=tuple(sorted(options.labels)),
                     cost=cost,
+                    job_key=job_key(spec, backend_config_hash=info.config_hash),
+                    max_attempts=self.config.defaults.max_attempts,
                 )
             )
-        if not over_budget:
-            self.check_budget(sum(job.cost or 0.0 for job in new_jobs), label)
+        if not options.over_budget:
+            cost = sum(job.cost or 0.0 for job in new_jobs)
+            self.config.budget.check(cost, options.labels, self.store.spent)
         results = self.store.enqueue(new_jobs)
-        return [Submitted(Job(self, record), not created) for record, created in results]
-
-    def check_budget(self, cost: float, label: str | None) -> None:
-        """Refuse (BudgetExceeded) a cost that would pass the keep-wide or label cap."""
-        if cost <= 0:
-            return
-        caps: list[tuple[str, float, float]] = []
-        if self.config.budget.total is not None:
-            caps.append(("the keep's budget", self.config.budget.total, self.store.spent()))
-        if label is not None and label in self.config.budget.labels:
-            caps.append(
-                (f"the budget of label {label!r}", self.config.budget.labels[label],
-                 self.store.spent(label))
-            )  # fmt: skip
-        for what, cap, spent in caps:
-            left = cap - spent
-            if cost > left + 1e-12:
-                raise BudgetExceeded(
-                    f"this submission would cost {cost:.4g} but {what} has {max(left, 0):.4g} "
-                    f"left of {cap:.4g}; nothing was queued (use --over-budget to submit anyway)"
-                )
+        return [Submitted(Job(self.store, record), not created) for record, created in results]
 
     # -- running --------------------------------------------------------------------------
 
@@ -451,83 +303,83 @@ class Keeper:
         origin = self.store.get_meta("origin") or "jobkeeper"
         return Sealer(self.keyring.load_active(), origin=origin)
 
-    def worker(self, **options: Any) -> Worker:
-        """A worker draining this keep; options as for :class:`~jobkeeper.worker.Worker`
-        (retry and poll policies default to the keep's config.toml)."""
+    def worker(self, **settings: Unpack[WorkerSettings]) -> Worker:
+        """A worker draining this keep (retry and poll policies default to the keep's
+        config.toml)."""
         from jobkeeper.worker import Worker
 
-        options.setdefault("retry", self.config.retry)
-        options.setdefault("poll", self.config.poll)
+        settings.setdefault("retry", self.config.retry)
+        settings.setdefault("poll", self.config.poll)
         return Worker(
-            store=self.store, resolve_backend=self.backend, sealer=self.sealer(), **options
+            store=self.store, resolve_backend=self.backend, sealer=self.sealer(), **settings
         )
 
     def work(
-        self,
-        *,
-        once: bool = False,
-        install_signals: bool = False,
-        announce: Callable[[str], None] | None = None,
-        **options: Any,
-    ) -> WorkerStats:
-        """Run a worker on this keep until stopped (or, with ``once``, drained)."""
-        worker = self.worker(**options)
-        return run_coroutine(
-            worker.run(once=once, install_signals=install_signals, announce=announce)
-        )
+        self, *, once: bool = False, timeout: float | None = None,
+        install_signals: bool = False, announce: Callable[[str], None] | None = None,
+        **settings: Unpack[WorkerSettings],
+    ) -> WorkerStats:  # fmt: skip
+        """Run a worker on this keep until stopped (or, with ``once``, drained); with a
+        ``timeout``, it stops claiming after that many seconds and hands back what is left."""
+        from jobkeeper.options import positive_seconds
+        from jobkeeper.worker import run_coroutine
 
-    def run(self, circuit: CircuitInput, **options: Any) -> Job:
+        limit = positive_seconds(timeout)
+        worker = self.worker(**settings)
+
+        async def drive() -> WorkerStats:
+            if limit is not None:
+                asyncio.get_running_loop().call_later(limit, worker.request_stop)
+            return await worker.run(once=once, install_signals=install_signals,
+                                    announce=announce)  # fmt: skip
+
+        return run_coroutine(drive())
+
+    def run(self, circuit: CircuitInput, /, **fields: Unpack[SubmitFields]) -> Job:
         """Submit one job and run it here and now (inline, no separate worker)."""
-        return self.run_many([circuit], **options)[0].job
+        return self.run_many([circuit], **fields)[0].job
 
     def run_many(
-        self,
-        circuits: Sequence[CircuitInput],
-        *,
-        lease: LeasePolicy = DEFAULT_LEASE,
-        retry: RetryPolicy | None = None,
-        **options: Any,
-    ) -> list[Submitted]:
-        submitted = self.submit_many(circuits, **options)
+        self, circuits: Sequence[CircuitInput], options: SubmitOptions | None = None, /, *,
+        retry: RetryPolicy | None = None, **fields: Unpack[SubmitFields],
+    ) -> list[Submitted]:  # fmt: skip
+        """Submit jobs and run them here; ``timeout`` bounds the wait (jobs not ended by
+        then stay queued for a worker); ``retry`` overrides the keep's retry policy."""
+        return self._run(circuits, _options(options, fields), retry=retry)
+
+    def _run(
+        self, circuits: Sequence[CircuitInput], options: SubmitOptions, *,
+        rerun_of: str | None = None, retry: RetryPolicy | None = None,
+    ) -> list[Submitted]:  # fmt: skip
+        submitted = self._submit(circuits, options, rerun_of)
         pending = [s.job.id for s in submitted if s.job.state not in TERMINAL_STATES]
         if pending:
-            extra: dict[str, Any] = {"retry": retry} if retry is not None else {}
-            self.work(once=True, ids=pending, local_executor="thread", lease=lease,
-                      idle_sleep=0.05, **extra)  # fmt: skip
+            self.work(once=True, timeout=options.timeout, ids=pending, local_executor="thread",
+                      idle_sleep=0.05, retry=retry or self.config.retry)  # fmt: skip
         for item in submitted:
             item.job.refresh()
         return submitted
 
     def wait(
-        self,
-        ids: Sequence[str],
-        *,
-        timeout: float | None = None,
-        poll: float = 0.2,
+        self, ids: Sequence[str], *, timeout: float | None = None, poll: float = 0.2,
         progress: Callable[[int, int], None] | None = None,
-    ) -> list[JobRecord]:
-        """Block until every job has ended; ``progress(ended, total)`` is told as they do."""
-        deadline = None if timeout is None else time.monotonic() + timeout
-        while True:
-            records = self.store.get_many(list(ids))
-            ended = sum(record.state in TERMINAL_STATES for record in records)
-            if progress is not None:
-                progress(ended, len(records))
-            if ended == len(records):
-                return records
-            if deadline is not None and time.monotonic() > deadline:
-                raise TimeoutError(f"{len(records) - ended} of {len(records)} jobs still running")
-            time.sleep(poll)
+    ) -> list[Job]:  # fmt: skip
+        """Block until every job has ended; ``progress(ended, total)`` is told as they do.
+        TimeoutError after ``timeout`` seconds."""
+        records = wait_for(self.store, ids, timeout=timeout, poll=poll, progress=progress)
+        return [Job(self.store, record) for record in records]
 
     # -- reading --------------------------------------------------------------------------
 
     def job(self, id_or_prefix: str) -> Job:
-        return Job(self, self.store.get(id_or_prefix))
+        return Job(self.store, self.store.get(id_or_prefix))
 
     def jobs(
         self, *, label: str | None = None, state: str | None = None, limit: int | None = None
     ) -> list[Job]:
-        return [Job(self, r) for r in self.store.list_jobs(label=label, state=state, limit=limit)]
+        return [
+            Job(self.store, r) for r in self.store.list_jobs(label=label, state=state, limit=limit)
+        ]
 
     def export(
         self, path: str | os.PathLike[str], *, label: str | None = None, force: bool = False
@@ -558,4 +410,95 @@ class Keeper:
         record = self.store.get(id_or_prefix)
         if record.state in TERMINAL_STATES:
             raise JobkeeperError(f"job {record.id[:12]} has already ended ({record.state})")
-        return Job(self, self.store.request_cancel(record.id))
+        return Job(self.store, self.store.request_cancel(record.id))
+
+    # -- proof and judgement --------------------------------------------------------------
+
+    def keys(self) -> list[PublicKeyRecord]:
+        """The keep's public signing keys: the active one first, then earlier ones (still
+        trusted for the entries they signed). ``Keeper.trust`` rotates and trusts keys."""
+        active = self.keyring.active_record()
+        return [active] + [
+            r for r in self.keyring.public_keys() if r.fingerprint != active.fingerprint
+        ]
+
+    def manifest(self, job: Job | str) -> dict[str, Any]:
+        """A done job's signed in-toto Statement, verified against the keys trusted here
+        (VerificationError if it does not verify)."""
+        from jobkeeper.audit.judging import verified_manifest
+
+        return verified_manifest(self.store, self._job(job).record, self.trust.load().keys)
+
+    def verify(
+        self, ids: Sequence[str] | None = None, *, trusted: Iterable[str] | None = None,
+        integrity_only: bool = False,
+    ) -> VerifyReport:  # fmt: skip
+        """Verify the whole log and the named jobs (every done job when ``ids`` is None):
+        integrity, and that every signer is trusted here (``trusted``: only these key
+        fingerprints; ``integrity_only``: skip the trust check)."""
+        from jobkeeper.audit.verification import verify_jobs
+
+        wanted = None if ids is None else [self.job(i).id for i in ids]
+        return verify_jobs(self, wanted, trusted=trusted, integrity_only=integrity_only)
+
+    @staticmethod
+    def verify_bundle(
+        path: str | os.PathLike[str], *, trusted: Iterable[str] | None = None,
+        integrity_only: bool = False,
+    ) -> VerifyReport:  # fmt: skip
+        """Verify a bundle file offline (no keep needed), against the pinned ``trusted``
+        fingerprints."""
+        from jobkeeper.audit.verification import verify_bundle_file
+
+        return verify_bundle_file(Path(path), trusted=trusted, integrity_only=integrity_only)
+
+    def bundle(
+        self, path: str | os.PathLike[str], ids: Sequence[str] = (), *, label: str | None = None
+    ) -> int:
+        """Write the named done jobs, and those with ``label``, to one bundle file that a
+        referee verifies offline; returns how many jobs it holds."""
+        from jobkeeper.audit.verification import export_bundle
+
+        if label is None and not ids:
+            raise ConfigError("give job ids or a label")
+        chosen = {self.job(i).id for i in ids}
+        if label is not None:
+            chosen |= {job.id for job in self.jobs(label=label, state="done")}
+        if not chosen:
+            raise ConfigError(f"no done job with label {label!r}")
+        return export_bundle(self, sorted(chosen), Path(path))
+
+    def rerun(
+        self, job: Job | str, *, backend: str | None = None, seed: int | None = None,
+        alpha: float = 0.01,
+    ) -> Judgement:  # fmt: skip
+        """Run a job again from its signed manifest alone, then judge the two results."""
+        from jobkeeper.audit.judging import check_alpha, judge_rerun, rerun_plan
+
+        check_alpha(alpha)
+        original = self._job(job).record
+        plan = rerun_plan(self.store, original, self.trust.load().keys, backend=backend, seed=seed)
+        again = self._run([plan.circuit_text], plan.options, rerun_of=original.id)[0].job
+        deterministic = self.backend(plan.options.backend or "").info.deterministic
+        return judge_rerun(self.store, self.sealer(), plan, original, again.record,
+                           deterministic_backend=deterministic, alpha=alpha)  # fmt: skip
+
+    def compare(
+        self, a: Job | str, b: Job | str | None = None, *, ideal: bool = False,
+        alpha: float = 0.01,
+    ) -> Judgement:  # fmt: skip
+        """Are two jobs' counts consistent with one distribution, or (``ideal``) a job's
+        with its circuit's exact noiseless distribution? Archived, signed and logged."""
+        from jobkeeper.audit.judging import check_alpha, compare_ideal, compare_jobs
+
+        check_alpha(alpha)
+        if (b is None) != ideal:
+            raise ConfigError("compare two jobs, or one job with its ideal distribution")
+        first = self._job(a).record
+        if b is None:
+            keys = self.trust.load().keys
+            return compare_ideal(self.store, self.sealer(), first, keys, alpha=alpha)
+        return compare_jobs(self.store, self.sealer(), first, self._job(b).record, alpha=alpha)
+
+    def _job(self, job: Job | str) -> Job:
+        return job if isinstance(job, Job) else self.job(job)

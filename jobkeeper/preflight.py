@@ -5,15 +5,12 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
-from pathlib import Path
-from typing import TYPE_CHECKING, Any
+from typing import Any
 
-from jobkeeper.circuit import CircuitMetrics, circuit_hash, load_qasm, metrics
+from jobkeeper.backend import Backend
+from jobkeeper.circuit import Circuit, CircuitMetrics, circuit_hash, metrics
 from jobkeeper.circuit.ir import NON_GATE_OPERATIONS
 from jobkeeper.exceptions import CircuitError
-
-if TYPE_CHECKING:
-    from jobkeeper.keeper import Keeper
 
 #: Below this estimated probability of an error-free run, results are mostly noise.
 NOISE_WARNING = 0.01
@@ -116,16 +113,14 @@ def _prob(report: PreflightReport) -> str:
 
 
 def preflight(
-    keeper: Keeper, file: Path, *, backend: str | None = None, shots: int | None = None
+    circuit: Circuit, the_backend: Backend, *, name: str, shots: int, source: str
 ) -> PreflightReport:
-    circuit = load_qasm(file)
-    name = backend or keeper.config.defaults.backend
-    the_backend = keeper.backend(name)
+    """What ``check`` reports for ``circuit`` (read from ``source``) on a backend, for
+    ``shots`` already validated (:class:`~jobkeeper.options.SubmitOptions`)."""
     info = the_backend.info
     m = metrics(circuit)
-    shots = shots or keeper.config.defaults.shots
     report = PreflightReport(
-        file=str(file), circuit_hash=circuit_hash(circuit), backend=name, metrics=m,
+        file=source, circuit_hash=circuit_hash(circuit), backend=name, metrics=m,
         fits=True, shots=shots,
     )  # fmt: skip
     plan = getattr(the_backend, "simulation_plan", None)
@@ -137,7 +132,7 @@ def preflight(
                 f"refused: {circuit.num_qubits} qubits on {name} ({report.simulation['method']}) "
                 f"need {_bytes(needed)} ({report.simulation['memory_arithmetic']}), more than "
                 f"the {_bytes(available)} available",
-                file=str(file),
+                file=source,
             )
     if circuit.num_qubits > info.max_qubits:
         report.problems.append(

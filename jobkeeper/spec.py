@@ -1,59 +1,112 @@
-"""What to run (:class:`JobSpec`) and its job key.
+"""What to run (:class:`JobSpec`), its job key, and the seed it runs with.
+
+A :class:`JobSpec` is made once, when a job is submitted (from validated
+:class:`~jobkeeper.options.SubmitOptions`), and archived with the job; the worker builds
+its task from it, the sealer signs it, and every reader shows it. It is never rebuilt from
+the user's files.
+
+The seed is resolved once, at submission (:func:`resolve_seed`), and kept as an integer in
+``JobSpec.seed``: it is what the backend is given, what the manifest records and what
+every command prints. Repeat 0 runs with the user's seed as given; a later repeat with a
+fixed seed must still be a new sample, so its seed is derived from the pair (seed, repeat),
+reproducibly; a job submitted without a seed gets a fresh random one. A restarted job runs
+with the stored seed, so running it again after a crash cannot give a different answer.
 
 The job key is what deduplication rests on: ``sha256:`` of the RFC 8785 canonical JSON of
-everything that can change a result — the circuit hash, the backend's name and the hash of
-its configuration, shots, seed (as a string: RFC 8785 refuses integers above 2^53−1),
-repeat index, exact flag and backend options. Two submissions with the same key are the
-same job; a user who wants another sample asks for it with a new repeat index.
-
-``key_version`` leaves room for later fields (parameterised circuits, sweeps): a new field
-joins the key under a new version, so keys made before it keep their meaning.
+everything the user asked for that can change a result — the circuit hash, the backend's
+name and the hash of its configuration, shots, the seed *as given* (``None`` when none was
+given, so a resubmission without a seed finds the same job; as a string, because RFC 8785
+refuses integers above 2^53−1), repeat index, exact flag and backend options.
+``key_version`` leaves room for later fields: a new field joins the key under a new
+version, so keys made before it keep their meaning.
 """
 
 from __future__ import annotations
 
+import secrets
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from typing import Any
 
-from jobkeeper.circuit.ir import Circuit
-from jobkeeper.exceptions import ConfigError
 from jobkeeper.hashing import digest_of
 
 KEY_VERSION = 1
+#: A seed must fit a signed 64-bit integer wherever a device stores it.
+SEED_BITS = 63
 
 
-@dataclass(frozen=True)
+def _derived_seed(document: Mapping[str, Any]) -> int:
+    """63 bits of the SHA-256 of a document's canonical JSON: a reproducible seed."""
+    return int(digest_of(document).removeprefix("sha256:")[:16], 16) >> (64 - SEED_BITS)
+
+
+def resolve_seed(requested: int | None, repeat: int) -> int:
+    """The seed a job runs with, given the seed the user asked for (if any)."""
+    if requested is None:
+        return secrets.randbits(SEED_BITS)
+    if repeat == 0:
+        return requested
+    return _derived_seed({"seed": str(requested), "repeat": repeat})
+
+
+def _archived_seed(requested: int | None, repeat: int, job_key: str) -> int:
+    """The seed of a job archived before seeds were resolved at submission: such a job
+    without a seed ran (or will run) with one derived from its job key, as it always did."""
+    if requested is None:
+        return _derived_seed({"jobKey": job_key})
+    return resolve_seed(requested, repeat)
+
+
+@dataclass(frozen=True, slots=True)
 class JobSpec:
-    """One job: a circuit on a backend with shots, seed, repeat index and options."""
+    """One job as archived: a circuit (canonical text and hash) on a backend, with shots,
+    the seed it runs with, repeat index, exact flag and backend options, plus where it came
+    from (source file hash and name, the user's code version) and, for a rerun, the job it
+    re-executes."""
 
-    circuit: Circuit
+    circuit_text: str
+    circuit_hash: str
     backend: str
     shots: int
-    seed: int | None = None
+    #: the seed the backend is given, resolved at submission (see :func:`resolve_seed`)
+    seed: int
+    #: the seed the user asked for; None when none was given (part of the job key)
+    requested_seed: int | None = None
     repeat: int = 0
     exact: bool = False
     options: Mapping[str, Any] = field(default_factory=dict)
-    #: the job this one re-executes (``jobkeeper rerun``): a rerun must run, not dedup.
+    source_hash: str | None = None
+    source_name: str | None = None
+    code_version: Mapping[str, Any] | None = None
+    #: the job this one re-executes (``rerun``): a rerun must run, not deduplicate.
     rerun_of: str | None = None
 
-    def __post_init__(self) -> None:
-        if self.shots <= 0:
-            raise ConfigError(f"shots must be a positive whole number, got {self.shots}")
-        if self.seed is not None and not 0 <= self.seed < 2**63:
-            raise ConfigError(f"seed must be a whole number from 0 to 2^63-1, got {self.seed}")
-        if self.repeat < 0:
-            raise ConfigError(f"repeat must be zero or positive, got {self.repeat}")
+    @classmethod
+    def new(
+        cls, *, circuit_text: str, circuit_hash: str, backend: str, shots: int,
+        seed: int | None = None, repeat: int = 0, exact: bool = False,
+        options: Mapping[str, Any] | None = None, source_hash: str | None = None,
+        source_name: str | None = None, code_version: Mapping[str, Any] | None = None,
+        rerun_of: str | None = None,
+    ) -> JobSpec:  # fmt: skip
+        """A job being submitted: ``seed`` is what the user asked for (or None), and the
+        seed the job runs with is resolved here, once."""
+        return cls(
+            circuit_text=circuit_text, circuit_hash=circuit_hash, backend=backend, shots=shots,
+            seed=resolve_seed(seed, repeat), requested_seed=seed, repeat=repeat, exact=exact,
+            options=dict(options or {}), source_hash=source_hash, source_name=source_name,
+            code_version=code_version, rerun_of=rerun_of,
+        )  # fmt: skip
 
-    def key_document(self, *, circuit_hash: str, backend_config_hash: str) -> dict[str, Any]:
+    def key_document(self, *, backend_config_hash: str) -> dict[str, Any]:
         """The JSON object whose canonical form is hashed into the job key."""
         document: dict[str, Any] = {
             "keyVersion": KEY_VERSION,
-            "circuitHash": circuit_hash,
+            "circuitHash": self.circuit_hash,
             "backend": self.backend,
             "backendConfigHash": backend_config_hash,
             "shots": self.shots,
-            "seed": None if self.seed is None else str(self.seed),
+            "seed": None if self.requested_seed is None else str(self.requested_seed),
             "repeat": self.repeat,
             "exact": self.exact,
             "options": dict(self.options),
@@ -62,19 +115,50 @@ class JobSpec:
             document["rerunOf"] = self.rerun_of
         return document
 
+    # -- the archived form --------------------------------------------------------------
+    # The jobs table keeps backend, shots, the requested seed and repeat in columns and the
+    # rest in one JSON document, whose member names are those archives have always had.
 
-def job_key(spec: JobSpec, *, circuit_hash: str, backend_config_hash: str) -> str:
+    def document(self) -> dict[str, Any]:
+        """The JSON document archived beside the columns (see :meth:`from_archive`)."""
+        return {
+            "circuit": self.circuit_text,
+            "circuitHash": self.circuit_hash,
+            "sourceHash": self.source_hash,
+            "sourceName": self.source_name,
+            "exact": self.exact,
+            "options": dict(self.options),
+            "codeVersion": None if self.code_version is None else dict(self.code_version),
+            "rerunOf": self.rerun_of,
+            # A JSON integer: Python's json and PostgreSQL read 63-bit integers exactly.
+            "seed": self.seed,
+        }
+
+    @classmethod
+    def from_archive(
+        cls, document: Mapping[str, Any], *, backend: str, shots: int,
+        requested_seed: str | None, repeat: int, job_key: str,
+    ) -> JobSpec:  # fmt: skip
+        """The spec of an archived job: its columns and its JSON document."""
+        requested = None if requested_seed is None else int(requested_seed)
+        seed = document.get("seed")
+        return cls(
+            circuit_text=str(document.get("circuit") or ""),
+            circuit_hash=str(document.get("circuitHash") or ""),
+            backend=backend,
+            shots=shots,
+            seed=int(seed) if seed is not None else _archived_seed(requested, repeat, job_key),
+            requested_seed=requested,
+            repeat=repeat,
+            exact=bool(document.get("exact", False)),
+            options=dict(document.get("options") or {}),
+            source_hash=document.get("sourceHash"),
+            source_name=document.get("sourceName"),
+            code_version=document.get("codeVersion"),
+            rerun_of=document.get("rerunOf"),
+        )
+
+
+def job_key(spec: JobSpec, *, backend_config_hash: str) -> str:
     """``sha256:<hex>`` of the RFC 8785 canonical JSON of the spec's key document."""
-    return digest_of(
-        spec.key_document(circuit_hash=circuit_hash, backend_config_hash=backend_config_hash)
-    )
-
-
-def effective_seed(seed: int | None, repeat: int) -> int | None:
-    """The seed a backend is given. Repeat 0 runs with the user's seed as given; a later
-    repeat with a fixed seed must still be a new sample, so its seed is derived from the
-    pair (seed, repeat) — reproducibly, and recorded in the manifest."""
-    if seed is None or repeat == 0:
-        return seed
-    derived = digest_of({"seed": str(seed), "repeat": repeat})
-    return int(derived.removeprefix("sha256:")[:16], 16) >> 1  # 63 bits fit any int64 field
+    return digest_of(spec.key_document(backend_config_hash=backend_config_hash))

@@ -39,11 +39,15 @@ def _fake_counts(client_key: str, shots: int, num_bits: int) -> dict[str, int]:
 class RecordingBackend:
     """A device stand-in that records every execution in ``ledger_dir``."""
 
-    def __init__(self, name: str, ledger_dir: Path, *, delay: float = 0.0) -> None:
+    def __init__(
+        self, name: str, ledger_dir: Path, *, delay: float = 0.0, echo_seed: bool = True
+    ) -> None:
         self.name = name
         self.ledger_dir = Path(ledger_dir)
         self.ledger_dir.mkdir(parents=True, exist_ok=True)
         self.delay = delay
+        # Many devices never say which seed they used: ``echo_seed=False`` plays one.
+        self.echo_seed = echo_seed
 
     @property
     def info(self) -> BackendInfo:
@@ -77,7 +81,8 @@ class RecordingBackend:
                 os.replace(tmp, path)
             finally:
                 fcntl.flock(handle, fcntl.LOCK_UN)
-        return Started(result=Result(counts=counts, metadata={"seed": str(task.seed)}))
+        metadata = {"seed": str(task.seed)} if self.echo_seed else {}
+        return Started(result=Result(counts=counts, metadata=metadata))
 
     async def poll(self, handle: str) -> Polled:
         raise PermanentBackendError("the recording backend has no remote handles")
@@ -103,7 +108,10 @@ def starts(ledger_dir: Path) -> list[str]:
 
 def recording_backend(name: str, config: Mapping[str, Any]) -> RecordingBackend:
     """Factory for config.toml: ``adapter = "recording"`` (registered as an entry point)."""
-    return RecordingBackend(name, Path(config["ledger_dir"]), delay=float(config.get("delay", 0)))
+    return RecordingBackend(
+        name, Path(config["ledger_dir"]), delay=float(config.get("delay", 0)),
+        echo_seed=bool(config.get("echo_seed", True)),
+    )  # fmt: skip
 
 
 class FlakyBackend(RecordingBackend):

@@ -18,17 +18,18 @@ expire and the next worker picks the jobs up; a device sees the same client key 
 from __future__ import annotations
 
 import asyncio
+import concurrent.futures
 import contextlib
 import gc
 import logging
 import signal
 import time
 import uuid
-from collections.abc import Callable, Collection
+from collections.abc import Callable, Collection, Coroutine
 from concurrent.futures import Executor, ProcessPoolExecutor, ThreadPoolExecutor
 from concurrent.futures.process import BrokenProcessPool
 from dataclasses import dataclass, field
-from typing import Any, TypeVar, cast
+from typing import Any, Literal, TypedDict, TypeVar, cast
 
 from jobkeeper._execution import build_task, one_blas_thread, run_local
 from jobkeeper.audit.sealing import Sealer
@@ -70,6 +71,17 @@ GROUP_COMMIT = 32
 GROUP_COMMIT_WAIT = 0.004
 
 
+def run_coroutine(coro: Coroutine[Any, Any, T]) -> T:
+    """Run a coroutine to the end, also from inside a running event loop (a notebook):
+    there it runs on a fresh loop in a helper thread."""
+    try:
+        asyncio.get_running_loop()
+    except RuntimeError:
+        return asyncio.run(coro)
+    with concurrent.futures.ThreadPoolExecutor(max_workers=1) as pool:
+        return pool.submit(asyncio.run, coro).result()
+
+
 def settle_daemon() -> None:
     """For a process that is a worker and nothing else, once it has started: move every
     object alive now (modules, classes, the keep's state) out of the garbage collector's
@@ -89,6 +101,23 @@ def _runs_inline(task: Task, backend: LocalBackend) -> bool:
         return False
     collapsing = sum(1 for op in circuit.operations if op.name in ("measure", "reset"))
     return collapsing <= circuit.num_qubits
+
+
+class WorkerSettings(TypedDict, total=False):
+    """How a worker runs (the keyword arguments of :class:`Worker` beyond its parts, and of
+    :meth:`jobkeeper.Keeper.work`); see :class:`Worker` for their meaning and defaults."""
+
+    concurrency: int
+    in_flight: int
+    lease: LeasePolicy
+    retry: RetryPolicy
+    poll: PollPolicy
+    backends: Collection[str] | None
+    ids: Collection[str] | None
+    local_executor: Literal["process", "thread"]
+    idle_sleep: float
+    grace: float
+    store_patience: float
 
 
 @dataclass
@@ -130,7 +159,7 @@ class Worker:
         poll: PollPolicy = DEFAULT_POLL,
         backends: Collection[str] | None = None,
         ids: Collection[str] | None = None,
-        local_executor: str = "process",  # or "thread": no worker processes at all
+        local_executor: Literal["process", "thread"] = "process",  # thread: no processes
         idle_sleep: float = 0.5,
         grace: float = 30.0,
         store_patience: float = 300.0,
@@ -321,7 +350,7 @@ class Worker:
         claim = held.claim
         job = claim.job
         try:
-            backend = self._backend(job.backend)
+            backend = self._backend(job.spec.backend)
             if job.cancel_requested:
                 if claim.was == JobState.WAITING and job.handle:
                     with collect_tries(held.tries):
@@ -364,7 +393,7 @@ class Worker:
     async def _start(self, held: _Held, backend: Backend) -> None:
         claim = held.claim
         task = build_task(claim.job)
-        if self._is_local(claim.job.backend, backend):
+        if self._is_local(claim.job.spec.backend, backend):
             local = cast(LocalBackend, backend)
             if _runs_inline(task, local):
                 result = local.execute(task)
@@ -383,7 +412,7 @@ class Worker:
             return
         if started.handle is None:
             raise PermanentBackendError(
-                f"backend {claim.job.backend} returned neither a result nor a handle"
+                f"backend {claim.job.spec.backend} returned neither a result nor a handle"
             )
         delay = self.poll.next_delay(0, hint=started.poll_after)
         await self._store(

@@ -3,9 +3,13 @@
 appended to the log like a job, and ``show`` lists those that involve a job.
 
 A rerun reads nothing but the original job's signed manifest (verified first): the
-canonical circuit text, shots, the seed the backend actually used, the options. On the
-same deterministic backend with the same seed the counts must be identical; anywhere else
-the two count tables are compared statistically (:mod:`jobkeeper.stats`).
+canonical circuit text, shots, the seed the backend was given, the options. On the same
+deterministic backend with the same seed the counts must be identical; anywhere else the
+two count tables are compared statistically (:mod:`jobkeeper.stats`).
+
+These functions work on a store and a sealer; :class:`jobkeeper.Keeper` calls them (and,
+for a rerun, submits and runs the new job between :func:`rerun_plan` and
+:func:`judge_rerun`).
 """
 
 from __future__ import annotations
@@ -13,21 +17,24 @@ from __future__ import annotations
 import datetime as dt
 import json
 import uuid
-from dataclasses import dataclass
+from collections.abc import Mapping
+from dataclasses import dataclass, field
 from typing import TYPE_CHECKING, Any
 
 from jobkeeper.backend import Task
 from jobkeeper.backends import ideal_simulator
 from jobkeeper.circuit import parse_qasm
-from jobkeeper.exceptions import JobkeeperError, VerificationError
+from jobkeeper.exceptions import ConfigError, JobkeeperError, VerificationError
 from jobkeeper.hashing import canonical_json
+from jobkeeper.options import SubmitOptions
 from jobkeeper.provenance.dsse import verify_envelope
 from jobkeeper.provenance.manifest import parse_statement
 from jobkeeper.stats import Comparison, compare_counts, compare_to_distribution
 from jobkeeper.store import ComparisonRecord
 
 if TYPE_CHECKING:
-    from jobkeeper.keeper import Job, Keeper
+    from jobkeeper.audit.sealing import Sealer
+    from jobkeeper.store import JobRecord, Store
 
 
 @dataclass
@@ -56,13 +63,18 @@ class Judgement:
         return f"{head}: {r.verdict}\n{self.comparison.summary()}"
 
 
-def verified_manifest(keeper: Keeper, job: Job) -> dict[str, Any]:
-    """The job's signed Statement, verified against the keys this keep trusts (not those
-    the archive merely lists: anyone who can write the archive can list a key)."""
-    entry = job.log_entry
+def check_alpha(alpha: float) -> None:
+    """The significance level of a judgement: above 0, at most 0.5."""
+    if isinstance(alpha, bool) or not 0 < alpha <= 0.5:
+        raise ConfigError(f"alpha must be above 0 and at most 0.5, got {alpha}")
+
+
+def verified_manifest(store: Store, job: JobRecord, keys: Mapping[str, bytes]) -> dict[str, Any]:
+    """The job's signed Statement, verified against ``keys``: the keys the keep trusts (not
+    those the archive merely lists: anyone who can write the archive can list a key)."""
+    entry = store.log_entry_for(job.id)
     if entry is None:
         raise JobkeeperError(f"job {job.id[:12]} is {job.state}: it has no signed manifest")
-    keys = keeper.trust.load().keys
     try:
         payload = verify_envelope(json.loads(entry.envelope), keys)
         return parse_statement(payload)
@@ -70,23 +82,24 @@ def verified_manifest(keeper: Keeper, job: Job) -> dict[str, Any]:
         raise VerificationError(f"job {job.id[:12]}: its manifest does not verify: {exc}") from exc
 
 
-def _counts(job: Job) -> dict[str, int]:
-    counts = job.counts
+def _counts(store: Store, job: JobRecord) -> dict[str, int]:
+    result = store.result(job.id)
+    counts = None if result is None else result.counts
     if not counts:
         raise JobkeeperError(f"job {job.id[:12]} has no counts (an exact run?) to compare")
-    return counts
+    return dict(counts)
 
 
 def _archive(
-    keeper: Keeper, kind: str, a: Job, b: Job | None, comparison: Comparison,
-    extra: dict[str, Any],
+    store: Store, sealer: Sealer, kind: str, a: JobRecord, b: JobRecord | None,
+    comparison: Comparison, extra: dict[str, Any],
 ) -> ComparisonRecord:  # fmt: skip
     report = {
         "kind": kind,
         "jobA": a.id,
         "jobB": None if b is None else b.id,
-        "jobKeyA": a.record.job_key,
-        "jobKeyB": None if b is None else b.record.job_key,
+        "jobKeyA": a.job_key,
+        "jobKeyB": None if b is None else b.job_key,
         "comparedOn": dt.datetime.now(tz=dt.UTC).strftime("%Y-%m-%dT%H:%M:%SZ"),
         **extra,
         "result": comparison.to_json(),
@@ -96,23 +109,25 @@ def _archive(
         id=uuid.uuid4().hex, kind=kind, job_a=a.id, job_b=None if b is None else b.id,
         verdict=comparison.verdict, report=document.decode(),
     )  # fmt: skip
-    sealer = keeper.sealer()
     envelope = sealer.seal_comparison(document, {"kind": kind, "verdict": comparison.verdict,
                                                   "jobKeyA": report["jobKeyA"],
                                                   "jobKeyB": report["jobKeyB"]})  # fmt: skip
-    keeper.store.record_comparison(record, envelope, sealer.fingerprint, sealer.appender)
+    store.record_comparison(record, envelope, sealer.fingerprint, sealer.appender)
     return record
 
 
-def compare_jobs(keeper: Keeper, a: Job, b: Job, *, alpha: float = 0.01) -> Judgement:
+def compare_jobs(
+    store: Store, sealer: Sealer, a: JobRecord, b: JobRecord, *, alpha: float = 0.01
+) -> Judgement:
     """Are two jobs' counts consistent with one distribution?"""
-    comparison = compare_counts(_counts(a), _counts(b), alpha=alpha)
-    return Judgement(_archive(keeper, "pair", a, b, comparison, {"alpha": alpha}), comparison)
+    comparison = compare_counts(_counts(store, a), _counts(store, b), alpha=alpha)
+    record = _archive(store, sealer, "pair", a, b, comparison, {"alpha": alpha})
+    return Judgement(record, comparison)
 
 
-def ideal_distribution(keeper: Keeper, job: Job) -> dict[str, float]:
+def ideal_distribution(store: Store, job: JobRecord, keys: Mapping[str, bytes]) -> dict[str, float]:
     """The exact noiseless distribution of the job's circuit, from its manifest."""
-    statement = verified_manifest(keeper, job)
+    statement = verified_manifest(store, job, keys)
     text = statement["predicate"]["circuit"]["canonicalText"]
     circuit = parse_qasm(text, filename=f"manifest of job {job.id[:12]}")
     result = ideal_simulator().execute(Task(circuit=circuit, shots=1, exact=True,
@@ -120,38 +135,66 @@ def ideal_distribution(keeper: Keeper, job: Job) -> dict[str, float]:
     return dict(result.probabilities or {})
 
 
-def compare_ideal(keeper: Keeper, a: Job, *, alpha: float = 0.01) -> Judgement:
+def compare_ideal(
+    store: Store, sealer: Sealer, a: JobRecord, keys: Mapping[str, bytes], *, alpha: float = 0.01
+) -> Judgement:
     """Is a job's sample consistent with its circuit's exact noiseless distribution?"""
-    comparison = compare_to_distribution(_counts(a), ideal_distribution(keeper, a), alpha=alpha)
-    record = _archive(keeper, "ideal", a, None, comparison, {"alpha": alpha})
+    ideal = ideal_distribution(store, a, keys)
+    comparison = compare_to_distribution(_counts(store, a), ideal, alpha=alpha)
+    record = _archive(store, sealer, "ideal", a, None, comparison, {"alpha": alpha})
     return Judgement(record, comparison)
 
 
-def rerun(
-    keeper: Keeper, original: Job, *, backend: str | None = None, seed: int | None = None,
-    alpha: float = 0.01,
-) -> Judgement:  # fmt: skip
-    """Run a job again from its signed manifest alone, then judge the two results."""
-    predicate = verified_manifest(keeper, original)["predicate"]
+@dataclass(frozen=True)
+class RerunPlan:
+    """What a rerun submits, read from the original's verified manifest alone."""
+
+    circuit_text: str
+    options: SubmitOptions
+    #: the seed the original ran with, as its manifest signs it
+    original_seed: int | None
+    original_backend: str
+    extra: dict[str, Any] = field(default_factory=dict)
+
+    @property
+    def same_setup(self) -> bool:
+        return (
+            self.options.backend == self.original_backend
+            and self.options.seed == self.original_seed
+        )
+
+
+def rerun_plan(
+    store: Store, original: JobRecord, keys: Mapping[str, bytes], *, backend: str | None = None,
+    seed: int | None = None,
+) -> RerunPlan:  # fmt: skip
+    """The circuit and options of a rerun: the manifest's, unless another backend or seed
+    is asked for."""
+    predicate = verified_manifest(store, original, keys)["predicate"]
     parameters = predicate.get("parameters", {})
     used_seed = int(predicate["seed"]) if predicate.get("seed") is not None else None
-    name = backend or predicate["backend"]["name"]
-    new_seed = used_seed if seed is None else seed
-    item = keeper.run_many(
-        [predicate["circuit"]["canonicalText"]], backend=name, shots=int(predicate["shots"]),
-        seed=new_seed, exact=bool(parameters.get("exact", False)),
-        options=parameters.get("options") or {}, rerun_of=original.id,
-    )[0]  # fmt: skip
-    again = item.job
+    options = SubmitOptions.of(
+        backend=backend or predicate["backend"]["name"], shots=int(predicate["shots"]),
+        seed=used_seed if seed is None else seed, exact=bool(parameters.get("exact", False)),
+        backend_options=parameters.get("options") or {},
+    )  # fmt: skip
+    return RerunPlan(predicate["circuit"]["canonicalText"], options, used_seed,
+                     predicate["backend"]["name"])  # fmt: skip
+
+
+def judge_rerun(
+    store: Store, sealer: Sealer, plan: RerunPlan, original: JobRecord, again: JobRecord, *,
+    deterministic_backend: bool, alpha: float = 0.01,
+) -> Judgement:  # fmt: skip
+    """Judge a rerun's counts against the original's, and archive the judgement."""
     if again.state != "done":
-        raise JobkeeperError(
-            f"the rerun (job {again.id[:12]}) ended {again.state}: {again.record.error}"
-        )
-    same_setup = name == predicate["backend"]["name"] and new_seed == used_seed
-    deterministic = same_setup and keeper.backend(name).info.deterministic
-    comparison = compare_counts(_counts(original), _counts(again), alpha=alpha,
+        raise JobkeeperError(f"the rerun (job {again.id[:12]}) ended {again.state}: {again.error}")
+    deterministic = plan.same_setup and deterministic_backend
+    comparison = compare_counts(_counts(store, original), _counts(store, again), alpha=alpha,
                                 deterministic=deterministic)  # fmt: skip
-    extra = {"alpha": alpha, "backend": name, "seed": None if new_seed is None else str(new_seed),
-             "sameSetup": same_setup, "deterministic": deterministic}  # fmt: skip
-    record = _archive(keeper, "rerun", original, again, comparison, extra)
+    seed = plan.options.seed
+    extra = {"alpha": alpha, "backend": plan.options.backend,
+             "seed": None if seed is None else str(seed), "sameSetup": plan.same_setup,
+             "deterministic": deterministic}  # fmt: skip
+    record = _archive(store, sealer, "rerun", original, again, comparison, extra)
     return Judgement(record, comparison, rerun_job=again.id)

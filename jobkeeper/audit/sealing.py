@@ -19,7 +19,6 @@ from typing import Any
 import numpy as np
 from cryptography.hazmat.primitives.asymmetric.ed25519 import Ed25519PrivateKey
 
-from jobkeeper._execution import seed_for
 from jobkeeper._version import __version__
 from jobkeeper.backend import BackendInfo, Result
 from jobkeeper.provenance.checkpoint import format_checkpoint, sign_note
@@ -107,25 +106,25 @@ class Sealer:
         job = claim.job
         spec = job.spec
         parameters: dict[str, Any] = {
-            "repeat": job.repeat,
-            "exact": bool(spec.get("exact", False)),
-            "options": dict(spec.get("options", {})),
+            "repeat": spec.repeat,
+            "exact": spec.exact,
+            "options": dict(spec.options),
         }
         if result.probabilities is not None:
             parameters["probabilities"] = dict(result.probabilities)
         calibration = result.metadata.get("calibration", info.calibration)
-        # A device may not echo the seed back; the seed we sent is the one to record.
-        seed = result.metadata.get("seed", seed_for(job))
         return {
             "jobKey": job.job_key,
             "circuit": {
-                "canonicalText": spec["circuit"],
-                "hash": spec["circuitHash"],
-                "sourceHash": spec.get("sourceHash"),
+                "canonicalText": spec.circuit_text,
+                "hash": spec.circuit_hash,
+                "sourceHash": spec.source_hash,
             },
             "parameters": parameters,
-            "shots": job.shots,
-            "seed": None if seed is None else str(seed),
+            "shots": spec.shots,
+            # The seed resolved at submission and given to the backend (whether or not the
+            # backend echoes it); a string, as RFC 8785 numbers stop at 2^53-1.
+            "seed": str(spec.seed),
             "backend": {
                 "name": info.name,
                 "kind": info.kind,
@@ -134,7 +133,7 @@ class Sealer:
                 "calibration": None if calibration is None else dict(calibration),
             },
             "software": software_versions(),
-            "codeVersion": spec.get("codeVersion") or {"absent": True},
+            "codeVersion": dict(spec.code_version or {"absent": True}),
             "timestamps": {
                 "submittedOn": rfc3339(job.created_at),
                 "startedOn": rfc3339(job.started_at),

@@ -11,6 +11,7 @@ from typing import TYPE_CHECKING, Annotated, Any
 import typer
 
 if TYPE_CHECKING:
+    from jobkeeper.job import Job
     from jobkeeper.keeper import Keeper
 
 app = typer.Typer(
@@ -55,6 +56,9 @@ ShotsOpt = Annotated[
 ]
 SeedOpt = Annotated[int | None, typer.Option("--seed", help="Seed for sampling.")]
 LabelOpt = Annotated[str | None, typer.Option("--label", help="A label to group jobs by.")]
+LabelsOpt = Annotated[
+    list[str] | None, typer.Option("--label", help="A label to group jobs by (repeatable).")
+]
 RepeatOpt = Annotated[
     int, typer.Option("--repeat", help="Repeat index: ask on purpose for another sample.")
 ]
@@ -77,7 +81,7 @@ def echo_json(value: Any) -> None:
     typer.echo(json.dumps(value, indent=2, sort_keys=False))
 
 
-def progress_wait(keeper: Keeper, ids: list[str], timeout: float | None) -> None:
+def progress_wait(keeper: Keeper, ids: list[str], timeout: float | None) -> list[Job]:
     """``keeper.wait`` with a bar on a terminal; on a timeout, the TimeoutError says in
     which state the jobs still are (a queued job waits for a worker, not for a device)."""
     from jobkeeper.cli._progress import counting
@@ -88,7 +92,7 @@ def progress_wait(keeper: Keeper, ids: list[str], timeout: float | None) -> None
             bar.advance_to(ended)
 
         try:
-            keeper.wait(ids, timeout=timeout, progress=progress)
+            return keeper.wait(ids, timeout=timeout, progress=progress)
         except TimeoutError as exc:
             raise TimeoutError(_not_ended(keeper, ids, timeout)) from exc
 

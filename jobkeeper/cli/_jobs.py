@@ -13,6 +13,7 @@ from jobkeeper.cli._app import (
     JsonOpt,
     KeepOpt,
     LabelOpt,
+    LabelsOpt,
     OverBudgetOpt,
     RepeatOpt,
     SeedOpt,
@@ -28,14 +29,14 @@ from jobkeeper.cli._render import bar_chart, job_json, shots_warning, table, whe
 from jobkeeper.exceptions import ConfigError, JobkeeperError, TransientBackendError
 
 if TYPE_CHECKING:
-    from jobkeeper.keeper import Job
+    from jobkeeper.job import Job
 
 
 @app.command()
 def init(keep: KeepOpt = None, store: StoreOpt = None, json_out: JsonOpt = False) -> None:
     """Create a keep: archive, configuration and signing key."""
     keeper = open_keeper(keep, store)
-    record = keeper.keyring.active_record()
+    record = keeper.keys()[0]
     info = {
         "keep": str(keeper.path.resolve()),
         "store": keeper.store.location,
@@ -78,10 +79,8 @@ def check(
     json_out: JsonOpt = False,
 ) -> None:
     """Check a circuit before spending on it: metrics and whether it fits a backend."""
-    from jobkeeper.preflight import preflight
-
     keeper = open_keeper(keep, store)
-    report = preflight(keeper, file, backend=backend, shots=shots)
+    report = keeper.check(file, backend=backend, shots=shots)
     if json_out:
         echo_json(report.to_json())
     else:
@@ -90,21 +89,13 @@ def check(
         raise typer.Exit(1)
 
 
-def _submit_options(
-    backend: str | None, shots: int | None, seed: int | None, label: str | None, repeat: int,
-    exact: bool, over_budget: bool,
-) -> dict[str, Any]:  # fmt: skip
-    return {"backend": backend, "shots": shots, "seed": seed, "label": label,
-            "repeat": repeat, "exact": exact, "over_budget": over_budget}  # fmt: skip
-
-
 @app.command()
 def submit(
     files: Annotated[list[Path], typer.Argument(metavar="FILE", help="OpenQASM 2.0 files.")],
     backend: BackendOpt = None,
     shots: ShotsOpt = None,
     seed: SeedOpt = None,
-    label: LabelOpt = None,
+    label: LabelsOpt = None,
     repeat: RepeatOpt = 0,
     exact: Annotated[bool, typer.Option("--exact", help="Ask for exact probabilities.")] = False,
     over_budget: OverBudgetOpt = False,
@@ -113,9 +104,13 @@ def submit(
     json_out: JsonOpt = False,
 ) -> None:
     """Queue jobs; a worker runs them. Jobs already done or queued are not queued again."""
+    from jobkeeper.options import SubmitOptions
+
+    options = SubmitOptions.of(backend=backend, shots=shots, seed=seed, repeat=repeat,
+                               labels=label or (), exact=exact,
+                               over_budget=over_budget)  # fmt: skip
     keeper = open_keeper(keep, store)
-    opts = _submit_options(backend, shots, seed, label, repeat, exact, over_budget)
-    submitted = keeper.submit_many(files, **opts)
+    submitted = keeper.submit_many(files, options)
     if json_out:
         echo_json([
             {"id": s.job.id, "job_key": s.job.record.job_key, "state": s.job.state,
@@ -142,10 +137,10 @@ def _result_json(job: Job, deduplicated: bool) -> dict[str, Any]:
         "job_key": record.job_key,
         "state": record.state,
         "deduplicated": deduplicated,
-        "backend": record.backend,
-        "shots": record.shots,
-        "seed": None if result is None else result.metadata.get("seed", record.seed),
-        "circuit_hash": record.spec.get("circuitHash"),
+        "backend": job.spec.backend,
+        "shots": job.spec.shots,
+        "seed": job.spec.seed,
+        "circuit_hash": job.spec.circuit_hash,
     }
     if result is not None and result.probabilities is not None:
         out["probabilities"] = dict(result.probabilities)
@@ -162,7 +157,7 @@ def run(
     backend: BackendOpt = None,
     shots: ShotsOpt = None,
     seed: SeedOpt = None,
-    label: LabelOpt = None,
+    label: LabelsOpt = None,
     repeat: RepeatOpt = 0,
     exact: Annotated[bool, typer.Option("--exact", help="Print exact probabilities.")] = False,
     over_budget: OverBudgetOpt = False,
@@ -171,10 +166,14 @@ def run(
     json_out: JsonOpt = False,
 ) -> None:
     """Submit one job, run it here and now, and print its result."""
+    from jobkeeper.options import SubmitOptions
+
+    options = SubmitOptions.of(backend=backend, shots=shots, seed=seed, repeat=repeat,
+                               labels=label or (), exact=exact,
+                               over_budget=over_budget)  # fmt: skip
     keeper = open_keeper(keep, store)
-    opts = _submit_options(backend, shots, seed, label, repeat, exact, over_budget)
     with activity(f"running {file.name} on {backend or 'the default backend'}"):
-        item = keeper.run_many([file], **opts)[0]
+        item = keeper.run_many([file], options)[0]
     job = item.job
     if json_out:
         echo_json(_result_json(job, item.deduplicated))
@@ -203,14 +202,14 @@ def _print_result(job: Job, deduplicated: bool) -> None:
         return
     result = job.result
     assert result is not None
-    seed = result.metadata.get("seed", record.seed)
-    typer.echo(f"job {record.id[:12]} on {record.backend}, {record.shots} shots, seed {seed}")
+    spec = job.spec
+    typer.echo(f"job {record.id[:12]} on {spec.backend}, {spec.shots} shots, seed {spec.seed}")
     if result.probabilities is not None:
         typer.echo("exact probabilities:")
         typer.echo(bar_chart(dict(result.probabilities), total=1.0))
         return
     typer.echo(bar_chart(dict(result.counts or {})))
-    warning = shots_warning(record.shots)
+    warning = shots_warning(spec.shots)
     if warning:
         typer.echo(warning)
 
@@ -284,8 +283,8 @@ def jobs(
     if json_out:
         echo_json([job_json(r) for r in records])
         return
-    rows = [[r.id[:12], r.state, r.backend, str(r.shots), ", ".join(r.labels) or "-",
-             str(r.spec.get("sourceName") or "-"), when(r.created_at)] for r in records]  # fmt: skip
+    rows = [[r.id[:12], r.state, r.spec.backend, str(r.spec.shots), ", ".join(r.labels) or "-",
+             r.spec.source_name or "-", when(r.created_at)] for r in records]  # fmt: skip
     typer.echo(table(rows, ["ID", "STATE", "BACKEND", "SHOTS", "LABELS", "SOURCE", "CREATED"]))
 
 
@@ -321,11 +320,10 @@ def wait(
     keeper = open_keeper(keep, store, create=False)
     ids = [keeper.job(j).id for j in job_ids]
     try:
-        progress_wait(keeper, ids, timeout)
+        records = [job.record for job in progress_wait(keeper, ids, timeout)]
     except TimeoutError as exc:
         typer.echo(f"jobkeeper: {exc}", err=True)
         raise typer.Exit(1) from exc
-    records = keeper.store.get_many(ids)
     if json_out:
         echo_json([{"id": r.id, "state": r.state, "error": r.error} for r in records])
     else:

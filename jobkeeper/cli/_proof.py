@@ -33,12 +33,10 @@ def keys(
     json_out: JsonOpt = False,
 ) -> None:
     """Show the signing key's public half and fingerprint; export or rotate it."""
-    import base64
-
     keeper = open_keeper(keep, store)
     retired = keeper.trust.rotate() if rotate else None
-    record = keeper.keyring.active_record()
-    public = base64.b64encode(record.raw).decode()
+    record, *earlier = keeper.keys()
+    public = record.public_key
     if export is not None:
         export.write_text(
             json.dumps({"fingerprint": record.fingerprint, "public_key": public}) + "\n"
@@ -52,11 +50,11 @@ def keys(
                    f"{retired[2]}; the new key signs from there")  # fmt: skip
     typer.echo(f"fingerprint: {record.fingerprint}")
     typer.echo(f"public key (base64, raw Ed25519): {public}")
-    others = [
-        r.fingerprint for r in keeper.keyring.public_keys() if r.fingerprint != record.fingerprint
-    ]
-    if others:
-        typer.echo(f"earlier keys still trusted for old entries: {', '.join(others)}")
+    if earlier:
+        typer.echo(
+            "earlier keys still trusted for old entries: "
+            + ", ".join(r.fingerprint for r in earlier)
+        )
 
 
 def _verdict(report: Any) -> str:
@@ -107,7 +105,7 @@ def verify(
 ) -> None:
     """Check signatures and their signers' trust, counts digests, log inclusion and
     checkpoint consistency."""
-    from jobkeeper.audit.verification import verify_bundle_file, verify_jobs
+    from jobkeeper.audit.verification import verify_bundle_file
 
     targets = targets or []
     if len(targets) == 1 and Path(targets[0]).is_file():
@@ -121,10 +119,11 @@ def verify(
     if not targets and not all_jobs:
         raise ConfigError("give job ids, a bundle file, or --all")
     keeper = open_keeper(keep, store, create=False)
-    ids = None if all_jobs else [keeper.job(t).id for t in targets]
     what = "log entries (jobs and comparisons)" if all_jobs else "jobs"
     with activity(f"verifying {what}"):
-        report = verify_jobs(keeper, ids, trusted=key, integrity_only=integrity_only)
+        report = keeper.verify(
+            None if all_jobs else targets, trusted=key, integrity_only=integrity_only
+        )
     _print_report(report, json_out, what)
 
 
@@ -157,19 +156,12 @@ def bundle(
     json_out: JsonOpt = False,
 ) -> None:
     """Export done jobs as one file that a referee can verify offline."""
-    from jobkeeper.audit.verification import export_bundle
-
-    keeper = open_keeper(keep, store, create=False)
     if label is None and not job_ids:
         raise ConfigError("give job ids or --label")
-    ids = [keeper.job(j).id for j in job_ids or []]
-    if label is not None:
-        ids += [j.id for j in keeper.jobs(label=label, state="done")]
-    if not ids:
-        raise ConfigError(f"no done job with label {label!r}")
+    keeper = open_keeper(keep, store, create=False)
     with activity(f"writing {output}"):
-        count = export_bundle(keeper, sorted(set(ids)), output)
-    fp = keeper.keyring.active_record().fingerprint
+        count = keeper.bundle(output, job_ids or (), label=label)
+    fp = keeper.keys()[0].fingerprint
     if json_out:
         echo_json({"bundle": str(output), "jobs": count, "fingerprint": fp})
     else:
@@ -230,11 +222,9 @@ def rerun(
     json_out: JsonOpt = False,
 ) -> None:
     """Run a job again from its signed manifest alone, and judge the two results."""
-    from jobkeeper.audit.judging import rerun as do_rerun
-
     keeper = open_keeper(keep, store, create=False)
     with activity("running again and comparing"):
-        judgement = do_rerun(keeper, keeper.job(job_id), backend=backend, seed=seed, alpha=alpha)
+        judgement = keeper.rerun(job_id, backend=backend, seed=seed, alpha=alpha)
     _print_judgement(judgement, json_out)
 
 
@@ -251,17 +241,9 @@ def compare(
     json_out: JsonOpt = False,
 ) -> None:
     """Are two jobs' counts (or a job and the ideal) consistent? Exit 1 if different."""
-    from jobkeeper.audit.judging import compare_ideal, compare_jobs
-
     if (job_b is None) == (not ideal):
         raise ConfigError("give two jobs, or one job and --ideal")
     keeper = open_keeper(keep, store, create=False)
-    a = keeper.job(job_a)
-    if ideal:
-        with activity("computing the ideal distribution and comparing"):
-            judgement = compare_ideal(keeper, a, alpha=alpha)
-    else:
-        assert job_b is not None
-        with activity("comparing"):
-            judgement = compare_jobs(keeper, a, keeper.job(job_b), alpha=alpha)
+    with activity("comparing"):
+        judgement = keeper.compare(job_a, job_b, ideal=ideal, alpha=alpha)
     _print_judgement(judgement, json_out)

@@ -10,7 +10,8 @@ from typing import TYPE_CHECKING, Any
 from jobkeeper.cli._render import bar_chart, job_json, shots_warning, when
 
 if TYPE_CHECKING:
-    from jobkeeper.keeper import Job, Keeper
+    from jobkeeper.job import Job
+    from jobkeeper.keeper import Keeper
 
 
 @dataclass
@@ -20,14 +21,13 @@ class JobDetails:
 
 
 def describe_job(keeper: Keeper, job: Job) -> JobDetails:
-    from jobkeeper.audit.verification import verify_jobs
-
     record = job.record
+    spec = job.spec
     data = job_json(record)
-    data["circuit"] = record.spec.get("circuit")
-    data["source_hash"] = record.spec.get("sourceHash")
-    data["code_version"] = record.spec.get("codeVersion")
-    data["options"] = record.spec.get("options", {})
+    data["circuit"] = spec.circuit_text
+    data["source_hash"] = spec.source_hash
+    data["code_version"] = None if spec.code_version is None else dict(spec.code_version)
+    data["options"] = dict(spec.options)
     data["attempt_history"] = [
         {
             "number": a.number,
@@ -43,20 +43,29 @@ def describe_job(keeper: Keeper, job: Job) -> JobDetails:
         data["counts"] = None if result.counts is None else dict(result.counts)
         data["probabilities"] = None if result.probabilities is None else dict(result.probabilities)
         data["result_metadata"] = dict(result.metadata)
-    data["rerun_of"] = record.spec.get("rerunOf")
+    data["rerun_of"] = spec.rerun_of
     data["comparisons"] = [
         {"id": c.id, "kind": c.kind, "job_a": c.job_a, "job_b": c.job_b, "verdict": c.verdict,
          "result": json.loads(c.report).get("result", {})}
-        for c in keeper.store.comparisons(record.id)
+        for c in job.comparisons
     ]  # fmt: skip
     entry = job.log_entry
     if entry is not None:
         data["envelope"] = json.loads(entry.envelope)
         data["log_index"] = entry.index
         data["signer"] = entry.signer
-        report = verify_jobs(keeper, [record.id])
+        report = keeper.verify([record.id])
         data["verification"] = {"ok": report.ok, "problems": list(report.problems)}
     return JobDetails(data=data, text=_text(data))
+
+
+def _seed_origin(d: dict[str, Any]) -> str:
+    asked = d["requested_seed"]
+    if asked is None:
+        return " (chosen at submission)"
+    if asked != d["seed"]:
+        return f" (derived from seed {asked} for repeat {d['repeat']})"
+    return ""
 
 
 def _text(d: dict[str, Any]) -> str:
@@ -64,8 +73,7 @@ def _text(d: dict[str, Any]) -> str:
         f"job {d['id']}",
         f"  state      {d['state']}" + (f" ({d['error']})" if d.get("error") else ""),
         f"  backend    {d['backend']}",
-        f"  shots      {d['shots']}   seed {d.get('result_metadata', {}).get('seed', d['seed'])}"
-        f"   repeat {d['repeat']}",
+        f"  shots      {d['shots']}   seed {d['seed']}{_seed_origin(d)}   repeat {d['repeat']}",
         f"  labels     {', '.join(d['labels']) or '-'}",
         f"  source     {d['source'] or '-'}  ({d['source_hash'] or 'no source hash'})",
         f"  circuit    {d['circuit_hash']}",

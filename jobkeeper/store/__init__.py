@@ -29,20 +29,18 @@ from pathlib import Path
 from typing import Any, Protocol
 
 from jobkeeper.queue import JobState
+from jobkeeper.spec import JobSpec
 
 
 @dataclass(frozen=True)
 class NewJob:
-    """A job to enqueue. ``spec`` is the JSON-ready description the worker needs to run it
-    and the manifest needs to describe it (canonical circuit text, hashes, options, ...)."""
+    """A job to enqueue: its spec is everything the worker needs to run it and the
+    manifest needs to describe it (stored as columns and a JSON document, see
+    :meth:`JobSpec.document <jobkeeper.spec.JobSpec.document>`)."""
 
     id: str
     job_key: str
-    backend: str
-    shots: int
-    seed: str | None
-    repeat: int
-    spec: Mapping[str, Any]
+    spec: JobSpec
     max_attempts: int
     cost: float | None = None
     #: Labels to give the job; a live or done job found under the same key gets them too.
@@ -56,11 +54,7 @@ class JobRecord:
     id: str
     job_key: str
     state: JobState
-    backend: str
-    shots: int
-    seed: str | None
-    repeat: int
-    spec: Mapping[str, Any]
+    spec: JobSpec
     created_at: float
     updated_at: float
     not_before: float
@@ -340,9 +334,13 @@ def counts_text(counts: Mapping[str, int]) -> str:
 
 
 def job_row(job: NewJob) -> tuple[Any, ...]:
-    """The parameters of ``sql.INSERT_JOB`` for a new job."""
-    spec = json.dumps(dict(job.spec), sort_keys=True)
-    return (job.id, job.job_key, job.backend, job.shots, job.seed, job.repeat, spec,
+    """The parameters of ``sql.INSERT_JOB`` for a new job. The seed column holds the seed
+    the user asked for, as text (the column predates seeds resolved at submission); the
+    seed the job runs with is an integer in the JSON document (``JobSpec.document``)."""
+    spec = job.spec
+    requested = None if spec.requested_seed is None else str(spec.requested_seed)
+    document = json.dumps(spec.document(), sort_keys=True)
+    return (job.id, job.job_key, spec.backend, spec.shots, requested, spec.repeat, document,
             job.max_attempts, job.cost)  # fmt: skip
 
 

@@ -70,28 +70,23 @@ def _when(seconds: float | None) -> str | None:
     return dt.datetime.fromtimestamp(seconds, tz=dt.UTC).isoformat(timespec="milliseconds")
 
 
-def _seed(record: JobRecord) -> int | None:
-    try:
-        return None if record.seed is None else int(record.seed)
-    except ValueError:
-        return None
-
-
 def job_row(record: JobRecord) -> dict[str, Any]:
     spec = record.spec
     return {
         "id": record.id,
         "state": str(record.state),
-        "backend": record.backend,
-        "shots": record.shots,
-        "seed": _seed(record),
-        "repeat": record.repeat,
+        "backend": spec.backend,
+        "shots": spec.shots,
+        # The seed the job ran with (resolved at submission; the one its manifest signs).
+        "seed": spec.seed,
+        "repeat": spec.repeat,
         "labels": json.dumps(list(record.labels)),
-        "bindings": json.dumps(dict(spec.get("bindings") or {}), sort_keys=True),
-        "circuit_hash": spec.get("circuitHash"),
-        "source_name": spec.get("sourceName"),
+        # Jobs carry no input bindings yet (parameterised circuits come with sweeps).
+        "bindings": json.dumps({}),
+        "circuit_hash": spec.circuit_hash,
+        "source_name": spec.source_name,
         "job_key": record.job_key,
-        "exact": int(bool(spec.get("exact", False))),
+        "exact": int(spec.exact),
         "submitted_at": _when(record.created_at),
         "finished_at": _when(record.finished_at),
     }

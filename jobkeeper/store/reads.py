@@ -11,6 +11,7 @@ from typing import Any
 
 from jobkeeper.exceptions import AmbiguousJobId, JobNotFound
 from jobkeeper.queue import JobState
+from jobkeeper.spec import JobSpec
 from jobkeeper.store import (
     Attempt,
     ComparisonRecord,
@@ -49,8 +50,9 @@ def record_of(row: Sequence[Any]) -> JobRecord:
         labels,
     ) = row
     return JobRecord(
-        id=id_, job_key=key, state=JobState(state), backend=backend, shots=shots, seed=seed,
-        repeat=repeat, spec=json.loads(spec), created_at=created,
+        id=id_, job_key=key, state=JobState(state), created_at=created,
+        spec=JobSpec.from_archive(json.loads(spec), backend=backend, shots=shots,
+                                  requested_seed=seed, repeat=repeat, job_key=key),
         updated_at=updated, not_before=not_before, attempts=attempts,
         max_attempts=max_attempts, lease_owner=owner, lease_token=token,
         lease_expires=expires, handle=handle, started_at=started, finished_at=finished,

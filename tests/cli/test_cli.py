@@ -104,10 +104,28 @@ BAD_CIRCUIT = 'OPENQASM 2.0;\ninclude "qelib1.inc";\nqreg q[2];\nh q[0]\ncx q[0]
     ],
 )
 def test_bad_options_exit_2_with_one_line_and_queue_nothing(capsys, keep, args, message) -> None:
+    assert jk(capsys, "init", "--keep", keep)[0] == 0
     code, _, err = jk(capsys, "submit", str(BELL), "--keep", keep, *args)
     assert code == 2, err
     assert message in err and err.count("\n") == 1 and "Traceback" not in err
     assert jobs_in(keep, capsys) == []
+
+
+@pytest.mark.parametrize("command", ["check", "run", "submit"])
+@pytest.mark.parametrize(
+    ("args", "message"),
+    [(["--shots", "-5"], "shots must be a positive whole number, got -5"),
+     (["--seed", "-1"], "seed must be a whole number from 0 to 2^63-1, got -1"),
+     (["--repeat", "-1"], "repeat must be zero or a positive whole number, got -1")],
+)  # fmt: skip
+def test_every_command_refuses_a_bad_option_with_the_same_message(
+    capsys, keep, command, args, message
+) -> None:
+    # One check of submission options (SubmitOptions), whichever command is given them.
+    if command == "check" and args[0] != "--shots":
+        return  # check takes only --backend and --shots
+    code, _, err = jk(capsys, command, str(BELL), "--keep", keep, *args)
+    assert (code, err) == (2, f"jobkeeper: {message}\n")
 
 
 def test_malformed_circuit_names_file_line_column(capsys, keep, tmp_path) -> None:
@@ -208,3 +226,12 @@ def test_keys_json_export_and_rotation_keep_old_entries_verifying(capsys, keep, 
         capsys, "verify", "--all", "--keep", keep, "--json", "--key", second["fingerprint"]
     )
     assert code == 1 and json.loads(out)["problems"]
+
+
+def test_a_job_takes_several_labels_and_is_found_under_each(capsys, keep) -> None:
+    code, _, err = jk(capsys, "submit", str(BELL), "--keep", keep, "--label", "fig3",
+                      "--label", "draft", "--json")  # fmt: skip
+    assert code == 0, err
+    for label in ("fig3", "draft"):
+        code, out, _ = jk(capsys, "jobs", "--keep", keep, "--label", label, "--json")
+        assert [job["labels"] for job in json.loads(out)] == [["draft", "fig3"]]

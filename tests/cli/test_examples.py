@@ -28,3 +28,19 @@ def test_the_example_device_profile_loads() -> None:
          "url": "https://shelf.example.invalid/api", "token_env": "SHELF_TOKEN"},
     )  # fmt: skip
     assert backend.info.kind == "remote" and backend.info.max_qubits == 12
+
+
+def test_examples_use_only_the_public_api() -> None:
+    # The examples are what users copy: they import from `jobkeeper` itself (its __all__),
+    # never from a module inside it.
+    import ast
+
+    import jobkeeper
+
+    for path in (REPO / "examples").rglob("*.py"):
+        for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"))):
+            if isinstance(node, ast.ImportFrom) and (node.module or "").startswith("jobkeeper"):
+                assert node.module == "jobkeeper", f"{path.name} imports {node.module}"
+                assert {alias.name for alias in node.names} <= set(jobkeeper.__all__)
+            if isinstance(node, ast.Import):
+                assert not any(a.name.startswith("jobkeeper.") for a in node.names), path.name

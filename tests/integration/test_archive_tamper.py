@@ -17,7 +17,6 @@ from pathlib import Path
 import pytest
 
 from jobkeeper import Keeper
-from jobkeeper.audit.verification import verify_jobs
 from jobkeeper.cli import main
 from jobkeeper.hashing import canonical_json
 from jobkeeper.provenance.dsse import PAYLOAD_TYPE, envelope_bytes, sign_envelope
@@ -32,13 +31,13 @@ def archive(tmp_path_factory: pytest.TempPathFactory) -> Path:
     with Keeper.open(keep) as keeper:
         for batch in range(3):  # three finishing transactions: three checkpoints at least
             keeper.run_many([circuit_text(0.1 * (4 * batch + i)) for i in range(4)], shots=64)
-        assert verify_jobs(keeper).ok
+        assert keeper.verify().ok
     return keep
 
 
 def _verify(keep: Path) -> list[str]:
     with Keeper.open(keep, create=False) as keeper:
-        return verify_jobs(keeper).problems
+        return keeper.verify().problems
 
 
 def _targets(conn: sqlite3.Connection) -> list[tuple[str, str, str, object]]:

@@ -8,7 +8,6 @@ from pathlib import Path
 import pytest
 
 from jobkeeper import Keeper
-from jobkeeper.audit.verification import export_bundle, verify_bundle_file, verify_jobs
 from jobkeeper.backend import Task
 from jobkeeper.backends.sim import sampling
 from jobkeeper.backends.sim.statevector import StatevectorBackend
@@ -45,12 +44,12 @@ def test_a_big_table_is_archived_signed_and_verifies(tmp_path: Path) -> None:
         counts = job.counts
         direct = StatevectorBackend().execute(Task(parse_qasm(CIRCUIT), 20_000, seed=3)).counts
         assert counts == dict(direct) and len(counts) > sampling.TABLE_FROM
-        report = verify_jobs(keeper)
+        report = keeper.verify()
         assert report.ok, report.problems
         assert report.checked >= 1
-        assert export_bundle(keeper, [job.id], tmp_path / "big.bundle") == 1
-        fingerprint = keeper.keyring.active_fingerprint()
-    offline = verify_bundle_file(tmp_path / "big.bundle", trusted=[fingerprint])
+        assert keeper.bundle(tmp_path / "big.bundle", [job.id]) == 1
+        fingerprint = keeper.keys()[0].fingerprint
+    offline = Keeper.verify_bundle(tmp_path / "big.bundle", trusted=[fingerprint])
     assert offline.ok, offline.problems
 
 

@@ -16,7 +16,6 @@ from pathlib import Path
 import pytest
 
 from jobkeeper import Keeper
-from jobkeeper.audit.verification import verify_jobs
 from jobkeeper.testing import executions, starts
 from tests.integration.helpers import (
     circuit_text,
@@ -65,7 +64,7 @@ def test_sigkill_at_random_moments_loses_nothing_and_runs_nothing_twice(tmp_path
         assert set(states.values()) == {"done"}, states
         assert len(keeper.store.log_entries()) == JOBS
         assert {e.job_id for e in keeper.store.log_entries()} == set(ids)
-        report = verify_jobs(keeper)
+        report = keeper.verify()
         assert report.ok, report.problems
     ran = executions(ledger)
     assert len(ran) == JOBS  # one execution per job: every restart reused the job's key

@@ -31,12 +31,12 @@ def rows(path: Path, query: str) -> list[tuple]:
 def keep(tmp_path: Path) -> Path:
     keep = tmp_path / "keep"
     with Keeper.open(keep) as keeper:
-        keeper.run(BELL, shots=300, seed=7, label="fig3")
-        keeper.run(circuit_text(0.4), shots=120, seed=8, label="fig3")
-        keeper.run(circuit_text(0.9), shots=50, seed=9, label="other")
-        keeper.run(BELL, shots=300, seed=7, label="other")  # the fig3 job, now also "other"
-        keeper.run(BELL, exact=True, label="fig3")
-        keeper.submit(circuit_text(1.3), shots=10, label="fig3")  # still queued
+        keeper.run(BELL, shots=300, seed=7, labels={"fig3"})
+        keeper.run(circuit_text(0.4), shots=120, seed=8, labels={"fig3"})
+        keeper.run(circuit_text(0.9), shots=50, seed=9, labels={"other"})
+        keeper.run(BELL, shots=300, seed=7, labels={"other"})  # the fig3 job, now also "other"
+        keeper.run(BELL, exact=True, labels={"fig3"})
+        keeper.submit(circuit_text(1.3), shots=10, labels={"fig3"})  # still queued
     return keep
 
 
@@ -61,11 +61,11 @@ def test_export_writes_one_row_per_job_and_per_outcome(
         assert set(jobs) == set(fig3)
         for job_id, (state, shots, seed, labels, bindings, backend, chash, exact) in jobs.items():
             record = fig3[job_id].record
-            assert (state, shots, backend) == (record.state, record.shots, record.backend)
+            assert (state, shots, backend) == (record.state, record.spec.shots, record.spec.backend)
             assert json.loads(labels) == list(record.labels) and "fig3" in json.loads(labels)
-            assert json.loads(bindings) == {} and chash == record.spec["circuitHash"]
+            assert json.loads(bindings) == {} and chash == record.spec.circuit_hash
             if state == "done" and not exact:
-                assert seed is not None
+                assert seed == record.spec.seed  # the seed it ran with, as signed
                 total = rows(out, f"SELECT SUM(count) FROM counts WHERE job_id = '{job_id}'")
                 assert total == [(shots,)]
                 assert dict(rows(out, f"SELECT outcome, count FROM counts "

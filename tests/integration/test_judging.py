@@ -14,8 +14,6 @@ from pathlib import Path
 import pytest
 
 from jobkeeper import BudgetExceeded, Keeper
-from jobkeeper.audit.judging import compare_ideal, compare_jobs, rerun
-from jobkeeper.audit.verification import verify_jobs
 from jobkeeper.cli import main
 
 REPO = Path(__file__).resolve().parents[2]
@@ -30,12 +28,12 @@ def keeper(tmp_path: Path):
 
 def test_rerun_on_the_same_deterministic_backend_is_identical(keeper: Keeper) -> None:
     job = keeper.run(BELL, shots=2000, seed=11)
-    judgement = rerun(keeper, job)
+    judgement = keeper.rerun(job)
     assert judgement.record.verdict == "identical"
     again = keeper.job(judgement.rerun_job or "")
     assert again.counts == job.counts and again.id != job.id
-    assert again.record.spec["rerunOf"] == job.id
-    assert verify_jobs(keeper).ok
+    assert again.spec.rerun_of == job.id
+    assert keeper.verify().ok
 
 
 def test_rerun_runs_from_the_manifest_not_the_users_file(keeper: Keeper, tmp_path: Path) -> None:
@@ -43,12 +41,12 @@ def test_rerun_runs_from_the_manifest_not_the_users_file(keeper: Keeper, tmp_pat
     source.write_text(BELL.read_text())
     job = keeper.run(source, shots=500, seed=3)
     source.write_text("this file is gone\n")
-    assert rerun(keeper, job).record.verdict == "identical"
+    assert keeper.rerun(job).record.verdict == "identical"
 
 
 def test_rerun_with_another_seed_is_consistent(keeper: Keeper) -> None:
     job = keeper.run(BELL, shots=4000, seed=1)
-    judgement = rerun(keeper, job, seed=2)
+    judgement = keeper.rerun(job, seed=2)
     assert judgement.record.verdict == "consistent"
     assert keeper.job(judgement.rerun_job or "").counts != job.counts
 
@@ -56,12 +54,12 @@ def test_rerun_with_another_seed_is_consistent(keeper: Keeper) -> None:
 def test_compare_pair_and_ideal_are_archived_signed_and_shown(keeper: Keeper, capsys) -> None:
     a = keeper.run(BELL, shots=3000, seed=5)
     b = keeper.run(BELL, shots=3000, seed=6)
-    assert compare_jobs(keeper, a, b).record.verdict == "consistent"
-    ideal = compare_ideal(keeper, a)
+    assert keeper.compare(a, b).record.verdict == "consistent"
+    ideal = keeper.compare(a, ideal=True)
     assert ideal.record.verdict == "consistent"
     assert ideal.comparison.p_value is not None and ideal.comparison.p_value > 0.01
     assert len(keeper.store.comparisons(a.id)) == 2
-    report = verify_jobs(keeper)
+    report = keeper.verify()
     assert report.ok and report.checked == 4  # two jobs and two comparisons in the log
     assert main(["show", a.id, "--keep", str(keeper.path), "--json"]) == 0
     shown = json.loads(capsys.readouterr().out)
@@ -71,12 +69,12 @@ def test_compare_pair_and_ideal_are_archived_signed_and_shown(keeper: Keeper, ca
 def test_a_changed_comparison_report_is_caught(keeper: Keeper) -> None:
     a = keeper.run(BELL, shots=1000, seed=5)
     b = keeper.run(BELL, shots=1000, seed=6)
-    judgement = compare_jobs(keeper, a, b)
+    judgement = keeper.compare(a, b)
     conn = sqlite3.connect(keeper.path / "archive.db", isolation_level=None)
     report = judgement.record.report.replace('"consistent"', '"different"')
     conn.execute("UPDATE comparisons SET report = ? WHERE id = ?", (report, judgement.record.id))
     conn.close()
-    assert any("comparison.json digest mismatch" in p for p in verify_jobs(keeper).problems)
+    assert any("comparison.json digest mismatch" in p for p in keeper.verify().problems)
 
 
 def test_compare_exits_1_on_different(keeper: Keeper, tmp_path: Path, capsys) -> None:
@@ -111,12 +109,12 @@ def test_budget_refuses_with_the_amount_left_and_queues_nothing(tmp_path: Path, 
 
     with Keeper.open(keep) as keeper:
         keeper._backends["paid"] = Priced("paid", tmp_path / "ledger")
-        keeper.submit(BELL, backend="paid", shots=1000, label="paper")  # costs 2.0
+        keeper.submit(BELL, backend="paid", shots=1000, labels={"paper"})  # costs 2.0
         with pytest.raises(BudgetExceeded) as refused:
-            keeper.submit(BELL, backend="paid", shots=1000, seed=2, label="paper")
+            keeper.submit(BELL, backend="paid", shots=1000, seed=2, labels={"paper"})
         assert "1 left of 3" in str(refused.value) and "nothing was queued" in str(refused.value)
         assert len(keeper.jobs()) == 1
-        over = keeper.submit(BELL, backend="paid", shots=1000, seed=2, label="paper",
+        over = keeper.submit(BELL, backend="paid", shots=1000, seed=2, labels={"paper"},
                              over_budget=True)  # fmt: skip
         assert over.state == "queued" and len(keeper.jobs()) == 2
 
@@ -130,8 +128,22 @@ def test_rerun_on_a_noisy_backend_with_another_seed_is_consistent(tmp_path: Path
     )
     with Keeper.open(keep) as keeper:
         job = keeper.run(BELL, backend="noisy", shots=4000, seed=1)
-        judgement = rerun(keeper, job, seed=2)
+        judgement = keeper.rerun(job, seed=2)
         assert judgement.record.verdict == "consistent"
         # Noise shows: some shots land on 01 and 10, which the ideal Bell pair never gives.
         assert set(job.counts) == {"00", "01", "10", "11"}
-        assert compare_ideal(keeper, job).record.verdict == "different"
+        assert keeper.compare(job, ideal=True).record.verdict == "different"
+
+
+def test_the_python_api_refuses_what_the_command_line_refuses(keeper: Keeper) -> None:
+    from jobkeeper import ConfigError
+
+    job = keeper.run(BELL, shots=200, seed=1)
+    with pytest.raises(ConfigError, match="alpha must be above 0"):
+        keeper.compare(job, job, alpha=0.0)
+    with pytest.raises(ConfigError, match="compare two jobs"):
+        keeper.compare(job)
+    with pytest.raises(ConfigError, match="shots must be a positive whole number, got -5"):
+        keeper.check(BELL, shots=-5)
+    with pytest.raises(ConfigError, match="seed must be a whole number"):
+        keeper.rerun(job, seed=-1)

@@ -15,7 +15,7 @@ def test_run_submit_work_and_wait_inside_a_running_event_loop(tmp_path: Path) ->
     async def cell() -> dict[str, int]:
         keeper = Keeper.open(tmp_path / "keep")
         job = keeper.run(BELL, shots=500, seed=4)
-        queued = keeper.submit(BELL, shots=300, seed=5, label="nb")
+        queued = keeper.submit(BELL, shots=300, seed=5, labels={"nb"})
         keeper.work(once=True)
         assert queued.wait(timeout=30).state == "done"
         assert [j.state for j in keeper.jobs(label="nb")] == ["done"]

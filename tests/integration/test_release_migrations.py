@@ -15,7 +15,6 @@ import psycopg
 import pytest
 
 from jobkeeper import Keeper
-from jobkeeper.audit.verification import verify_jobs
 from jobkeeper.store import sql
 from tests.conftest import require_postgres
 from tests.postgres_fixtures import drop_schema, schema_url
@@ -64,17 +63,17 @@ def test_a_release_archive_migrates_keeping_rows_signatures_and_labels(
             ("done", ("fig2",)), ("done", ("fig3",)), ("done", ()), ("done", ("flaky",)),
             ("queued", ("later",)),
         ]  # fmt: skip
-        assert verify_jobs(keeper).ok  # every envelope, inclusion and checkpoint holds
+        assert keeper.verify().ok  # every envelope, inclusion and checkpoint holds
         flaky = jobs[3]
         assert [(a.number, a.in_call) for a in flaky.attempts] == [(1, False), (2, False)]
         assert flaky.record.attempts == 2
         # The Bell job of "fig2", submitted again for "fig3": now it carries both labels.
-        again = keeper.submit(BELL, shots=200, seed=7, label="fig3")
+        again = keeper.submit(BELL, shots=200, seed=7, labels={"fig3"})
         assert again.id == jobs[0].id and again.record.labels == ("fig2", "fig3")
         assert {j.id for j in keeper.jobs(label="fig3")} == {jobs[0].id, jobs[1].id}
         keeper.work(once=True)
         assert keeper.job(jobs[4].id).state == "done"
-        assert verify_jobs(keeper).ok
+        assert keeper.verify().ok
     with Keeper.open(keep, store=store, create=False) as keeper:  # opening again: no-op
         assert len(keeper.jobs()) == 5
 

@@ -8,6 +8,7 @@ conditional update, results archived at most once.
 
 from __future__ import annotations
 
+import dataclasses
 import hashlib
 import uuid
 from collections.abc import Iterator, Sequence
@@ -18,6 +19,7 @@ import pytest
 from jobkeeper.audit.sealing import _pack, _unpack, frontier_append, frontier_root
 from jobkeeper.counts import CountTable
 from jobkeeper.exceptions import AmbiguousJobId, JobNotFound, LeaseLost
+from jobkeeper.spec import JobSpec
 from jobkeeper.store import Completion, NewJob, Store
 from tests.store_fixtures import make_store
 
@@ -28,11 +30,17 @@ def store(request: pytest.FixtureRequest, tmp_path) -> Iterator[Store]:
         yield the_store
 
 
+SPEC = JobSpec(circuit_text="x", circuit_hash="sha256:" + "0" * 64, backend="sim", shots=100,
+               seed=12345)  # fmt: skip
+
+
 def new_job(key: str | None = None, **fields) -> NewJob:
     defaults = dict(
-        id=uuid.uuid4().hex, job_key=key or f"sha256:{uuid.uuid4().hex}", backend="sim",
-        shots=100, seed=None, repeat=0, spec={"circuit": "x"}, max_attempts=3,
+        id=uuid.uuid4().hex, job_key=key or f"sha256:{uuid.uuid4().hex}", spec=SPEC,
+        max_attempts=3,
     )  # fmt: skip
+    if "backend" in fields:
+        defaults["spec"] = dataclasses.replace(SPEC, backend=fields.pop("backend"))
     defaults.update(fields)
     return NewJob(**defaults)
 

@@ -38,7 +38,7 @@ def _fp(keep: Path) -> str:
 def owner(tmp_path: Path) -> Path:
     keep = tmp_path / "owner"
     with Keeper.open(keep) as keeper:
-        keeper.run_many([circuit_text(0.1), circuit_text(0.2)], shots=32, seed=1, label="own")
+        keeper.run_many([circuit_text(0.1), circuit_text(0.2)], shots=32, seed=1, labels={"own"})
     return keep
 
 

@@ -77,7 +77,7 @@ PLANTS = [
     # the core importing an adapter instead of asking the registry
     ("queue.py", "from jobkeeper.backends.sim.statevector import StatevectorBackend", "protected"),
     # a cycle between two packages of jobkeeper
-    ("circuit/ir.py", "import jobkeeper.spec", "cycle"),  # spec imports circuit.ir
+    ("circuit/ir.py", "import jobkeeper.preflight", "cycle"),  # preflight imports circuit
     # another package's private module
     ("keeper.py", f"import {_private_module()}", "private"),
     # one adapter importing another
