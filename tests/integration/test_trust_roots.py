@@ -46,7 +46,7 @@ def _attack(owner: Path, tmp_path: Path, label: str = "forged") -> Path:
     """An attacker with write access: a keep of its own on the owner's archive file."""
     evil = tmp_path / "evil"
     with Keeper.open(evil, store=str(owner / "archive.db")) as keeper:
-        keeper.run(circuit_text(0.7), shots=32, seed=5, label=label)
+        keeper.run(circuit_text(0.7), shots=32, seed=5, labels={label})
     return evil
 
 

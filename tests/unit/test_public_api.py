@@ -30,8 +30,9 @@ def test_keeper_has_a_method_for_every_command() -> None:
     # DESIGN §2: the CLI holds no logic the Python API lacks.
     for method in ("submit", "submit_many", "run", "run_many", "work", "jobs", "job", "wait",
                    "cancel", "check", "rerun", "compare", "verify", "verify_bundle", "bundle",
-                   "keys", "trust", "backend_infos"):  # fmt: skip
+                   "keys", "export", "manifest", "backend_infos"):  # fmt: skip
         assert callable(getattr(jobkeeper.Keeper, method)), method
+    assert isinstance(jobkeeper.Keeper.trust, property)  # trust add/list/remove/import
 
 
 def test_submit_keywords_are_the_fields_of_submit_options() -> None:
