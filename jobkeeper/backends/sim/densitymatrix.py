@@ -43,20 +43,16 @@ from typing import Any
 
 import numpy as np
 import numpy.typing as npt
-from pydantic import Field, StrictInt, model_validator
+from pydantic import Field, StrictInt
 
 from jobkeeper.backend import Pricing
 from jobkeeper.backends.sim import density_state as dm
 from jobkeeper.backends.sim import kernels
 from jobkeeper.backends.sim.base import (
     BRANCH_FLOOR,
-    PricingTable,
     Simulator,
-    SimulatorOptions,
     holds,
-    parse_options,
 )
-from jobkeeper.backends.sim.calibration import NoiseSourceOptions, noise_from_source
 from jobkeeper.backends.sim.density_program import (
     DEFAULT_MAX_WIDTH,
     Channel,
@@ -64,12 +60,11 @@ from jobkeeper.backends.sim.density_program import (
     compile_density,
 )
 from jobkeeper.backends.sim.noise import (
-    NOISE_KEYS,
     NoiseModel,
-    NoiseTable,
     log10_success_probability,
     noise_model_from_calibration,
 )
+from jobkeeper.backends.sim.noisy_options import NoisyOptions, parse_noisy
 from jobkeeper.backends.sim.program import Measure, Reset
 from jobkeeper.backends.sim.sampling import Floats
 from jobkeeper.circuit.ir import Circuit
@@ -82,48 +77,16 @@ DEFAULT_MAX_QUBITS = 12
 BYTES_PER_ENTRY = 16
 
 
-class DensityMatrixOptions(NoiseTable, NoiseSourceOptions, SimulatorOptions):
+class DensityMatrixOptions(NoisyOptions):
     adapter: str = "densitymatrix"
     max_qubits: StrictInt = Field(default=DEFAULT_MAX_QUBITS, ge=1, le=16)
     fusion_width: StrictInt = Field(default=DEFAULT_MAX_WIDTH, ge=2, le=8)
-    pricing: PricingTable | None = None
-    calibration: dict[str, Any] | None = None
-
-    @model_validator(mode="after")
-    def _one_source(self) -> DensityMatrixOptions:
-        if self.calibration is not None:
-            top = sorted(set(NOISE_KEYS) & self.model_fields_set)
-            if top:
-                raise ValueError(
-                    f"noise is given both at top level ({', '.join(top)}) and in calibration; "
-                    "give it in one place"
-                )
-        return self
 
 
 def _parse(
     name: str, config: Mapping[str, Any]
 ) -> tuple[DensityMatrixOptions, NoiseModel, dict[str, Any] | None]:
-    what = f"densitymatrix backend {name!r}"
-    table = parse_options(DensityMatrixOptions, what, config)
-    source = noise_from_source(what, table)
-    if source is not None:
-        if table.calibration is not None or set(NOISE_KEYS) & table.model_fields_set:
-            raise ConfigError(f"{what}: noise_from takes the place of the noise keys; give one")
-        try:
-            return table, noise_model_from_calibration(source[0]), source[1]
-        except ConfigError as exc:
-            raise ConfigError(f"{what}: from {table.noise_from!r}'s snapshot: {exc}") from None
-    if table.calibration is not None:
-        try:
-            noise = noise_model_from_calibration(table.calibration)
-        except ConfigError as exc:
-            raise ConfigError(f"{what}: {exc}") from None
-    else:
-        noise = noise_model_from_calibration(
-            {k: getattr(table, k) for k in NOISE_KEYS if k in table.model_fields_set}
-        )
-    return table, noise, None
+    return parse_noisy(DensityMatrixOptions, f"densitymatrix backend {name!r}", config)
 
 
 class DensityMatrixBackend(Simulator[DensityProgram]):

@@ -39,24 +39,18 @@ from collections.abc import Mapping
 from typing import Any
 
 import numpy as np
-from pydantic import Field, StrictInt, model_validator
+from pydantic import Field, StrictInt
 
 from jobkeeper.backend import Pricing, Result, Task
 from jobkeeper.backends.sim.base import (
-    PricingTable,
     Simulator,
-    SimulatorOptions,
     estimated_seconds,
-    parse_options,
 )
-from jobkeeper.backends.sim.calibration import NoiseSourceOptions, noise_from_source
 from jobkeeper.backends.sim.noise import (
-    NOISE_KEYS,
     NoiseModel,
-    NoiseTable,
     log10_success_probability,
-    noise_model_from_calibration,
 )
+from jobkeeper.backends.sim.noisy_options import NoisyOptions, parse_noisy
 from jobkeeper.backends.sim.sampling import TABLE_FROM, BitFormatter
 from jobkeeper.backends.sim.trajectory_program import (
     DEFAULT_MAX_WIDTH,
@@ -79,49 +73,17 @@ DEFAULT_TRAJECTORIES = 1000
 BYTES_PER_AMPLITUDE = 40
 
 
-class TrajectoryOptions(NoiseTable, NoiseSourceOptions, SimulatorOptions):
+class TrajectoryOptions(NoisyOptions):
     adapter: str = METHOD
     max_qubits: StrictInt = Field(default=DEFAULT_MAX_QUBITS, ge=1, le=40)
     fusion_width: StrictInt = Field(default=DEFAULT_MAX_WIDTH, ge=1, le=8)
     trajectories: StrictInt | None = Field(default=None, ge=1)
-    pricing: PricingTable | None = None
-    calibration: dict[str, Any] | None = None
-
-    @model_validator(mode="after")
-    def _one_source(self) -> TrajectoryOptions:
-        if self.calibration is not None:
-            top = sorted(set(NOISE_KEYS) & self.model_fields_set)
-            if top:
-                raise ValueError(
-                    f"noise is given both at top level ({', '.join(top)}) and in calibration; "
-                    "give it in one place"
-                )
-        return self
 
 
 def _parse(
     name: str, config: Mapping[str, Any]
 ) -> tuple[TrajectoryOptions, NoiseModel, dict[str, Any] | None]:
-    what = f"trajectories backend {name!r}"
-    table = parse_options(TrajectoryOptions, what, config)
-    source = noise_from_source(what, table)
-    if source is not None:
-        if table.calibration is not None or set(NOISE_KEYS) & table.model_fields_set:
-            raise ConfigError(f"{what}: noise_from takes the place of the noise keys; give one")
-        try:
-            return table, noise_model_from_calibration(source[0]), source[1]
-        except ConfigError as exc:
-            raise ConfigError(f"{what}: from {table.noise_from!r}'s snapshot: {exc}") from None
-    if table.calibration is not None:
-        try:
-            noise = noise_model_from_calibration(table.calibration)
-        except ConfigError as exc:
-            raise ConfigError(f"{what}: {exc}") from None
-    else:
-        noise = noise_model_from_calibration(
-            {k: getattr(table, k) for k in NOISE_KEYS if k in table.model_fields_set}
-        )
-    return table, noise, None
+    return parse_noisy(TrajectoryOptions, f"trajectories backend {name!r}", config)
 
 
 def share_shots(shots: int, cap: int | None) -> list[int]:
