@@ -1,13 +1,21 @@
-"""jobkeeper's demo: submit circuits, drain the queue, show counts, deduplication and proof.
+"""jobkeeper's demo: submit circuits, drain the queue, show counts, deduplication and proof,
+then rehearse on a noisy stand-in of a device.
 
 The scenario is invented: a small group checks three textbook circuits on the built-in
-state-vector simulator before spending device time. Run it with ``make demo``.
+state-vector simulator before spending device time, then asks what the device would
+probably return. The device is jobkeeper's loopback device on 127.0.0.1 with invented
+calibration numbers (no real device is contacted). Run it with ``make demo``.
 """
 
 from __future__ import annotations
 
+import os
+import secrets
+import socket
+import subprocess
 import sys
 import tempfile
+import time
 from pathlib import Path
 
 from jobkeeper import Keeper
@@ -42,7 +50,70 @@ def main() -> int:
         print(f"verify: {report.checked} jobs checked, {verdict}")
         for problem in report.problems:
             print(f"  - {problem}")
-        return 0 if report.ok else 1
+    rehearsed = rehearse(keep, CIRCUITS[1])
+    return 0 if report.ok and rehearsed else 1
+
+
+def rehearse(keep: Path, circuit: Path) -> bool:
+    """Run one job on the (loopback) device so its calibration is archived, then run the
+    circuit on a trajectory simulator whose noise comes from that snapshot, and compare
+    the noisy counts with the circuit's ideal distribution."""
+    print("\nrehearsal on a noisy stand-in (invented device: the loopback device on 127.0.0.1)")
+    token = secrets.token_hex(16)  # made up for this run; it lives only in the environment
+    env = {**os.environ, "JOBKEEPER_LOOPBACK_TOKEN": token}
+    port = free_port()
+    command = [sys.executable, "-m", "jobkeeper", "loopback-device", "--port", str(port),
+               "--queue-delay", "0.2", "--seed", "11"]  # fmt: skip
+    with subprocess.Popen(
+        command, env=env, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL
+    ) as device:
+        try:
+            wait_for_port(port, timeout=15.0)
+            os.environ["DEMO_DEVICE_TOKEN"] = token
+            (keep / "config.toml").write_text(
+                "[backends.device]\n"
+                'adapter = "rest"\nprofile = "loopback"\n'
+                f'url = "http://127.0.0.1:{port}"\ntoken_env = "DEMO_DEVICE_TOKEN"\n\n'
+                "[backends.standin]\n"
+                'adapter = "trajectories"\nnoise_from = "device"\n'
+            )
+            return run_rehearsal(keep, circuit)
+        finally:
+            device.terminate()
+
+
+def run_rehearsal(keep: Path, circuit: Path) -> bool:
+    with Keeper.open(keep) as keeper:
+        first = keeper.run(circuit, backend="device", shots=200, seed=3)
+        print(f"device job {first.id[:12]}: {first.state}; its calibration is archived")
+        noisy = keeper.run(circuit, backend="standin", shots=2000, seed=7)
+        result = noisy.result
+        noise = result.metadata.get("noise", {}) if result is not None else {}
+        digest = str(noise.get("derived_from", {}).get("snapshot_digest", "?"))
+        print(f"stand-in job {noisy.id[:12]}: {noisy.state}; noise from snapshot {digest[:19]}…")
+        counts = noisy.counts
+        for outcome in sorted(counts, key=lambda key: (-counts[key], key))[:4]:
+            print(f"  {outcome}  {counts[outcome]:>5}  {counts[outcome] / 2000:6.1%}")
+        judgement = keeper.compare(noisy, ideal=True)
+        print(f"compare --ideal: {judgement.comparison.summary()}")
+        print("(a simulated rehearsal with invented noise: it predicts, it does not measure)")
+        return first.state == "done" and noisy.state == "done"
+
+
+def free_port() -> int:
+    with socket.socket() as probe:
+        probe.bind(("127.0.0.1", 0))
+        return int(probe.getsockname()[1])
+
+
+def wait_for_port(port: int, *, timeout: float) -> None:
+    deadline = time.monotonic() + timeout
+    while time.monotonic() < deadline:
+        with socket.socket() as probe:
+            if probe.connect_ex(("127.0.0.1", port)) == 0:
+                return
+        time.sleep(0.1)
+    raise SystemExit(f"the loopback device did not start on port {port} in {timeout:.0f} s")
 
 
 if __name__ == "__main__":

@@ -17,6 +17,10 @@ def test_the_demo_runs_and_verifies() -> None:
     assert proc.returncode == 0, proc.stderr
     assert "deduplicated=True" in proc.stdout
     assert "all signatures, digests and log proofs hold" in proc.stdout
+    # The rehearsal step: a noisy stand-in built from the device's archived calibration,
+    # judged against the ideal distribution (issue: noisy rehearsal).
+    assert "noise from snapshot sha256:" in proc.stdout
+    assert "compare --ideal:" in proc.stdout
 
 
 def test_the_example_device_profile_loads() -> None:
