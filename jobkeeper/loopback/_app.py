@@ -17,19 +17,25 @@ HTTP-date Retry-After; ``429`` with a delta-seconds Retry-After; ``slow`` (the a
 comes after ``slow_delay`` seconds, past the client's timeout; the request is still
 carried out); ``drop`` (headers, then the connection closes mid-body, nothing done);
 ``malformed`` (200 with broken JSON, nothing done); ``lost`` (the request is carried out,
-e.g. the job IS created, then the answer is cut off like ``drop``).
+e.g. the job IS created, then the answer is cut off like ``drop``). One more kind is
+never drawn at random, only asked for by name (``force``, or ``--faults huge``):
+``huge`` (200 with a JSON answer of ``huge_size`` bytes, 200 MiB by default, streamed
+without a length; a hostile device's endless job id; nothing done).
 """
 
 from __future__ import annotations
 
 import asyncio
+import base64
 import hmac
 import json
 import random
 from collections import deque
+from collections.abc import Callable
 from dataclasses import dataclass
 from datetime import UTC, datetime, timedelta
 from typing import Any
+from urllib.parse import quote
 
 from starlette.applications import Starlette
 from starlette.concurrency import run_in_threadpool
@@ -42,6 +48,18 @@ from jobkeeper.backends.rest.wire import format_http_date, parse_structured_stri
 from jobkeeper.loopback._device import LoopbackDevice, Rejection
 
 ALL_FAULTS = ("500", "503", "429", "slow", "drop", "malformed", "lost")
+#: every fault kind: ALL_FAULTS and those injected only when named.
+KNOWN_FAULTS = (*ALL_FAULTS, "huge")
+#: how a careless device may echo the credentials it was sent (see ``echo_on_rejection``).
+ECHO_FORMS: dict[str, Callable[[str], str]] = {
+    "lower": str.lower,
+    "upper": str.upper,
+    "base64": lambda text: base64.b64encode(text.encode()).decode(),
+    "url": lambda text: quote(text, safe=""),
+    "hex": lambda text: text.encode().hex(),
+}
+#: the chunk in which a ``huge`` answer is streamed.
+_HUGE_CHUNK = 1024 * 1024
 #: a request body larger than this is refused (413) before it is read.
 MAX_BODY = 4 * 1024 * 1024
 
@@ -55,11 +73,12 @@ class FaultPlan:
     seed: int = 0
     slow_delay: float = 35.0
     retry_after: int = 1
+    huge_size: int = 200 * 1024 * 1024
 
     def __post_init__(self) -> None:
-        unknown = set(self.kinds) - set(ALL_FAULTS)
+        unknown = set(self.kinds) - set(KNOWN_FAULTS)
         if unknown:
-            raise ValueError(f"unknown fault kinds {sorted(unknown)}; known: {ALL_FAULTS}")
+            raise ValueError(f"unknown fault kinds {sorted(unknown)}; known: {KNOWN_FAULTS}")
         if not 0.0 <= self.rate <= 1.0:
             raise ValueError(f"fault rate must be in [0, 1], not {self.rate}")
         if self.rate > 0 and not self.kinds:
@@ -182,6 +201,30 @@ async def _cut_off(send: Send) -> None:
     await send({"type": "http.response.body", "body": b'{"job": ', "more_body": True})
 
 
+async def _huge(send: Send, size: int) -> None:
+    # A job id that never ends: streamed (no Content-Length) so that only a client that
+    # counts what it reads can stop it. A client that hangs up ends the stream early.
+    await send(
+        {
+            "type": "http.response.start",
+            "status": 200,
+            "headers": [(b"content-type", b"application/json")],
+        }
+    )
+    head = b'{"job": {"id": "'
+    await send({"type": "http.response.body", "body": head, "more_body": True})
+    chunk = b"x" * _HUGE_CHUNK
+    sent = len(head)
+    while sent < size:  # bounded by size
+        piece = chunk[: min(_HUGE_CHUNK, size - sent)]
+        try:
+            await send({"type": "http.response.body", "body": piece, "more_body": True})
+        except OSError:  # the client hung up
+            return
+        sent += len(piece)
+    await send({"type": "http.response.body", "body": b'"}}', "more_body": False})
+
+
 class LoopbackApp:
     """The ASGI application: token check and faults around the routes."""
 
@@ -194,6 +237,20 @@ class LoopbackApp:
         self._rng = random.Random(faults.seed)
         self._routes = _routes(device)
         self._forced: deque[tuple[str, str | None, str | None]] = deque()
+        self._echoes: deque[str] = deque()
+
+    def echo_on_rejection(self, form: str, *, times: int = 1) -> None:
+        """Refuse the next ``times`` ``/v1`` requests with a 400 whose message echoes the
+        credentials the client sent, in ``form`` (one of ECHO_FORMS): how a careless
+        device leaks a token into an error message."""
+        if form not in ECHO_FORMS:
+            raise ValueError(f"unknown echo form {form!r}; known: {sorted(ECHO_FORMS)}")
+        self._echoes.extend([form] * times)
+
+    def _echo(self, scope: Scope, form: str) -> Response:
+        sent = dict(scope["headers"]).get(b"authorization", b"").decode("latin-1")
+        echoed = ECHO_FORMS[form](sent)
+        return _error(400, "bad-credentials", f"credentials {echoed} are not valid here")
 
     def force(
         self, kind: str, *, method: str | None = None, path: str | None = None, times: int = 1
@@ -201,8 +258,8 @@ class LoopbackApp:
         """Inject ``kind`` into the next ``times`` ``/v1`` requests that match ``method``
         and start with ``path`` (None matches any), before any random draw. Safe to call
         from another thread (deque appends and pops are atomic)."""
-        if kind not in ALL_FAULTS:
-            raise ValueError(f"unknown fault kind {kind!r}; known: {ALL_FAULTS}")
+        if kind not in KNOWN_FAULTS:
+            raise ValueError(f"unknown fault kind {kind!r}; known: {KNOWN_FAULTS}")
         for _ in range(times):
             self._forced.append((kind, method, path))
 
@@ -248,6 +305,11 @@ class LoopbackApp:
             )
         elif not length.isdigit() or int(length) > MAX_BODY:
             response = _error(413, "too-large", f"request bodies are limited to {MAX_BODY} bytes")
+        elif self._echoes:
+            try:
+                response = self._echo(scope, self._echoes.popleft())
+            except IndexError:  # taken by a concurrent request
+                response = None
         if response is not None:
             await response(scope, receive, send)
             return
@@ -282,6 +344,8 @@ class LoopbackApp:
             await Response(body, status_code=200, media_type="application/json")(
                 scope, receive, send
             )
+        elif kind == "huge":
+            await _huge(send, plan.huge_size)
         elif kind == "lost":
             await self._routes(scope, receive, _discard)
             await _cut_off(send)
@@ -300,6 +364,7 @@ def create_app(
     retry_after: int = 1,
     max_qubits: int = 20,
     max_jobs: int = 100_000,
+    huge_size: int = 200 * 1024 * 1024,
 ) -> LoopbackApp:
     """The loopback device as an ASGI application (for uvicorn, or httpx's ASGITransport)."""
     from jobkeeper.loopback._sim import check_program, simulate
@@ -318,5 +383,6 @@ def create_app(
         seed=seed,
         slow_delay=slow_delay,
         retry_after=retry_after,
+        huge_size=huge_size,
     )
     return LoopbackApp(device, token=token, faults=plan)

@@ -79,6 +79,7 @@ def running_device(
     slow_delay: float = 1.0,
     retry_after: int = 1,
     max_qubits: int = 20,
+    huge_size: int = 200 * 1024 * 1024,
     startup_timeout: float = 10.0,
 ) -> Iterator[RunningDevice]:
     """Start a loopback device on 127.0.0.1 and a free port; stop it on exit. The
@@ -93,6 +94,7 @@ def running_device(
         slow_delay=slow_delay,
         retry_after=retry_after,
         max_qubits=max_qubits,
+        huge_size=huge_size,
     )
     with BackgroundDevice(app, startup_timeout=startup_timeout) as server:
         yield RunningDevice(url=server.url, token=token, token_env=token_env, app=app)

@@ -14,7 +14,14 @@ import pytest
 
 from jobkeeper.backend import Task
 from jobkeeper.backends.rest.adapter import RestBackend
-from jobkeeper.backends.rest.http import MAX_RETRY_AFTER, DeviceAuthError, InCallRetry, Timeouts
+from jobkeeper.backends.rest.http import (
+    MAX_RETRY_AFTER,
+    AnswerTooLarge,
+    DeviceAuthError,
+    DeviceForgotJob,
+    InCallRetry,
+    Timeouts,
+)
 from jobkeeper.backends.rest.profile import load_profile
 from jobkeeper.circuit.ir import Circuit
 from jobkeeper.exceptions import PermanentBackendError, TransientBackendError
@@ -344,3 +351,35 @@ def test_calibration_is_cached_and_refreshable() -> None:
     assert device.count("GET", "/v1/calibration") == 2
     assert rest.info.calibration is not None
     assert rest.info.calibration["device"] == "loopback"
+
+
+# --------------------------------------------------------------------------- hostile answers
+
+
+def test_a_job_id_longer_than_a_kibibyte_is_refused() -> None:
+    device = loopback_device(extra={("POST", "/v1/jobs"): {"job": {"id": "x" * 1025}}})
+    with pytest.raises(PermanentBackendError, match="1025 bytes long; at most 1024"):
+        run(backend(device).start(task(), client_key=KEY))
+
+
+def test_an_announced_answer_beyond_max_answer_is_not_read() -> None:
+    big = httpx.Response(200, headers={"Content-Length": "5000000"}, content=b"{}")
+    device = loopback_device(extra={("POST", "/v1/jobs"): big})
+    with pytest.raises(AnswerTooLarge, match="larger than 4194304 bytes"):
+        run(backend(device).start(task(), client_key=KEY))
+
+
+def test_a_forgotten_job_fails_and_is_not_sent_again() -> None:
+    gone = httpx.Response(404, json={"error": {"message": "no job 'lb-1'"}})
+    device = loopback_device(extra={("GET", "/v1/jobs/lb-1"): gone})
+    with pytest.raises(DeviceForgotJob, match="no longer knows this job") as caught:
+        run(backend(device).poll("lb-1"))
+    assert "rerun" in str(caught.value)
+    assert device.count("POST", "/v1/jobs") == 0 and device.count("GET", "/v1/jobs/lb-1") == 1
+
+
+def test_a_failure_message_echoing_the_token_is_redacted() -> None:
+    failed = {"job": {"id": "lb-1", "state": "error", "message": f"bad {TOKEN.upper()}"}}
+    device = loopback_device(extra={("GET", "/v1/jobs/lb-1"): failed})
+    polled = run(backend(device).poll("lb-1"))
+    assert polled.state == "failed" and polled.message.endswith("bad [redacted]")

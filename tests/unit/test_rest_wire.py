@@ -8,6 +8,7 @@ from datetime import UTC, datetime
 
 import pytest
 
+from jobkeeper.backends.rest.redaction import redact
 from jobkeeper.backends.rest.wire import (
     PointerError,
     fill_path,
@@ -16,7 +17,6 @@ from jobkeeper.backends.rest.wire import (
     parse_retry_after,
     parse_structured_string,
     pointer_tokens,
-    redact,
     resolve_pointer,
     structured_string,
     template_fields,

@@ -25,7 +25,6 @@ from __future__ import annotations
 
 import asyncio
 import os
-import ssl
 import time
 from collections import OrderedDict
 from collections.abc import Mapping
@@ -39,19 +38,19 @@ from jobkeeper.backend import BackendInfo, Polled, Pricing, Result, Started, Tas
 from jobkeeper.backends.rest.config import parse_config
 from jobkeeper.backends.rest.http import (
     DEFAULT_IN_CALL_RETRY,
+    DEFAULT_MAX_ANSWER,
     DEFAULT_TIMEOUTS,
+    MAX_HANDLE,
     DeviceAuthError,
     InCallRetry,
     Reply,
     Timeouts,
     Wire,
-    read_reply,
-    request_headers,
-    retrying,
-    transport_error,
 )
 from jobkeeper.backends.rest.profile import DeviceProfile, RequestSpec, load_profile
+from jobkeeper.backends.rest.redaction import Redactor
 from jobkeeper.backends.rest.results import outcome_from, pick, pick_text
+from jobkeeper.backends.rest.session import DeviceSession, Outgoing
 from jobkeeper.backends.rest.wire import fill_path, fill_template, structured_string
 from jobkeeper.exceptions import PermanentBackendError
 from jobkeeper.hashing import digest_of
@@ -90,6 +89,7 @@ class RestBackend:
         timeouts: Timeouts = DEFAULT_TIMEOUTS,
         max_connections: int = 10,
         retry: InCallRetry = DEFAULT_IN_CALL_RETRY,
+        max_answer: int = DEFAULT_MAX_ANSWER,
         pricing: Pricing | None = None,
         max_qubits: int | None = None,
         ca_file: str | None = None,
@@ -102,22 +102,27 @@ class RestBackend:
         self._profile = profile
         self._url = url.rstrip("/")
         self._token_env = token_env
-        self._timeouts = timeouts
-        self._max_connections = max_connections
-        self._retry = retry
         self._pricing = pricing
         self._max_qubits = min(max_qubits or profile.device.max_qubits, profile.device.max_qubits)
-        self._ca_file = ca_file
-        self._trust_env = trust_env
         self._config_hash = config_hash
         self._environ = environ if environ is not None else os.environ
-        self._transport = transport
-        self._client: httpx.AsyncClient | None = None
-        self._wire = Wire(
-            backend=name,
-            token_env=token_env,
-            retry_header=profile.retry_hint.header,
-            message_pointer=profile.errors.message,
+        self._session = DeviceSession(
+            url=url,
+            wire=Wire(
+                backend=name,
+                token_env=token_env,
+                retry_header=profile.retry_hint.header,
+                message_pointer=profile.errors.message,
+            ),
+            user_agent=_user_agent(),
+            redactor=Redactor(),
+            timeouts=timeouts,
+            max_connections=max_connections,
+            retry=retry,
+            max_answer=max_answer,
+            ca_file=ca_file,
+            trust_env=trust_env,
+            transport=transport,
         )
         self._profile_digest = profile.digest()
         self._calibration: dict[str, Any] | None = None
@@ -165,48 +170,13 @@ class RestBackend:
                 f"{self._name}: environment variable {self._token_env} is not set or empty; "
                 "it must hold the device's token"
             )
+        self._session.redactor.add(token.strip())
         return token.strip()
 
-    def _http(self) -> httpx.AsyncClient:
-        if self._client is None:
-            verify: ssl.SSLContext | bool = True
-            if self._ca_file is not None:
-                verify = ssl.create_default_context(cafile=self._ca_file)
-            limits = httpx.Limits(
-                max_connections=self._max_connections,
-                max_keepalive_connections=self._max_connections,
-                keepalive_expiry=30.0,
-            )
-            self._client = httpx.AsyncClient(
-                base_url=self._url,
-                timeout=self._timeouts.to_httpx(),
-                limits=limits,
-                verify=verify,
-                trust_env=self._trust_env,
-                follow_redirects=False,
-                transport=self._transport,
-            )
-        return self._client
-
-    async def _send_once(
-        self, op: str, spec: RequestSpec, handle: str | None, body: Any, key: str | None
-    ) -> Reply:
+    async def _auth_headers(self) -> dict[str, str]:
         token = self._token()
         auth = self._profile.auth
-        extra = {auth.header: f"{auth.scheme} {token}" if auth.scheme else token}
-        if key is not None:
-            idem = self._profile.idempotency
-            extra[idem.header] = structured_string(key) if idem.structured else key
-        try:
-            response = await self._http().request(
-                spec.method,
-                fill_path(spec.path, handle=handle),
-                json=body,
-                headers=request_headers(extra, _user_agent()),
-            )
-        except httpx.HTTPError as exc:
-            raise transport_error(op, exc, self._wire, token) from exc
-        return read_reply(op, response, self._wire, token)
+        return {auth.header: f"{auth.scheme} {token}" if auth.scheme else token}
 
     async def _send(
         self,
@@ -217,10 +187,14 @@ class RestBackend:
         body: Any = None,
         key: str | None = None,
     ) -> Reply:
-        async for attempt in retrying(self._retry):
-            with attempt:
-                return await self._send_once(op, spec, handle, body, key)
-        raise AssertionError("unreachable: tenacity re-raises the last error")
+        headers: dict[str, str] = {}
+        if key is not None:
+            idem = self._profile.idempotency
+            headers[idem.header] = structured_string(key) if idem.structured else key
+        request = Outgoing(
+            spec.method, fill_path(spec.path, handle=handle), body=body, headers=headers
+        )
+        return await self._session.send(op, request, self._auth_headers)
 
     # ------------------------------------------------------------------ calibration
 
@@ -243,7 +217,7 @@ class RestBackend:
             self._calibration = {
                 "device": self._profile.device.name,
                 "fetched_at": datetime.now(UTC).isoformat(timespec="seconds"),
-                "data": data,
+                "data": self._session.redactor.document(data),
             }
             self._calibration_at = time.monotonic()
             return self._calibration
@@ -305,6 +279,15 @@ class RestBackend:
                 "not a non-empty string or integer"
             )
         handle = str(raw)
+        if len(handle.encode("utf-8")) > MAX_HANDLE:
+            raise PermanentBackendError(
+                f"{self._name}: the device's job id is {len(handle.encode('utf-8'))} bytes "
+                f"long; at most {MAX_HANDLE} are accepted"
+            )
+        if self._session.redactor.holds_secret(handle):
+            raise PermanentBackendError(
+                f"{self._name}: the device's job id holds a secret; it is not kept"
+            )
         self._remember(handle, dict(calibration) if calibration is not None else None)
         return Started(handle=handle, poll_after=reply.retry_after)
 
@@ -328,7 +311,7 @@ class RestBackend:
             pointer = requests.status.message
             if pointer is not None:
                 detail = pick_text(reply.document, pointer, "status", self._profile, default="")
-                message += f": {detail}" if detail else ""
+                message += f": {self._session.redactor.text(detail)}" if detail else ""
             return Polled(state=state, message=message)
         document = reply.document
         if requests.result is not None:
@@ -344,7 +327,7 @@ class RestBackend:
             "calibration": calibration,
         }
         if device_metadata is not None:
-            metadata["device_metadata"] = device_metadata
+            metadata["device_metadata"] = self._session.redactor.document(device_metadata)
         return Polled(
             state="done",
             result=Result(counts=counts, probabilities=probabilities, metadata=metadata),
@@ -361,9 +344,7 @@ class RestBackend:
         await self._send("cancel", spec, handle=handle)
 
     async def aclose(self) -> None:
-        if self._client is not None:
-            await self._client.aclose()
-            self._client = None
+        await self._session.aclose()
 
     async def __aenter__(self) -> RestBackend:
         return self
@@ -384,6 +365,7 @@ def from_config(name: str, config: Mapping[str, Any]) -> RestBackend:
         timeouts=settings.timeouts(),
         max_connections=settings.max_connections,
         retry=settings.in_call_retry(),
+        max_answer=settings.max_answer,
         pricing=settings.pricing_value(),
         max_qubits=settings.max_qubits,
         ca_file=settings.ca_file,

@@ -15,7 +15,12 @@ import httpx
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator
 
 from jobkeeper.backend import Pricing
-from jobkeeper.backends.rest.http import DEFAULT_IN_CALL_RETRY, InCallRetry, Timeouts
+from jobkeeper.backends.rest.http import (
+    DEFAULT_IN_CALL_RETRY,
+    DEFAULT_MAX_ANSWER,
+    InCallRetry,
+    Timeouts,
+)
 from jobkeeper.exceptions import ConfigError
 
 _SECRET_KEYS = re.compile(r"token|secret|password|api_?key|credential", re.IGNORECASE)
@@ -62,6 +67,8 @@ class RestConfig(_Table):
     token_env: str
     timeout: float | TimeoutTable | None = None
     max_connections: int = Field(default=10, ge=1, le=1000)
+    #: the largest answer read from the device, in bytes (1 KiB to 1 GiB)
+    max_answer: int = Field(default=DEFAULT_MAX_ANSWER, ge=1024, le=2**30)
     max_qubits: int | None = Field(default=None, ge=1)
     pricing: PricingTable | None = None
     retry: RetryTable | None = None

@@ -19,7 +19,7 @@ import json
 import logging
 import ssl
 from collections.abc import Callable, Mapping
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
 import httpx
@@ -32,7 +32,8 @@ from tenacity import (
 )
 
 from jobkeeper.backend import report_try
-from jobkeeper.backends.rest.wire import PointerError, parse_retry_after, redact, resolve_pointer
+from jobkeeper.backends.rest.redaction import Redactor
+from jobkeeper.backends.rest.wire import PointerError, parse_retry_after, resolve_pointer
 from jobkeeper.exceptions import PermanentBackendError, TransientBackendError
 
 log = logging.getLogger("jobkeeper.backends.rest.adapter")
@@ -41,11 +42,28 @@ log = logging.getLogger("jobkeeper.backends.rest.adapter")
 MAX_RETRY_AFTER = 3600.0
 #: device messages are cut to this many characters in our errors.
 MAX_MESSAGE = 500
+#: the largest answer read from a device, by default (bytes, after decompression).
+DEFAULT_MAX_ANSWER = 4 * 1024 * 1024
+#: the longest job handle accepted from a device (bytes of UTF-8).
+MAX_HANDLE = 1024
+#: headers that describe the bytes on the wire, not the body as read.
+_WIRE_HEADERS = frozenset({"content-encoding", "content-length", "transfer-encoding"})
 
 
 class DeviceAuthError(PermanentBackendError):
     """The device refused the token (401/403), or the token's environment variable is not
-    set. It concerns every job on the backend, not just one."""
+    set. It concerns every job on the backend, not just one. ``status`` is the device's
+    HTTP status, None when no request was sent."""
+
+    def __init__(self, message: str, *, status: int | None = None) -> None:
+        super().__init__(message)
+        self.status = status
+
+
+class DeviceForgotJob(PermanentBackendError):
+    """The device answers 404 or 410 for a job it accepted: it lost the job (a restart
+    that kept no state, an expiry). The job fails; it is never submitted again on its
+    own, since the device may have run it before it forgot."""
 
 
 @dataclass(frozen=True)
@@ -92,12 +110,14 @@ NOUNS = {
 
 @dataclass(frozen=True)
 class Reply:
-    """A device's successful answer: status code, parsed JSON (None when empty) and the
-    retry hint in seconds, if it gave one."""
+    """A device's successful answer: status code, parsed JSON (None when empty), the
+    retry hint in seconds, if it gave one, its headers and the URL it answered."""
 
     status: int
     document: Any
     retry_after: float | None
+    headers: httpx.Headers = field(default_factory=httpx.Headers)
+    url: str = ""
 
 
 @dataclass(frozen=True)
@@ -122,7 +142,7 @@ def _clamp(seconds: float | None, wire: Wire) -> float | None:
     return seconds
 
 
-def device_message(response: httpx.Response, wire: Wire, secret: str | None) -> str:
+def device_message(response: httpx.Response, wire: Wire, redactor: Redactor) -> str:
     """The device's human-readable message from an error answer, redacted and cut short."""
     text = ""
     if wire.message_pointer is not None:
@@ -133,39 +153,47 @@ def device_message(response: httpx.Response, wire: Wire, secret: str | None) -> 
             text = ""
     if not text:
         text = response.text.strip() or response.reason_phrase or "no message"
-    text = redact(" ".join(text.split()), secret)
+    text = redactor.text(" ".join(text.split()))
     return text if len(text) <= MAX_MESSAGE else text[: MAX_MESSAGE - 1] + "…"
 
 
-def read_reply(op: str, response: httpx.Response, wire: Wire, secret: str | None) -> Reply:
+def read_reply(op: str, response: httpx.Response, wire: Wire, redactor: Redactor) -> Reply:
     """A successful :class:`Reply`, or the error the answer stands for."""
     status = response.status_code
     retry_after = _clamp(parse_retry_after(response.headers.get(wire.retry_header)), wire)
+    headers, url = response.headers, str(response.request.url)
     if 200 <= status < 300:
         if not response.content.strip():
-            return Reply(status, None, retry_after)
+            return Reply(status, None, retry_after, headers, url)
         try:
-            return Reply(status, response.json(), retry_after)
-        except (ValueError, UnicodeDecodeError):
+            return Reply(status, response.json(), retry_after, headers, url)
+        except (ValueError, UnicodeDecodeError, RecursionError):
             raise TransientBackendError(
                 f"{wire.backend}: the device's answer to the {op} request is not valid JSON"
                 + (" (the submission may have been accepted)" if op == "submit" else ""),
                 retry_after=retry_after,
             ) from None
-    message = device_message(response, wire, secret)
+    message = device_message(response, wire, redactor)
     if op == "cancel" and status == 409:
         # the job already finished (or was cancelled): the next poll tells which.
-        return Reply(status, None, retry_after)
+        return Reply(status, None, retry_after, headers, url)
     if status in (401, 403):
         raise DeviceAuthError(
             f"{wire.backend}: the device refused the token ({status}): the token in "
-            f"environment variable {wire.token_env} is missing or wrong (device said: {message})"
+            f"environment variable {wire.token_env} is missing or wrong (device said: {message})",
+            status=status,
         )
     if status in (408, 409, 425, 429) or status >= 500:
         hint = f"; retry after {retry_after:g} s" if retry_after is not None else ""
         raise TransientBackendError(
             f"{wire.backend}: device error on the {op} request ({status}): {message}{hint}",
             retry_after=retry_after,
+        )
+    if status in (404, 410) and op in ("status", "result"):
+        raise DeviceForgotJob(
+            f"{wire.backend}: the device no longer knows this job ({status} on the {op} "
+            f"request: {message}); it was not sent again, since the device may have run it "
+            "(`jobkeeper rerun JOB` submits the circuit anew)"
         )
     if 400 <= status < 500:
         raise PermanentBackendError(
@@ -187,9 +215,9 @@ def _is_certificate_failure(exc: BaseException) -> bool:
     return False
 
 
-def transport_error(op: str, exc: httpx.HTTPError, wire: Wire, secret: str | None) -> Exception:
+def transport_error(op: str, exc: httpx.HTTPError, wire: Wire, redactor: Redactor) -> Exception:
     """The jobkeeper error for an httpx exception raised while sending ``op``."""
-    detail = redact(str(exc) or type(exc).__name__, secret)
+    detail = redactor.text(str(exc) or type(exc).__name__)
     if _is_certificate_failure(exc):
         return PermanentBackendError(
             f"{wire.backend}: TLS certificate verification failed on the {op} request: {detail}"
@@ -203,6 +231,39 @@ def transport_error(op: str, exc: httpx.HTTPError, wire: Wire, secret: str | Non
     if op == "submit":
         what += "; the submission may have been accepted, so it is retried with the same key"
     return TransientBackendError(f"{wire.backend}: {what}")
+
+
+class AnswerTooLarge(PermanentBackendError):
+    """A device's answer was larger than the backend's ``max_answer``: it was cut off
+    unread (a hostile or broken device must not fill memory or the archive)."""
+
+
+async def read_bounded(op: str, response: httpx.Response, wire: Wire, limit: int) -> httpx.Response:
+    """``response`` (opened with ``stream=True``) read in chunks up to ``limit`` bytes, as
+    an ordinary response; an announced or actual body beyond ``limit`` is refused with
+    :class:`AnswerTooLarge` before more of it is read."""
+    too_large = AnswerTooLarge(
+        f"{wire.backend}: the device's answer to the {op} request is larger than "
+        f"{limit} bytes (the backend's max_answer); it was not read"
+    )
+    announced = response.headers.get("content-length", "")
+    if announced.isdigit() and int(announced) > limit:
+        raise too_large
+    chunks: list[bytes] = []
+    size = 0
+    async for chunk in response.aiter_bytes():
+        size += len(chunk)
+        if size > limit:
+            raise too_large
+        chunks.append(chunk)
+    headers = [(k, v) for k, v in response.headers.multi_items() if k.lower() not in _WIRE_HEADERS]
+    return httpx.Response(
+        response.status_code,
+        headers=headers,
+        content=b"".join(chunks),
+        request=response.request,
+        extensions=response.extensions,
+    )
 
 
 def _quick_retry(policy: InCallRetry) -> Callable[[BaseException], bool]:

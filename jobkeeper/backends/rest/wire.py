@@ -4,8 +4,9 @@
 - ``Retry-After`` (RFC 9110 §10.2.3): delta-seconds or an HTTP-date;
 - the ``Idempotency-Key`` value (IETF draft-ietf-httpapi-idempotency-key-header: an
   RFC 8941 Item whose value is a String, i.e. double-quoted);
-- body and path templates with ``{placeholder}`` fields;
-- redaction of a secret from text that came from elsewhere.
+- body and path templates with ``{placeholder}`` fields.
+
+Redaction of secrets lives in ``redaction.py``.
 """
 
 from __future__ import annotations
@@ -196,13 +197,3 @@ def fill_path(template: str, *, handle: str | None = None) -> str:
     """A request path with ``{handle}`` filled in, percent-encoded as one path segment."""
     encoded = quote(handle, safe="") if handle is not None else ""
     return template.format_map({"handle": encoded})
-
-
-# --------------------------------------------------------------------------- redaction
-
-
-def redact(text: str, secret: str | None) -> str:
-    """``text`` with every occurrence of ``secret`` replaced (a device could echo it)."""
-    if secret:
-        return text.replace(secret, "[redacted]")
-    return text
