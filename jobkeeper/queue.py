@@ -133,6 +133,16 @@ class PollPolicy(BaseModel):
             return min(hint, MAX_BACKEND_DELAY)
         return min(self.cap, self.first * self.factor**polls_so_far)
 
+    def polls_after(self, waited: float) -> int:
+        """Polls so far of a job that has waited ``waited`` seconds: estimated from that
+        time, so no extra column is needed and a restarted worker continues the same
+        back-off."""
+        count, total = 0, 0.0
+        while total < waited and count < 64:
+            total += self.next_delay(count)
+            count += 1
+        return count
+
 
 DEFAULT_RETRY = RetryPolicy()
 DEFAULT_LEASE = LeasePolicy()

@@ -302,26 +302,26 @@ def test_bit_strings_of_few_and_many_outcomes_agree(sizes: list[int], data: st.D
         sampling.SMALL_FORMAT = saved
 
 
-def test_which_jobs_the_worker_runs_inline() -> None:
+def test_which_jobs_the_workerruns_inline() -> None:
     # Inline runs are for circuits the backend declares quick (common practice: keep the
     # event loop free of long work); a backend without the attribute never runs inline.
-    from jobkeeper.worker import INLINE_OPERATIONS, _runs_inline
+    from jobkeeper._execution import INLINE_OPERATIONS, runs_inline
 
     def finals(n: int) -> list[Operation]:
         return [measure(q, q) for q in range(n)]
 
     backend = StatevectorBackend()
     small = circuit(2, [op("h", 0), op("cx", 0, 1), *finals(2)], [2])
-    assert _runs_inline(Task(small, 10), backend)
+    assert runs_inline(Task(small, 10), backend)
     wide = circuit(9, [op("h", 0), *finals(9)], [9])
-    assert not _runs_inline(Task(wide, 10), backend)
+    assert not runs_inline(Task(wide, 10), backend)
     long = circuit(2, [op("h", 0)] * (INLINE_OPERATIONS + 1))
-    assert not _runs_inline(Task(long, 10), backend)
+    assert not runs_inline(Task(long, 10), backend)
     branching = circuit(2, [op("h", 0), *finals(2), *finals(2)], [2])
-    assert not _runs_inline(Task(branching, 10), backend)
+    assert not runs_inline(Task(branching, 10), backend)
 
     class Plain:
         def execute(self, task: Task) -> object:
             raise AssertionError
 
-    assert not _runs_inline(Task(small, 10), Plain())  # type: ignore[arg-type]
+    assert not runs_inline(Task(small, 10), Plain())  # type: ignore[arg-type]

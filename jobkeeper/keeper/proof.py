@@ -1,0 +1,146 @@
+"""Proof and judgement: signing keys, trust, verification, bundles, the analysis export,
+reruns and comparisons of :class:`jobkeeper.Keeper`, built on the ``audit`` package."""
+
+from __future__ import annotations
+
+import os
+from collections.abc import Iterable, Sequence
+from pathlib import Path
+from typing import TYPE_CHECKING, Any
+
+from jobkeeper.exceptions import ConfigError
+from jobkeeper.job import Job
+from jobkeeper.keeper.runs import KeepRuns
+from jobkeeper.provenance.keys import PublicKeyRecord
+
+if TYPE_CHECKING:
+    from jobkeeper.audit.judging import Judgement
+    from jobkeeper.audit.trust import KeepTrust
+    from jobkeeper.provenance import VerifyReport
+    from jobkeeper.store.export import ExportSummary
+
+
+class KeepProof(KeepRuns):
+    """What a keep can prove about its jobs, and its judgements of them."""
+
+    @property
+    def trust(self) -> KeepTrust:
+        """Whose signatures ``verify`` accepts: add, remove, list, import, rotate."""
+        from jobkeeper.audit.trust import KeepTrust
+
+        return KeepTrust(self.path, self.keyring, self.store)
+
+    def keys(self) -> list[PublicKeyRecord]:
+        """The keep's public signing keys: the active one first, then earlier ones (still
+        trusted for the entries they signed). ``Keeper.trust`` rotates and trusts keys."""
+        active = self.keyring.active_record()
+        return [active] + [
+            r for r in self.keyring.public_keys() if r.fingerprint != active.fingerprint
+        ]
+
+    def manifest(self, job: Job | str) -> dict[str, Any]:
+        """A done job's signed in-toto Statement, verified against the keys trusted here
+        (VerificationError if it does not verify)."""
+        from jobkeeper.audit.judging import verified_manifest
+
+        return verified_manifest(self.store, self._job(job).record, self.trust.load().keys)
+
+    def verify(
+        self, ids: Sequence[str] | None = None, *, trusted: Iterable[str] | None = None,
+        integrity_only: bool = False,
+    ) -> VerifyReport:  # fmt: skip
+        """Verify the whole log and the named jobs (every done job when ``ids`` is None):
+        integrity, and that every signer is trusted here (``trusted``: only these key
+        fingerprints; ``integrity_only``: skip the trust check)."""
+        from jobkeeper.audit.verification import verify_jobs
+
+        wanted = None if ids is None else [self.job(i).id for i in ids]
+        # verification still takes the whole Keeper (it reads the store and the trust set)
+        return verify_jobs(self, wanted, trusted=trusted, integrity_only=integrity_only)  # type: ignore[arg-type]
+
+    @staticmethod
+    def verify_bundle(
+        path: str | os.PathLike[str], *, trusted: Iterable[str] | None = None,
+        integrity_only: bool = False,
+    ) -> VerifyReport:  # fmt: skip
+        """Verify a bundle file offline (no keep needed), against the pinned ``trusted``
+        fingerprints."""
+        from jobkeeper.audit.verification import verify_bundle_file
+
+        return verify_bundle_file(Path(path), trusted=trusted, integrity_only=integrity_only)
+
+    def bundle(
+        self, path: str | os.PathLike[str], ids: Sequence[str] = (), *, label: str | None = None
+    ) -> int:
+        """Write the named done jobs, and those with ``label``, to one bundle file that a
+        referee verifies offline; returns how many jobs it holds."""
+        from jobkeeper.audit.verification import export_bundle
+
+        if label is None and not ids:
+            raise ConfigError("give job ids or a label")
+        chosen = {self.job(i).id for i in ids}
+        if label is not None:
+            chosen |= {job.id for job in self.jobs(label=label, state="done")}
+        if not chosen:
+            raise ConfigError(f"no done job with label {label!r}")
+        return export_bundle(self, sorted(chosen), Path(path))  # type: ignore[arg-type]
+
+    def rerun(
+        self, job: Job | str, *, backend: str | None = None, seed: int | None = None,
+        alpha: float = 0.01,
+    ) -> Judgement:  # fmt: skip
+        """Run a job again from its signed manifest alone, then judge the two results."""
+        from jobkeeper.audit.judging import check_alpha, judge_rerun, rerun_plan
+
+        check_alpha(alpha)
+        original = self._job(job).record
+        plan = rerun_plan(self.store, original, self.trust.load().keys, backend=backend, seed=seed)
+        again = self._run([plan.circuit_text], plan.options, rerun_of=original.id)[0].job
+        deterministic = self.backend(plan.options.backend or "").info.deterministic
+        return judge_rerun(self.store, self.sealer(), plan, original, again.record,
+                           deterministic_backend=deterministic, alpha=alpha)  # fmt: skip
+
+    def compare(
+        self, a: Job | str, b: Job | str | None = None, *, ideal: bool = False,
+        alpha: float = 0.01,
+    ) -> Judgement:  # fmt: skip
+        """Are two jobs' counts consistent with one distribution, or (``ideal``) a job's
+        with its circuit's exact noiseless distribution? Archived, signed and logged."""
+        from jobkeeper.audit.judging import check_alpha, compare_ideal, compare_jobs
+
+        check_alpha(alpha)
+        if (b is None) != ideal:
+            raise ConfigError("compare two jobs, or one job with its ideal distribution")
+        first = self._job(a).record
+        if b is None:
+            keys = self.trust.load().keys
+            return compare_ideal(self.store, self.sealer(), first, keys, alpha=alpha)
+        return compare_jobs(self.store, self.sealer(), first, self._job(b).record, alpha=alpha)
+
+    def _job(self, job: Job | str) -> Job:
+        return job if isinstance(job, Job) else self.job(job)
+
+    def export(
+        self, path: str | os.PathLike[str], *, label: str | None = None, force: bool = False
+    ) -> ExportSummary:
+        """Write the jobs (of ``label``, or all) and their counts to a new SQLite file for
+        analysis (see :mod:`jobkeeper.store.export`). The counts of done jobs are checked
+        against their signed manifests first (VerificationError if any fails). Refuses to
+        replace an existing file unless ``force``, and any path inside the keep."""
+        from jobkeeper.audit.verification import verify_jobs
+        from jobkeeper.exceptions import VerificationError
+        from jobkeeper.store.export import check_target, export_jobs
+
+        check_target(Path(path), keep_dir=self.path, force=force)  # before any work
+        records = self.store.list_jobs(label=label)
+        done = [r.id for r in records if r.state == "done"]
+        if done:
+            report = verify_jobs(self, done)  # type: ignore[arg-type]
+            if not report.ok:
+                raise VerificationError(
+                    "not exported: the archive does not verify: " + "; ".join(report.problems[:3])
+                )
+        return export_jobs(
+            self.store, records, Path(path), keep_dir=self.path, force=force, label=label,
+            origin=self.store.get_meta("origin"),
+        )  # fmt: skip

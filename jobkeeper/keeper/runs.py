@@ -1,0 +1,214 @@
+"""Submitting, running and reading jobs: the queue side of :class:`jobkeeper.Keeper`.
+
+Options are checked once, by :class:`~jobkeeper.options.SubmitOptions`, whether they come
+from here or from the command line.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import os
+import uuid
+from collections.abc import Callable, Sequence
+from pathlib import Path
+from typing import TYPE_CHECKING, TypeAlias, Unpack
+
+from jobkeeper.exceptions import ConfigError, JobkeeperError
+from jobkeeper.job import Job, Submitted, wait_for
+from jobkeeper.keeper.core import KeepCore
+from jobkeeper.queue import TERMINAL_STATES
+from jobkeeper.store import NewJob
+
+# Signing, simulating and parsing load numpy, cryptography and the backends: imported
+# where they are used, so that opening a keep to read it (`jobkeeper jobs`) stays quick.
+if TYPE_CHECKING:
+    from jobkeeper.audit.sealing import Sealer
+    from jobkeeper.circuit import Circuit
+    from jobkeeper.options import SubmitFields, SubmitOptions
+    from jobkeeper.preflight import PreflightReport
+    from jobkeeper.queue import RetryPolicy
+    from jobkeeper.worker import Worker, WorkerSettings, WorkerStats
+
+CircuitInput: TypeAlias = "str | os.PathLike[str] | Circuit"
+
+
+def _options(options: SubmitOptions | None, fields: SubmitFields) -> SubmitOptions:
+    from jobkeeper.options import SubmitOptions
+
+    return SubmitOptions.of(options, **fields)
+
+
+class KeepRuns(KeepCore):
+    """Jobs in and out of the queue."""
+
+    # -- submitting -----------------------------------------------------------------------
+
+    @staticmethod
+    def load_circuit(circuit: CircuitInput) -> Circuit:
+        from jobkeeper.circuit import Circuit, load_qasm, parse_qasm
+
+        if isinstance(circuit, Circuit):
+            return circuit
+        if isinstance(circuit, os.PathLike) or (
+            "\n" not in circuit and ";" not in circuit and Path(circuit).suffix != ""
+        ):
+            return load_qasm(Path(circuit))
+        return parse_qasm(circuit)
+
+    def check(self, circuit: CircuitInput, **fields: Unpack[SubmitFields]) -> PreflightReport:
+        """Before spending: does the circuit fit the backend, its metrics, the estimated
+        cost, device time and chance of an error-free run (nothing is queued)."""
+        from jobkeeper.preflight import preflight
+
+        options = _options(None, fields)
+        name = options.backend or self.config.defaults.backend
+        shots = options.shots or self.config.defaults.shots
+        label = str(circuit) if isinstance(circuit, (str, os.PathLike)) else "<circuit>"
+        return preflight(self.load_circuit(circuit), self.backend(name), name=name,
+                         shots=shots, source=label)  # fmt: skip
+
+    def submit(self, circuit: CircuitInput, /, **fields: Unpack[SubmitFields]) -> Job:
+        """Queue one job (the options are those of :class:`SubmitOptions`)."""
+        return self.submit_many([circuit], **fields)[0].job
+
+    def submit_many(
+        self, circuits: Sequence[CircuitInput], options: SubmitOptions | None = None, /,
+        **fields: Unpack[SubmitFields],
+    ) -> list[Submitted]:  # fmt: skip
+        """Queue jobs in one transaction. A job whose key is already done or queued is not
+        queued again: the existing job comes back with ``deduplicated=True``."""
+        return self._submit(circuits, _options(options, fields))
+
+    def _submit(
+        self, circuits: Sequence[CircuitInput], options: SubmitOptions,
+        rerun_of: str | None = None,
+    ) -> list[Submitted]:  # fmt: skip
+        from jobkeeper.circuit import canonical_text
+        from jobkeeper.hashing import sha256_tag
+        from jobkeeper.provenance.manifest import git_code_version
+        from jobkeeper.spec import JobSpec, job_key
+
+        name = options.backend or self.config.defaults.backend
+        info = self.backend(name).info
+        shots = options.shots or self.config.defaults.shots
+        if shots > info.max_shots:
+            raise ConfigError(f"backend {name} allows at most {info.max_shots} shots, got {shots}")
+        code_version = git_code_version(Path(options.code_dir or Path.cwd()))
+        cost = info.pricing.cost(shots) if info.pricing is not None else None
+        new_jobs: list[NewJob] = []
+        for item in circuits:
+            circuit = self.load_circuit(item)
+            text = canonical_text(circuit)
+            spec = JobSpec.new(
+                circuit_text=text, circuit_hash=sha256_tag(text.encode("utf-8")), backend=name,
+                shots=shots, seed=options.seed, repeat=options.repeat, exact=options.exact,
+                options=options.backend_options, source_hash=circuit.source_hash,
+                source_name=circuit.source_name, code_version=code_version, rerun_of=rerun_of,
+            )  # fmt: skip
+            new_jobs.append(
+                NewJob(
+                    id=uuid.uuid4().hex,
+                    spec=spec,
+                    labels=tuple(sorted(options.labels)),
+                    cost=cost,
+                    job_key=job_key(spec, backend_config_hash=info.config_hash),
+                    max_attempts=self.config.defaults.max_attempts,
+                )
+            )
+        if not options.over_budget:
+            cost = sum(job.cost or 0.0 for job in new_jobs)
+            self.config.budget.check(cost, options.labels, self.store.spent)
+        results = self.store.enqueue(new_jobs)
+        return [Submitted(Job(self.store, record), not created) for record, created in results]
+
+    # -- running --------------------------------------------------------------------------
+
+    def sealer(self) -> Sealer:
+        from jobkeeper.audit.sealing import Sealer
+
+        origin = self.store.get_meta("origin") or "jobkeeper"
+        return Sealer(self.keyring.load_active(), origin=origin)
+
+    def worker(self, **settings: Unpack[WorkerSettings]) -> Worker:
+        """A worker draining this keep (retry and poll policies default to the keep's
+        config.toml)."""
+        from jobkeeper.worker import Worker
+
+        settings.setdefault("retry", self.config.retry)
+        settings.setdefault("poll", self.config.poll)
+        return Worker(
+            store=self.store, resolve_backend=self.backend, sealer=self.sealer(), **settings
+        )
+
+    def work(
+        self, *, once: bool = False, timeout: float | None = None,
+        install_signals: bool = False, announce: Callable[[str], None] | None = None,
+        **settings: Unpack[WorkerSettings],
+    ) -> WorkerStats:  # fmt: skip
+        """Run a worker on this keep until stopped (or, with ``once``, drained); with a
+        ``timeout``, it stops claiming after that many seconds and hands back what is left."""
+        from jobkeeper._execution import run_coroutine
+        from jobkeeper.options import positive_seconds
+
+        limit = positive_seconds(timeout)
+        worker = self.worker(**settings)
+
+        async def drive() -> WorkerStats:
+            if limit is not None:
+                asyncio.get_running_loop().call_later(limit, worker.request_stop)
+            return await worker.run(once=once, install_signals=install_signals,
+                                    announce=announce)  # fmt: skip
+
+        return run_coroutine(drive())
+
+    def run(self, circuit: CircuitInput, /, **fields: Unpack[SubmitFields]) -> Job:
+        """Submit one job and run it here and now (inline, no separate worker)."""
+        return self.run_many([circuit], **fields)[0].job
+
+    def run_many(
+        self, circuits: Sequence[CircuitInput], options: SubmitOptions | None = None, /, *,
+        retry: RetryPolicy | None = None, **fields: Unpack[SubmitFields],
+    ) -> list[Submitted]:  # fmt: skip
+        """Submit jobs and run them here; ``timeout`` bounds the wait (jobs not ended by
+        then stay queued for a worker); ``retry`` overrides the keep's retry policy."""
+        return self._run(circuits, _options(options, fields), retry=retry)
+
+    def _run(
+        self, circuits: Sequence[CircuitInput], options: SubmitOptions, *,
+        rerun_of: str | None = None, retry: RetryPolicy | None = None,
+    ) -> list[Submitted]:  # fmt: skip
+        submitted = self._submit(circuits, options, rerun_of)
+        pending = [s.job.id for s in submitted if s.job.state not in TERMINAL_STATES]
+        if pending:
+            self.work(once=True, timeout=options.timeout, ids=pending, local_executor="thread",
+                      idle_sleep=0.05, retry=retry or self.config.retry)  # fmt: skip
+        for item in submitted:
+            item.job.refresh()
+        return submitted
+
+    def wait(
+        self, ids: Sequence[str], *, timeout: float | None = None, poll: float = 0.2,
+        progress: Callable[[int, int], None] | None = None,
+    ) -> list[Job]:  # fmt: skip
+        """Block until every job has ended; ``progress(ended, total)`` is told as they do.
+        TimeoutError after ``timeout`` seconds."""
+        records = wait_for(self.store, ids, timeout=timeout, poll=poll, progress=progress)
+        return [Job(self.store, record) for record in records]
+
+    # -- reading --------------------------------------------------------------------------
+
+    def job(self, id_or_prefix: str) -> Job:
+        return Job(self.store, self.store.get(id_or_prefix))
+
+    def jobs(
+        self, *, label: str | None = None, state: str | None = None, limit: int | None = None
+    ) -> list[Job]:
+        return [
+            Job(self.store, r) for r in self.store.list_jobs(label=label, state=state, limit=limit)
+        ]
+
+    def cancel(self, id_or_prefix: str) -> Job:
+        record = self.store.get(id_or_prefix)
+        if record.state in TERMINAL_STATES:
+            raise JobkeeperError(f"job {record.id[:12]} has already ended ({record.state})")
+        return Job(self.store, self.store.request_cancel(record.id))
