@@ -4,6 +4,7 @@
 
     JobkeeperError
     ├── CircuitError              bad circuit text (names file, line, column)
+    ├── ObservableError           bad observable text (names file, line, column)
     ├── ConfigError               bad configuration, keep directory, option or argument
     ├── BackendError
     │   ├── TransientBackendError retry later (connection, timeout, 5xx, 429, ...)
@@ -33,8 +34,8 @@ class JobkeeperError(Exception):
     exit_code = 2
 
 
-class CircuitError(JobkeeperError):
-    """The circuit text is not valid OpenQASM 2.0 (or cannot be run as asked)."""
+class _LocatedError(JobkeeperError):
+    """Bad input text: the message names file, line and column where known."""
 
     exit_code = 2
 
@@ -57,6 +58,15 @@ class CircuitError(JobkeeperError):
         if self.line is None:
             return f"{self.file or '<input>'}: {self.message}"
         return f"{':'.join(where)}: {self.message}"
+
+
+class CircuitError(_LocatedError):
+    """The circuit text is not valid OpenQASM 2.0 (or cannot be run as asked)."""
+
+
+class ObservableError(_LocatedError):
+    """The observable (a real-weighted sum of Pauli products) is not valid, or does not fit
+    the circuit it is measured on."""
 
 
 class ConfigError(JobkeeperError):
