@@ -16,7 +16,7 @@ from typing import Annotated
 import typer
 
 from jobkeeper._version import __version__
-from jobkeeper.cli import _device, _jobs, _proof, _trust  # noqa: F401  (they register commands)
+from jobkeeper.cli import _device, _jobs, _proof, _trust, _web  # noqa: F401  (they register commands)
 from jobkeeper.cli._app import KEEP_HELP, ROOT, STORE_HELP, app
 from jobkeeper.cli._entry import run_app
 from jobkeeper.exceptions import ConfigError
@@ -26,7 +26,7 @@ __all__ = ["app", "main"]
 # Help lists the commands in the order of the workflow (DESIGN §4), not module order.
 _ORDER = ["init", "backends", "check", "submit", "run", "worker", "jobs", "show", "wait",
           "counts", "cancel", "keys", "verify", "bundle", "export", "rerun", "compare",
-          "loopback-device"]  # fmt: skip
+          "plot", "loopback-device"]  # fmt: skip
 app.registered_commands.sort(
     key=lambda c: _ORDER.index(c.name or (c.callback.__name__ if c.callback else ""))
 )
