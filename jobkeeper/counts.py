@@ -17,7 +17,7 @@ dict otherwise; everything that reads counts takes either.
 from __future__ import annotations
 
 from collections.abc import Iterator, Mapping, Sequence
-from typing import Any
+from typing import Any, Protocol
 
 import numpy as np
 import numpy.typing as npt
@@ -119,6 +119,43 @@ class CountTable(Mapping[str, int]):
         if self._json is None:
             self._json = _canonical_json(*self.arrays())
         return self._json
+
+
+class Register(Protocol):
+    """What a count key needs of a classical register (``jobkeeper.circuit.ir.Register``
+    has it): its size and the absolute index of its bit 0."""
+
+    @property
+    def size(self) -> int: ...
+
+    @property
+    def offset(self) -> int: ...
+
+
+#: written between two registers in a count key.
+KEY_SEPARATOR = " "
+
+
+def key_columns(cregs: Sequence[Register]) -> list[int]:
+    """The layout of a count key: for each character, left to right, the classical bit
+    shown there (its absolute index), or -1 for the separator between registers.
+
+    The one statement of how count keys are written (the simulators' formatter and the
+    REST adapter's decoders both build on it): within a register the highest index is
+    leftmost; the last declared register is leftmost; KEY_SEPARATOR between registers.
+    """
+    columns: list[int] = []
+    for reg in reversed(cregs):
+        if columns:
+            columns.append(-1)
+        columns += [reg.offset + i for i in reversed(range(reg.size))]
+    return columns
+
+
+def count_key(bits: Sequence[int], cregs: Sequence[Register]) -> str:
+    """The count key of one shot from its classical values: ``bits[c]`` is the value
+    (0 or 1) of classical bit ``c``."""
+    return "".join(KEY_SEPARATOR if c < 0 else "01"[bits[c]] for c in key_columns(cregs))
 
 
 def strings_of_rows(rows: Rows) -> list[str]:

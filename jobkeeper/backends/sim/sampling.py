@@ -25,7 +25,7 @@ import numpy.typing as npt
 
 from jobkeeper.backends.sim.kernels import State
 from jobkeeper.circuit.ir import Register
-from jobkeeper.counts import CountTable, Rows, strings_of_rows
+from jobkeeper.counts import KEY_SEPARATOR, CountTable, Rows, key_columns, strings_of_rows
 
 Floats = npt.NDArray[np.float64]
 Ints = npt.NDArray[np.int64]
@@ -83,23 +83,23 @@ _BYTE_DIGITS = np.array(
 )
 
 
+_SEPARATOR = ord(KEY_SEPARATOR)
+
+
 class BitFormatter:
     """Turns outcome indices into OpenQASM 2 bit strings, vectorised.
 
     An outcome index has bit j = the final measurement into the j-th smallest of
     ``final_clbits``; the other classical bits come from the record (an int, clbit c =
-    bit c). Within a register the highest index is leftmost; the last declared register
-    is leftmost; one space between registers.
+    bit c). The columns are laid out by :func:`jobkeeper.counts.key_columns`, the one rule
+    of count keys.
     """
 
     def __init__(self, cregs: Sequence[Register], num_clbits: int, final_clbits: Sequence[int]):
         final = set(final_clbits)
         self._num_final = len(final)
-        self._clbits: list[int] = []  # display column → clbit (-1 for a space)
-        for reg in reversed(cregs):
-            if self._clbits:
-                self._clbits.append(-1)
-            self._clbits += [reg.offset + i for i in reversed(range(reg.size))]
+        # display column → clbit (-1 for the separator), as every count key is laid out
+        self._clbits: list[int] = key_columns(cregs)
         # Final bits appear left to right in descending clbit order, i.e. as the outcome
         # index written most significant bit first: copy them in runs of columns.
         self._runs: list[tuple[int, int, int]] = []  # (first column, first digit, length)
@@ -149,7 +149,7 @@ class BitFormatter:
                 chars[:, column : column + length] = digits[:, first : first + length]
         for column in self._fixed:
             clbit = self._clbits[column]
-            chars[:, column] = 32 if clbit < 0 else 48 + ((record >> clbit) & 1)
+            chars[:, column] = _SEPARATOR if clbit < 0 else 48 + ((record >> clbit) & 1)
         return chars
 
     def _one(self, record: int, outcome: int) -> str:
@@ -158,7 +158,7 @@ class BitFormatter:
         chars = []
         for column, clbit in enumerate(self._clbits):
             if clbit < 0:
-                chars.append(" ")
+                chars.append(KEY_SEPARATOR)
             elif column in self._digit_of:
                 chars.append("1" if (outcome >> self._digit_of[column]) & 1 else "0")
             else:
