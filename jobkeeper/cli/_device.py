@@ -45,6 +45,13 @@ def loopback_device(
     ] = 1,
     max_qubits: Annotated[int, typer.Option("--max-qubits", help="Largest circuit taken.")] = 20,
     host: Annotated[str, typer.Option("--host", help="A loopback address.")] = "127.0.0.1",
+    state: Annotated[
+        str | None,
+        typer.Option(
+            "--state",
+            help="SQLite file keeping the device's jobs across restarts (default: memory).",
+        ),
+    ] = None,
 ) -> None:
     """Run the loopback device: a real HTTP device on this machine for rehearsal."""
     from jobkeeper.loopback import ALL_FAULTS, KNOWN_FAULTS, serve
@@ -63,7 +70,8 @@ def loopback_device(
         raise ConfigError("--fault-rate must be between 0 and 1")
     typer.echo(
         f"loopback device on http://{host}:{port} (queue delay {queue_delay} s, "
-        f"fault rate {fault_rate}, seed {seed}); stats at /stats; Ctrl-C stops it",
+        f"fault rate {fault_rate}, seed {seed}; jobs kept {'in ' + state if state else 'in memory'}"
+        "); stats at /stats; Ctrl-C stops it",
         err=True,
     )
     # uvicorn re-raises the signal it stopped on: stopping is the normal end here.
@@ -71,5 +79,5 @@ def loopback_device(
         serve(
             host, port, token=token, queue_delay=queue_delay, fault_rate=fault_rate, seed=seed,
             faults=kinds, slow_delay=slow_delay, retry_after=retry_after, max_qubits=max_qubits,
-            log_level="warning",
+            state=state, log_level="warning",
         )  # fmt: skip

@@ -46,6 +46,7 @@ from starlette.types import Message, Receive, Scope, Send
 
 from jobkeeper.backends.rest.wire import format_http_date, parse_structured_string
 from jobkeeper.loopback._device import LoopbackDevice, Rejection
+from jobkeeper.loopback._state import DeviceState
 
 ALL_FAULTS = ("500", "503", "429", "slow", "drop", "malformed", "lost")
 #: every fault kind: ALL_FAULTS and those injected only when named.
@@ -365,11 +366,14 @@ def create_app(
     max_qubits: int = 20,
     max_jobs: int = 100_000,
     huge_size: int = 200 * 1024 * 1024,
+    state: str | None = None,
 ) -> LoopbackApp:
-    """The loopback device as an ASGI application (for uvicorn, or httpx's ASGITransport)."""
+    """The loopback device as an ASGI application (for uvicorn, or httpx's ASGITransport).
+    ``state`` is the SQLite file that keeps its jobs across restarts (None: in memory)."""
     from jobkeeper.loopback._sim import check_program, simulate
 
     device = LoopbackDevice(
+        state=DeviceState(state) if state is not None else None,
         queue_delay=queue_delay,
         seed=seed,
         max_qubits=max_qubits,

@@ -1,8 +1,9 @@
 """The loopback device's state: its jobs, its idempotency keys and what it counts.
 
 No HTTP here (see ``_app.py``). Jobs are small records: the circuit text is kept until
-the job runs, then replaced by its outcome. A job runs once its queue delay has passed
-and someone looks at it (a status, result or stats request): the device records the
+the job runs, then replaced by its outcome. They are written through to SQLite
+(``_state.py``): in a file given at start, a restarted device still knows them. A job
+runs once its queue delay has passed and someone looks at it (a status, result or stats request): the device records the
 execution then, and computes the counts when they are first asked for (seeded, so the
 moment of computing does not change them).
 """
@@ -16,9 +17,11 @@ import random
 import time
 from collections import Counter
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import asdict, dataclass, field
 from datetime import UTC, datetime
 from typing import Any
+
+from jobkeeper.loopback._state import DeviceState
 
 #: what a job's outcome is: ("counts", {...}) or ("probabilities", {...}).
 Outcome = tuple[str, dict[str, Any]]
@@ -58,6 +61,8 @@ class DeviceJob:
     refusal: str | None = None
     outcome: Outcome | None = None
     executed_at: float | None = None
+    #: what a preset of the device keeps about the job beyond the common fields
+    extra: dict[str, Any] = field(default_factory=dict)
 
     def public(self) -> dict[str, Any]:
         return {
@@ -84,9 +89,11 @@ class LoopbackDevice:
     """Jobs, keys and counters of one loopback device.
 
     ``queue_delay`` seconds pass between acceptance and completion (the second half of it
-    the job is ``running``). Keys are kept for the device's lifetime, up to ``max_jobs``
-    jobs; beyond that the device answers 503 (its published expiry policy, as the
-    idempotency-key draft asks for: none, in memory, until the process ends).
+    the job is ``running``). Keys are kept as long as the jobs, up to ``max_jobs`` jobs;
+    beyond that the device answers 503 (its published expiry policy, as the
+    idempotency-key draft asks for: none). ``state`` keeps the jobs (in memory unless it
+    was opened on a file: then they outlive the process). Times are wall-clock seconds,
+    so that they mean the same after a restart.
     """
 
     def __init__(
@@ -99,7 +106,8 @@ class LoopbackDevice:
         max_jobs: int = 100_000,
         simulate: Simulator,
         check: Checker,
-        clock: Callable[[], float] = time.monotonic,
+        clock: Callable[[], float] = time.time,
+        state: DeviceState | None = None,
     ) -> None:
         self.queue_delay = queue_delay
         self.max_qubits = max_qubits
@@ -109,6 +117,7 @@ class LoopbackDevice:
         self._check = check
         self._clock = clock
         self._rng = random.Random(seed)
+        self.state = state if state is not None else DeviceState()
         self._jobs: dict[str, DeviceJob] = {}
         self._by_key: dict[str, str] = {}
         self._running: dict[str, asyncio.Future[None]] = {}
@@ -117,6 +126,20 @@ class LoopbackDevice:
         self._executions_by_key: Counter[str] = Counter()
         self._executions_by_payload: Counter[bytes] = Counter()
         self.calibration = _invented_calibration(seed, max_qubits)
+        for fields in self.state.rows():
+            job = DeviceJob(**fields)
+            self._jobs[job.id] = job
+            self._by_key[job.key] = job.id
+            if job.executed_at is not None:
+                self._count_execution(job)
+
+    def _save(self, job: DeviceJob) -> None:
+        self.state.save(asdict(job))
+
+    def _count_execution(self, job: DeviceJob) -> None:
+        self.counters["executions"] += 1
+        self._executions_by_key[job.key] += 1
+        self._executions_by_payload[job.fingerprint] += 1
 
     # ------------------------------------------------------------------ submit
 
@@ -167,13 +190,14 @@ class LoopbackDevice:
             shots=shots,
             seed=seed,
             exact=exact,
-            submitted_at=time.time(),
+            submitted_at=now,
             running_at=now + self.queue_delay / 2,
             ready_at=now + self.queue_delay,
             refusal=f"opaque gate {sorted(opaque)[0]!r} cannot run on this device"
             if opaque
             else None,
         )
+        self._save(job)
         self._jobs[job.id] = job
         self._by_key[key] = job.id
         return True, job
@@ -214,12 +238,12 @@ class LoopbackDevice:
                 job.state = "complete"
                 # the execution's record: when (wall clock, back-dated to the moment the
                 # queue delay ended) and the per-key and per-body tallies
-                job.executed_at = time.time() - (now - job.ready_at)
-                self.counters["executions"] += 1
-                self._executions_by_key[job.key] += 1
-                self._executions_by_payload[job.fingerprint] += 1
-        elif now >= job.running_at:
+                job.executed_at = job.ready_at
+                self._count_execution(job)
+            self._save(job)
+        elif now >= job.running_at and job.state != "running":
             job.state = "running"
+            self._save(job)
         return job
 
     def job(self, job_id: str) -> DeviceJob:
@@ -227,6 +251,10 @@ class LoopbackDevice:
         if job is None:
             raise Rejection(404, "no-such-job", f"no job {job_id!r}")
         return self._advance(job)
+
+    def jobs(self) -> list[DeviceJob]:
+        """Every job the device holds, in the order it accepted them."""
+        return list(self._jobs.values())
 
     def seconds_left(self, job: DeviceJob) -> float:
         return max(0.0, job.ready_at - self._clock())
@@ -236,6 +264,7 @@ class LoopbackDevice:
         self.counters["cancel_requests"] += 1
         if job.state in ("queued", "running"):
             job.state, job.message, job.program = "cancelled", "cancelled by request", None
+            self._save(job)
             self.counters["cancels"] += 1
         elif job.state != "cancelled":
             raise Rejection(409, "already-ended", f"job {job_id} already ended {job.state!r}")
@@ -263,6 +292,7 @@ class LoopbackDevice:
                 job.state, job.message = "error", f"run failed: {exc}"
             finally:
                 job.program = None
+                self._save(job)
                 done.set_result(None)
                 del self._running[job_id]
         if job.outcome is None:

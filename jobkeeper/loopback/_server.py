@@ -57,6 +57,7 @@ def serve(
     slow_delay: float = 35.0,
     retry_after: int = 1,
     max_qubits: int = 20,
+    state: str | None = None,
     log_level: str = "info",
 ) -> None:
     """Run the loopback device in the foreground until interrupted (Ctrl-C / SIGTERM).
@@ -64,8 +65,9 @@ def serve(
     ``token`` is the bearer token clients must send; ``queue_delay`` the seconds a job
     waits before it completes; ``fault_rate`` the share of ``/v1`` requests that get an
     injected fault (of the kinds in ``faults``), drawn from a generator seeded by ``seed``
-    (which also seeds the device's own choices). Raises ConfigError for a non-loopback
-    ``host`` or bad settings.
+    (which also seeds the device's own choices); ``state`` the SQLite file that keeps its
+    jobs across restarts (None: in memory, forgotten when it stops). Raises ConfigError
+    for a non-loopback ``host`` or bad settings.
     """
     address = loopback_address(host)
     try:
@@ -78,6 +80,7 @@ def serve(
             slow_delay=slow_delay,
             retry_after=retry_after,
             max_qubits=max_qubits,
+            state=state,
         )
     except ValueError as exc:
         raise ConfigError(f"loopback device: {exc}") from None
@@ -109,12 +112,12 @@ class BackgroundDevice:
     port; ``start()`` waits (bounded) until it listens, ``stop()`` asks uvicorn to exit
     (``should_exit``) and joins the thread (bounded)."""
 
-    def __init__(self, app: LoopbackApp, *, startup_timeout: float = 10.0) -> None:
+    def __init__(self, app: LoopbackApp, *, startup_timeout: float = 10.0, port: int = 0) -> None:
         self.app = app
         self._startup_timeout = startup_timeout
         self._socket = socket.socket(socket.AF_INET, socket.SOCK_STREAM)
         self._socket.setsockopt(socket.SOL_SOCKET, socket.SO_REUSEADDR, 1)
-        self._socket.bind(("127.0.0.1", 0))
+        self._socket.bind(("127.0.0.1", port))
         host, port = self._socket.getsockname()
         self.url = f"http://{host}:{port}"
         config = uvicorn.Config(
@@ -156,6 +159,7 @@ class BackgroundDevice:
         if self._thread.is_alive():
             self._thread.join(timeout)
         self._socket.close()
+        self.app.device.state.close()
 
     def __enter__(self) -> BackgroundDevice:
         return self.start()

@@ -80,11 +80,14 @@ def running_device(
     retry_after: int = 1,
     max_qubits: int = 20,
     huge_size: int = 200 * 1024 * 1024,
+    state: str | None = None,
+    port: int = 0,
     startup_timeout: float = 10.0,
 ) -> Iterator[RunningDevice]:
     """Start a loopback device on 127.0.0.1 and a free port; stop it on exit. The
     defaults suit tests: short queue delay, slow faults of 1 s (set the client's read
-    timeout below that)."""
+    timeout below that). ``state``: the SQLite file that keeps the device's jobs (give the
+    same file and ``port`` to rehearse a restart)."""
     app = create_app(
         token=token,
         queue_delay=queue_delay,
@@ -95,6 +98,7 @@ def running_device(
         retry_after=retry_after,
         max_qubits=max_qubits,
         huge_size=huge_size,
+        state=state,
     )
-    with BackgroundDevice(app, startup_timeout=startup_timeout) as server:
+    with BackgroundDevice(app, startup_timeout=startup_timeout, port=port) as server:
         yield RunningDevice(url=server.url, token=token, token_env=token_env, app=app)

@@ -198,3 +198,19 @@ def test_loopback_addresses_are_accepted(host: str) -> None:
 def test_other_addresses_are_refused(host: str) -> None:
     with pytest.raises(ConfigError, match="loopback addresses only"):
         loopback_address(host)
+
+
+def test_a_device_reopened_on_its_state_file_knows_its_jobs_and_keys(tmp_path) -> None:
+    from jobkeeper.loopback._state import DeviceState
+
+    clock, path = Clock(), str(tmp_path / "device.sqlite")
+    first = make(clock, state=DeviceState(path))
+    _, job = first.submit("key-1", body())
+    clock.now += 2
+    outcome = asyncio.run(first.result(job.id, inline))
+    first.state.close()
+    second = make(clock, state=DeviceState(path))
+    again, same = second.submit("key-1", body())
+    assert not again and same.id == job.id and same.state == "complete"
+    assert asyncio.run(second.result(job.id, inline)) == outcome
+    assert second.stats()["executions"] == 1 and second.stats()["duplicates"] == 0
