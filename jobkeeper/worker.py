@@ -66,7 +66,7 @@ class WorkerSettings(TypedDict, total=False):
     """How a worker runs (the keyword arguments of :class:`Worker` beyond its parts, and of
     :meth:`jobkeeper.Keeper.work`); see :class:`Worker` for their meaning and defaults."""
 
-    concurrency: int
+    slots: int
     in_flight: int
     lease: LeasePolicy
     retry: RetryPolicy
@@ -88,7 +88,7 @@ class Worker(JobSteps):
         store: Store,
         resolve_backend: BackendResolver,
         sealer: Sealer,
-        concurrency: int = 2,
+        slots: int = 2,
         in_flight: int = 64,
         lease: LeasePolicy = DEFAULT_LEASE,
         retry: RetryPolicy = DEFAULT_RETRY,
@@ -100,13 +100,13 @@ class Worker(JobSteps):
         grace: float = 30.0,
         store_patience: float = 300.0,
     ) -> None:
-        if concurrency < 1 or in_flight < 1:
-            raise ValueError("concurrency and in_flight must be at least 1")
+        if slots < 1 or in_flight < 1:
+            raise ValueError("slots and in_flight must be at least 1")
         self.store = store
         self.resolve_backend = resolve_backend
         self.sealer = sealer
-        self.concurrency = concurrency
-        self.in_flight = max(in_flight, concurrency)
+        self.slots = slots
+        self.in_flight = max(in_flight, slots)
         self.lease = lease
         self.retry = retry
         self.poll = poll
@@ -120,7 +120,7 @@ class Worker(JobSteps):
         self.stats = WorkerStats()
         self._held: dict[str, Held] = {}
         self._db = ThreadPoolExecutor(max_workers=1, thread_name_prefix="jobkeeper-store")
-        self._local_runs = LocalRunner(concurrency, local_executor)
+        self._local_runs = LocalRunner(slots, local_executor)
         self._group = GroupCommit(self._commit, lambda: len(self._held))
         self._stopping = asyncio.Event()
         self._wake = asyncio.Event()

@@ -217,8 +217,8 @@ def _print_result(job: Job, deduplicated: bool) -> None:
 @app.command()
 def worker(
     once: Annotated[bool, typer.Option("--once", help="Exit when the queue is drained.")] = False,
-    concurrency: Annotated[
-        int, typer.Option("--concurrency", min=1, help="Local simulations at once (processes).")
+    slots: Annotated[
+        int, typer.Option("--slots", min=1, help="Local simulations this worker runs at once.")
     ] = 2,
     in_flight: Annotated[
         int, typer.Option("--in-flight", min=1, help="Jobs held at once (starts and polls).")
@@ -248,7 +248,7 @@ def worker(
     keeper = open_keeper(keep, store)
     settle_daemon()  # this process is the worker and nothing else
     stats = keeper.work(
-        once=once, install_signals=True, concurrency=concurrency, in_flight=in_flight,
+        once=once, install_signals=True, slots=slots, in_flight=in_flight,
         backends=backend or None,
         lease=LeasePolicy(lease=lease, heartbeat=heartbeat, expiry_check=lease_check),
         announce=lambda owner: typer.echo(

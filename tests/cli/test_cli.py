@@ -190,6 +190,13 @@ def test_every_command_has_help_and_is_in_the_readme() -> None:
         assert f"jobkeeper {name}" in readme, f"README does not show 'jobkeeper {name}'"
 
 
+def test_worker_help_offers_slots_not_a_borrowed_name(capsys) -> None:
+    # How many jobs one worker runs at once is called its slots (the own-names issue).
+    code, out, _ = jk(capsys, "worker", "--help")
+    assert code == 0
+    assert "--slots" in out and "--concurrency" not in out
+
+
 def test_console_entry_point_runs_in_a_subprocess(tmp_path) -> None:
     proc = subprocess.run(
         [sys.executable, "-m", "jobkeeper", "run", str(BELL), "--keep", str(tmp_path / "k"),

@@ -87,7 +87,7 @@ CASES: list[tuple[str, list[str], Setup]] = [
     ("shots zero", ["run", BELL, "--shots", "0"], _plain),
     ("shots negative", ["submit", BELL, "--shots", "-5"], _plain),
     ("repeat negative", ["run", BELL, "--repeat", "-1"], _plain),
-    ("concurrency zero", ["worker", "--concurrency", "0"], _plain),
+    ("slots zero", ["worker", "--slots", "0"], _plain),
     ("in-flight zero", ["worker", "--in-flight", "0"], _plain),
     ("lease check zero", ["worker", "--lease-check", "0"], _plain),
     ("old sweep option", ["worker", "--sweep", "1"], _plain),
@@ -150,7 +150,7 @@ def test_usage_errors_of_the_installed_framework_are_caught() -> None:
 
 @pytest.mark.parametrize(
     "args",
-    [["show"], ["run", BELL, "--shots", "abc"], ["--keep"], ["worker", "--concurrency", "0"]],
+    [["show"], ["run", BELL, "--shots", "abc"], ["--keep"], ["worker", "--slots", "0"]],
 )
 def test_the_installed_command_answers_in_one_line(tmp_path: Path, args: list[str]) -> None:
     # Through the real entry point, in a fresh interpreter: nothing in the test process

@@ -89,7 +89,7 @@ def start_worker(
 ) -> subprocess.Popen[bytes]:
     env = {**os.environ, "PGAPPNAME": name}
     cmd = [sys.executable, "-m", "jobkeeper", "worker", "--keep", str(keep), "--store", url,
-           "--concurrency", "2", "--in-flight", "64", "--once", "--json", *lease]  # fmt: skip
+           "--slots", "2", "--in-flight", "64", "--once", "--json", *lease]  # fmt: skip
     with open(logs / f"{name}.out", "wb") as out, open(logs / f"{name}.err", "wb") as err:
         return subprocess.Popen(cmd, cwd=REPO, env=env, stdout=out, stderr=err)
 
