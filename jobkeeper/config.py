@@ -72,7 +72,7 @@ class Defaults(BaseModel):
 
 
 class Budget(BaseModel):
-    model_config = ConfigDict(extra="forbid")
+    model_config = ConfigDict(extra="forbid", allow_inf_nan=False)
 
     total: float | None = Field(default=None, ge=0)
     labels: dict[str, float] = Field(default_factory=dict)

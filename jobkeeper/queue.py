@@ -90,7 +90,7 @@ class RetryPolicy(BaseModel):
     """Full-jitter exponential back-off: delay = uniform(0, min(cap, base · 2^attempt)).
     How many attempts a job gets is fixed when it is submitted (``[defaults] max_attempts``)."""
 
-    model_config = ConfigDict(frozen=True, extra="forbid")
+    model_config = ConfigDict(frozen=True, extra="forbid", allow_inf_nan=False)
 
     base: float = Field(default=2.0, gt=0)
     cap: float = Field(default=900.0, gt=0)
@@ -111,7 +111,7 @@ class LeasePolicy(BaseModel):
     queue within about heartbeat + lease + expiry check ≈ 85 s, and a live one never loses
     its lease. ``expiry_check`` is how often a worker looks for expired leases."""
 
-    model_config = ConfigDict(frozen=True)
+    model_config = ConfigDict(frozen=True, allow_inf_nan=False)
 
     lease: float = Field(default=60.0, gt=0)
     heartbeat: float = Field(default=10.0, gt=0)
@@ -122,7 +122,7 @@ class PollPolicy(BaseModel):
     """Adaptive polling of waiting jobs: start at ``first`` seconds, grow by ``factor``
     each time the job is still waiting, up to ``cap``; a device's own hint wins."""
 
-    model_config = ConfigDict(frozen=True, extra="forbid")
+    model_config = ConfigDict(frozen=True, extra="forbid", allow_inf_nan=False)
 
     first: float = Field(default=2.0, gt=0)
     factor: float = Field(default=1.5, ge=1.0)

@@ -173,8 +173,9 @@ def verify_jobs(
     return report
 
 
-def export_bundle(keeper: Keeper, ids: Sequence[str], path: Path) -> int:
-    """Write an audit bundle of the given done jobs to ``path``; returns how many."""
+def export_bundle(keeper: Keeper, ids: Sequence[str], path: Path, *, force: bool = False) -> int:
+    """Write an audit bundle of the given done jobs to ``path`` (never over an existing
+    file unless ``force``); returns how many."""
     store = keeper.store
     entries = store.log_entries()
     checkpoints = store.checkpoints()
@@ -192,7 +193,7 @@ def export_bundle(keeper: Keeper, ids: Sequence[str], path: Path) -> int:
     keys = {fp: base64.b64decode(key) for fp, key in store.public_keys().items()}
     latest = checkpoints[-1]
     bundle = make_bundle(tree, chosen, keys, latest.note)
-    write_bundle(path, bundle)
+    write_bundle(path, bundle, force=force)
     return len(chosen)
 
 

@@ -239,8 +239,12 @@ def worker(
     json_out: JsonOpt = False,
 ) -> None:
     """Drain the queue: run local jobs, drive remote ones, seal and archive results."""
+    from jobkeeper.options import positive_seconds
     from jobkeeper.queue import LeasePolicy
 
+    for option, seconds in (("--lease", lease), ("--heartbeat", heartbeat),
+                            ("--lease-check", lease_check)):  # fmt: skip
+        positive_seconds(seconds, option)  # inf and nan too: a lease must run out
     if not 0 < heartbeat < lease:
         raise ConfigError("--heartbeat must be positive and shorter than --lease")
     from jobkeeper.worker import settle_daemon

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import json
 from pathlib import Path
 from typing import Annotated, Any
 
@@ -21,6 +20,10 @@ from jobkeeper.cli._app import (
 from jobkeeper.cli._progress import activity
 from jobkeeper.exceptions import ConfigError
 
+ForceOpt = Annotated[
+    bool, typer.Option("--force", help="Replace the output file if it exists (never in the keep).")
+]
+
 
 @app.command()
 def keys(
@@ -28,6 +31,7 @@ def keys(
         Path | None, typer.Option("--export", help="Write the public key here.")
     ] = None,
     rotate: Annotated[bool, typer.Option("--rotate", help="Make a new active key.")] = False,
+    force: ForceOpt = False,
     keep: KeepOpt = None,
     store: StoreOpt = None,
     json_out: JsonOpt = False,
@@ -38,9 +42,7 @@ def keys(
     record, *earlier = keeper.keys()
     public = record.public_key
     if export is not None:
-        export.write_text(
-            json.dumps({"fingerprint": record.fingerprint, "public_key": public}) + "\n"
-        )
+        keeper.export_key(export, force=force)
     if json_out:
         extra = {} if retired is None else {"retired": retired[0], "retired_from": retired[2]}
         echo_json({"fingerprint": record.fingerprint, "public_key": public, **extra})
@@ -151,6 +153,7 @@ def bundle(
     output: Annotated[
         Path, typer.Option("-o", "--output", help="The bundle file to write.")
     ] = Path("jobkeeper-bundle.json"),
+    force: ForceOpt = False,
     keep: KeepOpt = None,
     store: StoreOpt = None,
     json_out: JsonOpt = False,
@@ -160,7 +163,7 @@ def bundle(
         raise ConfigError("give job ids or --label")
     keeper = open_keeper(keep, store, create=False)
     with activity(f"writing {output}"):
-        count = keeper.bundle(output, job_ids or (), label=label)
+        count = keeper.bundle(output, job_ids or (), label=label, force=force)
     fp = keeper.keys()[0].fingerprint
     if json_out:
         echo_json({"bundle": str(output), "jobs": count, "fingerprint": fp})
@@ -177,7 +180,7 @@ def export(
     label: Annotated[
         str | None, typer.Option("--label", help="Only jobs with this label.", show_default=False)
     ] = None,
-    force: Annotated[bool, typer.Option("--force", help="Replace the file if it exists.")] = False,
+    force: ForceOpt = False,
     keep: KeepOpt = None,
     store: StoreOpt = None,
     json_out: JsonOpt = False,

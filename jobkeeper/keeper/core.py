@@ -10,6 +10,7 @@ from typing import TYPE_CHECKING, Any, Self
 
 from jobkeeper.config import KeepConfig, backend_configs
 from jobkeeper.exceptions import ConfigError
+from jobkeeper.outputs import guarded_paths
 from jobkeeper.provenance.keys import KeyRing
 from jobkeeper.store import Store
 
@@ -29,6 +30,12 @@ class KeepCore:
 
     def close(self) -> None:
         self.store.close()
+
+    def guarded_paths(self) -> tuple[Path, ...]:
+        """What no output file may be written into or over: this keep and its archive."""
+        location = self.store.location
+        database = None if "://" in location else Path(location)
+        return guarded_paths(self.path, database)
 
     def __enter__(self) -> Self:
         return self

@@ -11,6 +11,7 @@ from typing import TYPE_CHECKING, Any
 from jobkeeper.exceptions import ConfigError
 from jobkeeper.job import Job
 from jobkeeper.keeper.runs import KeepRuns
+from jobkeeper.outputs import check_output, write_output
 from jobkeeper.provenance.keys import PublicKeyRecord
 
 if TYPE_CHECKING:
@@ -37,6 +38,17 @@ class KeepProof(KeepRuns):
         return [active] + [
             r for r in self.keyring.public_keys() if r.fingerprint != active.fingerprint
         ]
+
+    def export_key(self, path: str | os.PathLike[str], *, force: bool = False) -> PublicKeyRecord:
+        """Write the active public key (fingerprint and raw Ed25519 key, as JSON) to
+        ``path``, for a referee or another keep's ``trust add``; the rules of
+        :mod:`jobkeeper.outputs` apply."""
+        import json
+
+        record = self.keyring.active_record()
+        text = json.dumps({"fingerprint": record.fingerprint, "public_key": record.public_key})
+        write_output(Path(path), text + "\n", guarded=self.guarded_paths(), force=force)
+        return record
 
     def manifest(self, job: Job | str) -> dict[str, Any]:
         """A done job's signed in-toto Statement, verified against the keys trusted here
@@ -70,20 +82,23 @@ class KeepProof(KeepRuns):
         return verify_bundle_file(Path(path), trusted=trusted, integrity_only=integrity_only)
 
     def bundle(
-        self, path: str | os.PathLike[str], ids: Sequence[str] = (), *, label: str | None = None
-    ) -> int:
+        self, path: str | os.PathLike[str], ids: Sequence[str] = (), *, label: str | None = None,
+        force: bool = False,
+    ) -> int:  # fmt: skip
         """Write the named done jobs, and those with ``label``, to one bundle file that a
-        referee verifies offline; returns how many jobs it holds."""
+        referee verifies offline; returns how many jobs it holds. Never over an existing
+        file unless ``force``, never inside the keep (see :mod:`jobkeeper.outputs`)."""
         from jobkeeper.audit.verification import export_bundle
 
         if label is None and not ids:
             raise ConfigError("give job ids or a label")
+        check_output(Path(path), guarded=self.guarded_paths(), force=force)
         chosen = {self.job(i).id for i in ids}
         if label is not None:
             chosen |= {job.id for job in self.jobs(label=label, state="done")}
         if not chosen:
             raise ConfigError(f"no done job with label {label!r}")
-        return export_bundle(self, sorted(chosen), Path(path))  # type: ignore[arg-type]
+        return export_bundle(self, sorted(chosen), Path(path), force=force)  # type: ignore[arg-type]
 
     def rerun(
         self, job: Job | str, *, backend: str | None = None, seed: int | None = None,
@@ -129,9 +144,10 @@ class KeepProof(KeepRuns):
         replace an existing file unless ``force``, and any path inside the keep."""
         from jobkeeper.audit.verification import verify_jobs
         from jobkeeper.exceptions import VerificationError
-        from jobkeeper.store.export import check_target, export_jobs
+        from jobkeeper.store.export import export_jobs
 
-        check_target(Path(path), keep_dir=self.path, force=force)  # before any work
+        guarded = self.guarded_paths()
+        check_output(Path(path), guarded=guarded, force=force)  # before any work
         records = self.store.list_jobs(label=label)
         done = [r.id for r in records if r.state == "done"]
         if done:
@@ -141,6 +157,6 @@ class KeepProof(KeepRuns):
                     "not exported: the archive does not verify: " + "; ".join(report.problems[:3])
                 )
         return export_jobs(
-            self.store, records, Path(path), keep_dir=self.path, force=force, label=label,
+            self.store, records, Path(path), guarded=guarded, force=force, label=label,
             origin=self.store.get_meta("origin"),
         )  # fmt: skip

@@ -177,6 +177,7 @@ class KeepRuns(KeepCore):
         self, circuits: Sequence[CircuitInput], options: SubmitOptions, *,
         rerun_of: str | None = None, retry: RetryPolicy | None = None,
     ) -> list[Submitted]:  # fmt: skip
+        self.keyring.load_active()  # a key it cannot sign with refuses before queueing
         submitted = self._submit(circuits, options, rerun_of)
         pending = [s.job.id for s in submitted if s.job.state not in TERMINAL_STATES]
         if pending:

@@ -22,13 +22,13 @@ import base64
 import copy
 import json
 import os
-import secrets
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
 from jobkeeper.exceptions import ProvenanceError, VerificationError
+from jobkeeper.outputs import write_output
 from jobkeeper.provenance.checkpoint import (
     Checkpoint,
     parse_checkpoint,
@@ -177,17 +177,11 @@ def make_bundle(
     return Bundle(dict(keys), checkpoint, tuple(entries), cp.origin)
 
 
-def write_bundle(path: str | os.PathLike[str], bundle: Bundle) -> None:
-    """Write the bundle atomically (temporary file, then rename). ProvenanceError on I/O."""
-    path = Path(path)
+def write_bundle(path: str | os.PathLike[str], bundle: Bundle, *, force: bool = False) -> None:
+    """Write the bundle atomically, never over an existing file unless ``force`` (see
+    :mod:`jobkeeper.outputs`; the caller refuses paths inside a keep beforehand)."""
     text = json.dumps(bundle.to_json(), indent=1, ensure_ascii=False) + "\n"
-    tmp = path.with_name(f".{path.name}.{secrets.token_hex(8)}.tmp")
-    try:
-        tmp.write_text(text, encoding="utf-8")
-        os.replace(tmp, path)
-    except OSError as exc:
-        tmp.unlink(missing_ok=True)
-        raise ProvenanceError(f"cannot write bundle {path}: {exc}") from exc
+    write_output(Path(path), text, force=force)
 
 
 def read_bundle(path: str | os.PathLike[str]) -> Bundle:

@@ -331,12 +331,27 @@ class KeyRing:
         raise SigningKeyError(f"the active key {fp} has no public record in {self.directory}")
 
     def load_active(self) -> Ed25519PrivateKey:
-        """The active private key; SigningKeyError if missing, too open or not matching."""
+        """The active private key; SigningKeyError if missing, too open or not matching,
+        or if others may write the keys directory (they could swap the key or ``active``)."""
+        self._check_directory()
         fp = self.active_fingerprint()
         key = load_signing_key(self._private_path(fp))
         if fingerprint(key) != fp:
             raise SigningKeyError(f"key file {self._private_path(fp)} does not hold key {fp}")
         return key
+
+    def _check_directory(self) -> None:
+        try:
+            mode = stat.S_IMODE(self.directory.stat().st_mode)
+        except OSError as exc:
+            raise SigningKeyError(
+                f"cannot read the keys directory {self.directory}: {exc}"
+            ) from exc
+        if mode & 0o022:
+            raise SigningKeyError(
+                f"keys directory {self.directory} has mode {mode:04o}: group or others may "
+                f"replace its keys; restrict it with `chmod 700 {self.directory}`"
+            )
 
     def public_keys(self) -> list[PublicKeyRecord]:
         """All listed public keys, oldest first. ProvenanceError on a corrupt record."""

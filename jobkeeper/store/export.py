@@ -22,14 +22,14 @@ from __future__ import annotations
 import contextlib
 import datetime as dt
 import json
-import os
 import sqlite3
-from collections.abc import Iterator, Sequence
+from collections.abc import Iterable, Iterator, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-from jobkeeper.exceptions import ConfigError, StoreError
+from jobkeeper.exceptions import StoreError
+from jobkeeper.outputs import atomic_output
 from jobkeeper.store import JobRecord, Store
 
 NOTE = (
@@ -46,22 +46,6 @@ class ExportSummary:
     jobs: int
     counts: int
     probabilities: int
-
-
-def check_target(path: Path, *, keep_dir: Path | None, force: bool) -> Path:
-    """The absolute target path, or ConfigError: an existing file without ``force``, a
-    path inside the keep directory (the export is not part of the archive), a directory,
-    or a parent directory that does not exist."""
-    target = path.expanduser().resolve()
-    if keep_dir is not None and target.is_relative_to(keep_dir.expanduser().resolve()):
-        raise ConfigError(f"{path} is inside the keep directory; write the export elsewhere")
-    if target.is_dir():
-        raise ConfigError(f"{path} is a directory; give a file name such as results.db")
-    if target.exists() and not force:
-        raise ConfigError(f"{path} exists; pass --force to replace it")
-    if not target.parent.is_dir():
-        raise ConfigError(f"cannot write {path}: no directory {target.parent}")
-    return target
 
 
 def _when(seconds: float | None) -> str | None:
@@ -104,17 +88,15 @@ def export_jobs(
     records: Sequence[JobRecord],
     path: Path,
     *,
-    keep_dir: Path | None = None,
+    guarded: Iterable[Path] = (),
     force: bool = False,
     label: str | None = None,
     origin: str | None = None,
 ) -> ExportSummary:
     """Write ``records`` and their results to the SQLite file ``path`` (see the module
-    docstring). Refuses what :func:`check_target` refuses."""
+    docstring). Refuses what :func:`jobkeeper.outputs.check_output` refuses."""
     import sqlite_utils
 
-    target = check_target(path, keep_dir=keep_dir, force=force)
-    partial = target.with_name(f".{target.name}.{os.getpid()}.part")
     found = {"counts": 0, "probabilities": 0}
 
     def outcomes(kind: str) -> Iterator[dict[str, Any]]:
@@ -127,7 +109,10 @@ def export_jobs(
                 yield {"job_id": record.id, "outcome": outcome, column: value}
 
     try:
-        with contextlib.closing(sqlite3.connect(partial)) as conn:
+        with (
+            atomic_output(path, guarded=guarded, force=force) as partial,
+            contextlib.closing(sqlite3.connect(partial)) as conn,
+        ):
             db = sqlite_utils.Database(conn)
             db.table("jobs").create(JOB_COLUMNS, pk="id", not_null={"id", "state", "backend"})
             db.table("jobs").insert_all(job_row(r) for r in records)
@@ -146,12 +131,7 @@ def export_jobs(
                  "keep": origin, "label": label, "jobs": len(records), "note": NOTE}
             )  # fmt: skip
             conn.commit()
-        os.replace(partial, target)
-    except (OSError, sqlite3.Error) as exc:
-        partial.unlink(missing_ok=True)
-        error = ConfigError if isinstance(exc, OSError) else StoreError
-        raise error(f"cannot write {path}: {exc}") from exc
-    except BaseException:
-        partial.unlink(missing_ok=True)
-        raise
+    except sqlite3.Error as exc:
+        raise StoreError(f"cannot write {path}: {exc}") from exc
+    target = Path(path).expanduser().resolve()
     return ExportSummary(target, len(records), found["counts"], found["probabilities"])

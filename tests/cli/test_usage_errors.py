@@ -71,6 +71,19 @@ def _nothing(tmp: Path) -> list[str]:
     return []
 
 
+def _keys_mode(directory: int, key: int) -> Setup:
+    """A keep whose keys directory and private key files have these modes."""
+
+    def setup(tmp: Path) -> list[str]:
+        keep = Path(_keep(tmp))
+        for path in (keep / "keys").glob("*.key"):
+            path.chmod(key)
+        (keep / "keys").chmod(directory)
+        return ["--keep", str(keep)]
+
+    return setup
+
+
 # 100,000 levels: far past the interpreter's recursion limit, which tomllib runs into.
 DEEP_TOML = b"a = " + b"[" * 100_000 + b"]" * 100_000 + b"\n"
 NOT_UTF8 = b"# \xff\xfe not UTF-8\n"
@@ -90,6 +103,15 @@ CASES: list[tuple[str, list[str], Setup]] = [
     ("slots zero", ["worker", "--slots", "0"], _plain),
     ("in-flight zero", ["worker", "--in-flight", "0"], _plain),
     ("lease check zero", ["worker", "--lease-check", "0"], _plain),
+    ("lease infinite", ["worker", "--lease", "inf"], _plain),
+    ("lease not a number", ["worker", "--lease", "nan"], _plain),
+    ("lease negative", ["worker", "--lease", "-5"], _plain),
+    ("heartbeat infinite", ["worker", "--heartbeat", "inf", "--lease", "inf"], _plain),
+    ("label with a newline", ["submit", BELL, "--label", "a\nb"], _plain),
+    ("label with an escape", ["submit", BELL, "--label", "a\x1b[31mred"], _plain),
+    ("label with a tab", ["run", BELL, "--label", "a\tb"], _plain),
+    ("keys directory open to all", ["run", BELL], _keys_mode(0o777, 0o600)),
+    ("key readable by others", ["run", BELL], _keys_mode(0o700, 0o644)),
     ("old sweep option", ["worker", "--sweep", "1"], _plain),
     ("heartbeat longer than lease", ["worker", "--heartbeat", "90"], _plain),
     ("port out of range", ["loopback-device", "--port", "99999", "--token", "t"], _nothing),
@@ -198,3 +220,16 @@ def test_keep_after_the_command_wins_over_before_and_environment(
     # The environment alone still works.
     assert main(["init", "--json"]) == 0
     assert str(Path(other).resolve()) in capsys.readouterr().out
+
+
+@pytest.mark.parametrize(("directory", "key"), [(0o777, 0o600), (0o700, 0o644), (0o720, 0o600)])
+def test_a_key_that_cannot_be_used_queues_nothing(
+    capsys: pytest.CaptureFixture[str], tmp_path: Path, directory: int, key: int
+) -> None:
+    # `run` refuses before its job is queued: no row is left behind for a worker to pick up.
+    args = _keys_mode(directory, key)(tmp_path)
+    assert main(["run", BELL, *args]) == 2
+    capsys.readouterr()
+    (tmp_path / "keep" / "keys").chmod(0o700)
+    assert main(["jobs", "--json", *args]) == 0
+    assert capsys.readouterr().out.strip() == "[]"
