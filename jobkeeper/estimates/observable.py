@@ -32,6 +32,7 @@ import re
 from collections.abc import Callable, Iterable, Mapping
 from dataclasses import dataclass, field
 from fractions import Fraction
+from functools import cached_property
 from typing import Literal, cast
 
 from jobkeeper.exceptions import ObservableError
@@ -88,14 +89,25 @@ class Observable:
     origins: Mapping[int, tuple[int, int]] = field(default_factory=dict, compare=False)
     source_name: str | None = field(default=None, compare=False)
 
+    @cached_property
+    def labels(self) -> tuple[str, ...]:
+        """Each term's label, in the terms' order."""
+        return tuple(term.label for term in self.terms)
+
     @property
     def num_qubits(self) -> int:
         """One more than the highest qubit index named (0 for the identity alone)."""
         return 1 + max((q for t in self.terms for q in t.qubits), default=-1)
 
     def canonical_text(self) -> str:
+        return self._canonical
+
+    @cached_property
+    def _canonical(self) -> str:
         lines = [repr(self.identity)] if self.identity != 0.0 else []
-        lines.extend(f"{term.coefficient!r} {term.label}" for term in self.terms)
+        lines.extend(
+            f"{t.coefficient!r} {label}" for t, label in zip(self.terms, self.labels, strict=True)
+        )
         return "".join(line + "\n" for line in lines)
 
     def hash(self) -> str:

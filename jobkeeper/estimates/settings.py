@@ -23,9 +23,10 @@ from __future__ import annotations
 import math
 from collections.abc import Iterable, Sequence
 from dataclasses import dataclass
-from typing import Literal
+from typing import Any, Literal
 
 import numpy as np
+import numpy.typing as npt
 
 from jobkeeper.circuit.ir import BARRIER, MEASURE, Circuit, Operation, Register
 from jobkeeper.estimates.observable import Observable, PauliLetter, PauliTerm, label_of
@@ -38,7 +39,6 @@ GROUPINGS: tuple[Grouping, ...] = ("qubitwise", "none")
 #: The basis change that turns a letter's eigenbasis into the computational one.
 BASIS_CHANGE: dict[PauliLetter, tuple[str, ...]] = {"X": ("h",), "Y": ("sdg", "h"), "Z": ()}
 
-_CODES: dict[str, int] = {"X": 1, "Y": 2, "Z": 3}
 _Z: PauliLetter = "Z"
 
 
@@ -88,20 +88,29 @@ def group_terms(terms: Sequence[PauliTerm], grouping: Grouping = "qubitwise") ->
     if grouping != "qubitwise":
         raise ConfigError(f"unknown grouping {grouping!r}: choose {' or '.join(GROUPINGS)}")
     width = 1 + max((q for t in terms for q in t.qubits), default=-1)
-    # One row per open group: the letter each qubit is measured in (0: not yet named).
-    bases = np.zeros((max(1, len(terms)), max(1, width)), dtype=np.int8)
+    # Each term and each open group as two bit masks over the qubits: X and Y set the x
+    # mask, Z and Y the z mask. A term fits a group when, on the qubits both name, both
+    # masks agree. Whole groups are checked at once with numpy.
+    kind: type = np.uint64 if width <= 64 else object
+    xs: npt.NDArray[Any] = np.zeros(max(1, len(terms)), dtype=kind)
+    zs: npt.NDArray[Any] = np.zeros(max(1, len(terms)), dtype=kind)
+    named: npt.NDArray[Any] = np.zeros(max(1, len(terms)), dtype=kind)
     groups: list[list[int]] = []
     order = sorted(range(len(terms)), key=lambda i: -abs(terms[i].coefficient))
     for i in order:
-        qubits = np.fromiter(terms[i].qubits, dtype=np.intp)
-        letters = np.fromiter((_CODES[x] for _, x in terms[i].factors), dtype=np.int8)
-        open_rows = bases[: len(groups), qubits]
-        fits = np.all((open_rows == 0) | (open_rows == letters), axis=1)
-        hit = int(np.argmax(fits)) if fits.size and fits.any() else len(groups)
-        if hit == len(groups):
+        x = sum(1 << q for q, letter in terms[i].factors if letter != "Z")
+        z = sum(1 << q for q, letter in terms[i].factors if letter != "X")
+        tx, tz, support = (np.uint64(v) if kind is np.uint64 else v for v in (x, z, x | z))
+        count = len(groups)
+        clash = ((xs[:count] ^ tx) | (zs[:count] ^ tz)) & named[:count] & support
+        fits = clash == 0
+        hit = int(np.argmax(fits)) if count and fits.any() else count
+        if hit == count:
             groups.append([])
         groups[hit].append(i)
-        bases[hit, qubits] = letters
+        xs[hit] |= tx
+        zs[hit] |= tz
+        named[hit] |= support
     return [sorted(group) for group in groups]
 
 

@@ -126,3 +126,11 @@ def test_allocation_is_proportional_floored_and_sums_to_the_budget() -> None:
             assert abs((s - 30) - rest * w / sum(weights)) < 1 + 1e-9
     with pytest.raises(StatsInputError, match="at least 90"):
         allocate_shots([1.0, 1.0, 1.0], 89)
+
+
+def test_grouping_past_64_qubits() -> None:
+    # Masks wider than a machine word take the arbitrary-precision route; same rule.
+    observable = observable_from({"Z0 Z70": 0.9, "X70": -0.8, "Z70": 0.5, "X0 Y99": 0.4})
+    labels = [t.label for t in observable.terms]
+    groups = [sorted(labels[i] for i in g) for g in group_terms(observable.terms)]
+    assert groups == [["Z0 Z70", "Z70"], ["X0 Y99", "X70"]]
