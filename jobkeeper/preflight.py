@@ -11,6 +11,7 @@ from jobkeeper.backend import Backend
 from jobkeeper.circuit import Circuit, CircuitMetrics, circuit_hash, metrics
 from jobkeeper.circuit.ir import NON_GATE_OPERATIONS
 from jobkeeper.exceptions import CircuitError
+from jobkeeper.sweeps import Bindings
 
 #: Below this estimated probability of an error-free run, results are mostly noise.
 NOISE_WARNING = 0.01
@@ -33,10 +34,13 @@ class PreflightReport:
     duration_seconds: float | None = None
     #: a local simulator's plan: method, memory and a rough CPU time (None elsewhere).
     simulation: dict[str, Any] | None = None
+    #: the values the program's input parameters were bound with
+    inputs: Bindings = field(default_factory=Bindings)
 
     def to_json(self) -> dict[str, Any]:
         return {
             "file": self.file,
+            "inputs": self.inputs.numbers(),
             "circuit_hash": self.circuit_hash,
             "backend": self.backend,
             "fits": self.fits,
@@ -58,6 +62,7 @@ class PreflightReport:
             f"{self.file}: {self.circuit_hash}",
             f"  qubits {m.num_qubits} (used {len(m.qubits_used)}), bits {m.num_clbits}, "
             f"depth {m.depth}, multi-qubit operations {m.multi_qubit_operations}",
+            *([f"  inputs: {self.inputs.describe()}"] if self.inputs else []),
             "  operations: " + ", ".join(f"{k} {v}" for k, v in sorted(m.operation_counts.items())),
             f"  measurements all terminal: {'yes' if m.measurements_terminal else 'no'}",
             f"  backend {self.backend}: " + ("fits" if self.fits else "does NOT fit"),
@@ -113,15 +118,17 @@ def _prob(report: PreflightReport) -> str:
 
 
 def preflight(
-    circuit: Circuit, the_backend: Backend, *, name: str, shots: int, source: str
-) -> PreflightReport:
-    """What ``check`` reports for ``circuit`` (read from ``source``) on a backend, for
-    ``shots`` already validated (:class:`~jobkeeper.options.SubmitOptions`)."""
+    circuit: Circuit, the_backend: Backend, *, name: str, shots: int, source: str,
+    inputs: Bindings | None = None,
+) -> PreflightReport:  # fmt: skip
+    """What ``check`` reports for ``circuit`` (read from ``source``, its input parameters
+    bound with ``inputs``) on a backend, for ``shots`` already validated
+    (:class:`~jobkeeper.options.SubmitOptions`)."""
     info = the_backend.info
     m = metrics(circuit)
     report = PreflightReport(
         file=source, circuit_hash=circuit_hash(circuit), backend=name, metrics=m,
-        fits=True, shots=shots,
+        fits=True, shots=shots, inputs=inputs or Bindings(),
     )  # fmt: skip
     plan = getattr(the_backend, "simulation_plan", None)
     if callable(plan):

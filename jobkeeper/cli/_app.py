@@ -59,6 +59,16 @@ LabelOpt = Annotated[str | None, typer.Option("--label", help="A label to group 
 LabelsOpt = Annotated[
     list[str] | None, typer.Option("--label", help="A label to group jobs by (repeatable).")
 ]
+SetOpt = Annotated[
+    list[str] | None,
+    typer.Option(
+        "--set",
+        metavar="NAME=VALUE",
+        help="A value for one of the program's input parameters (repeatable), typed as the "
+        "program declares it.",
+        show_default=False,
+    ),
+]
 RepeatOpt = Annotated[
     int, typer.Option("--repeat", help="Repeat index: ask on purpose for another sample.")
 ]

@@ -17,6 +17,7 @@ from jobkeeper.cli._app import (
     OverBudgetOpt,
     RepeatOpt,
     SeedOpt,
+    SetOpt,
     ShotsOpt,
     StoreOpt,
     app,
@@ -71,16 +72,17 @@ def backends(keep: KeepOpt = None, store: StoreOpt = None, json_out: JsonOpt = F
 
 @app.command()
 def check(
-    file: Annotated[Path, typer.Argument(metavar="FILE", help="OpenQASM 2.0 file.")],
+    file: Annotated[Path, typer.Argument(metavar="FILE", help="OpenQASM 2.0 or 3 file.")],
     backend: BackendOpt = None,
     shots: ShotsOpt = None,
+    inputs: SetOpt = None,
     keep: KeepOpt = None,
     store: StoreOpt = None,
     json_out: JsonOpt = False,
 ) -> None:
     """Check a circuit before spending on it: metrics and whether it fits a backend."""
     keeper = open_keeper(keep, store)
-    report = keeper.check(file, backend=backend, shots=shots)
+    report = keeper.check(file, inputs=inputs or (), backend=backend, shots=shots)
     if json_out:
         echo_json(report.to_json())
     else:

@@ -27,9 +27,19 @@ if TYPE_CHECKING:
     from jobkeeper.options import SubmitFields, SubmitOptions
     from jobkeeper.preflight import PreflightReport
     from jobkeeper.queue import RetryPolicy
+    from jobkeeper.sweeps import Bindings
     from jobkeeper.worker import Worker, WorkerSettings, WorkerStats
 
 CircuitInput: TypeAlias = "str | os.PathLike[str] | Circuit"
+
+
+def _path_of(circuit: str | os.PathLike[str]) -> Path | None:
+    """The file a circuit input names, or None when it is program text."""
+    if isinstance(circuit, os.PathLike) or (
+        "\n" not in circuit and ";" not in circuit and Path(circuit).suffix != ""
+    ):
+        return Path(circuit)
+    return None
 
 
 def _options(options: SubmitOptions | None, fields: SubmitFields) -> SubmitOptions:
@@ -49,23 +59,43 @@ class KeepRuns(KeepCore):
 
         if isinstance(circuit, Circuit):
             return circuit
-        if isinstance(circuit, os.PathLike) or (
-            "\n" not in circuit and ";" not in circuit and Path(circuit).suffix != ""
-        ):
-            return load_qasm(Path(circuit))
-        return parse_qasm(circuit)
+        path = _path_of(circuit)
+        return parse_qasm(str(circuit)) if path is None else load_qasm(path)
 
-    def check(self, circuit: CircuitInput, **fields: Unpack[SubmitFields]) -> PreflightReport:
+    @staticmethod
+    def load_bound(circuit: CircuitInput, inputs: Sequence[str] = ()) -> tuple[Circuit, Bindings]:
+        """A program (file, text or Circuit) with its ``input`` parameters bound from
+        ``NAME=VALUE`` items, typed by the program's declarations, and those bindings
+        (ConfigError naming an unknown name, a missing input or a bad value)."""
+        from jobkeeper.circuit import Circuit, load_template, parse_template
+        from jobkeeper.sweeps import Bindings, bind_settings
+
+        if isinstance(circuit, Circuit):
+            if inputs:
+                raise ConfigError("a Circuit object has no inputs to set")
+            return circuit, Bindings()
+        path = _path_of(circuit)
+        template = parse_template(str(circuit)) if path is None else load_template(path)
+        where = f"{template.filename or '<input>'}: "
+        bindings = bind_settings(template.inputs, inputs, where=where)
+        return template.bind(bindings.numbers()), bindings
+
+    def check(
+        self, circuit: CircuitInput, *, inputs: Sequence[str] = (),
+        **fields: Unpack[SubmitFields],
+    ) -> PreflightReport:  # fmt: skip
         """Before spending: does the circuit fit the backend, its metrics, the estimated
-        cost, device time and chance of an error-free run (nothing is queued)."""
+        cost, device time and chance of an error-free run (nothing is queued). ``inputs``
+        (``NAME=VALUE`` items) bind a program's ``input`` parameters."""
         from jobkeeper.preflight import preflight
 
         options = _options(None, fields)
         name = options.backend or self.config.defaults.backend
         shots = options.shots or self.config.defaults.shots
         label = str(circuit) if isinstance(circuit, (str, os.PathLike)) else "<circuit>"
-        return preflight(self.load_circuit(circuit), self.backend(name), name=name,
-                         shots=shots, source=label)  # fmt: skip
+        loaded, bindings = self.load_bound(circuit, inputs)
+        return preflight(loaded, self.backend(name), name=name, shots=shots, source=label,
+                         inputs=bindings)  # fmt: skip
 
     def submit(self, circuit: CircuitInput, /, **fields: Unpack[SubmitFields]) -> Job:
         """Queue one job (the options are those of :class:`SubmitOptions`)."""
