@@ -7,7 +7,7 @@ from typing import Annotated
 
 import typer
 
-from jobkeeper.cli._app import app
+from jobkeeper.cli._app import JsonOpt, KeepOpt, StoreOpt, app, echo_json, open_keeper
 from jobkeeper.exceptions import ConfigError
 
 
@@ -45,6 +45,13 @@ def loopback_device(
     ] = 1,
     max_qubits: Annotated[int, typer.Option("--max-qubits", help="Largest circuit taken.")] = 20,
     host: Annotated[str, typer.Option("--host", help="A loopback address.")] = "127.0.0.1",
+    preset: Annotated[
+        str,
+        typer.Option(
+            "--preset",
+            help="API shape: loopback, or exchange (OAuth, Location handles, paged samples).",
+        ),
+    ] = "loopback",
     state: Annotated[
         str | None,
         typer.Option(
@@ -66,6 +73,8 @@ def loopback_device(
         )
     if not token:
         raise ConfigError("give the device a token: --token or JOBKEEPER_LOOPBACK_TOKEN")
+    if preset not in ("loopback", "exchange"):
+        raise ConfigError(f"unknown preset {preset!r}; known: loopback, exchange")
     if not 0.0 <= fault_rate <= 1.0:
         raise ConfigError("--fault-rate must be between 0 and 1")
     typer.echo(
@@ -79,5 +88,37 @@ def loopback_device(
         serve(
             host, port, token=token, queue_delay=queue_delay, fault_rate=fault_rate, seed=seed,
             faults=kinds, slow_delay=slow_delay, retry_after=retry_after, max_qubits=max_qubits,
-            state=state, log_level="warning",
+            state=state, preset=preset, log_level="warning",
         )  # fmt: skip
+
+
+_MARKS = {"ok": "ok", "failed": "FAILED", "skipped": "skipped"}
+
+
+@app.command("probe")
+def probe(
+    backend: Annotated[str, typer.Argument(help="The backend to probe.", show_default=False)],
+    keep: KeepOpt = None,
+    store: StoreOpt = None,
+    json_out: JsonOpt = False,
+) -> None:
+    """Check a backend against its device without submitting work: reachability,
+    authentication (the token request too), a calibration read, and what its profile
+    declares. Exit 0 when all hold, 1 when a check fails, 3 when the device is
+    unreachable."""
+    keeper = open_keeper(keep, store)
+    report = keeper.probe(backend)
+    if json_out:
+        echo_json(report.to_json())
+    else:
+        typer.echo(f"{report.backend} ({report.kind})")
+        for check in report.checks:
+            typer.echo(f"  {check.name:<15} {_MARKS[check.outcome]:<8} {check.detail}")
+        if report.declared:
+            typer.echo("declared by its profile:")
+            for key, value in report.declared.items():
+                typer.echo(f"  {key:<15} {value}")
+    if report.unreachable:
+        raise typer.Exit(3)
+    if not report.ok:
+        raise typer.Exit(1)

@@ -16,6 +16,7 @@ from jobkeeper.store import Store
 
 if TYPE_CHECKING:
     from jobkeeper.backend import Backend, BackendInfo
+    from jobkeeper.probing import ProbeReport
 
 
 class KeepCore:
@@ -119,6 +120,32 @@ class KeepCore:
 
         snapshot = run_coroutine(fetch())
         return dict(snapshot) if isinstance(snapshot, Mapping) else None
+
+    def probe(self, name: str) -> ProbeReport:
+        """Probe backend ``name`` without submitting work: is its device reachable, does
+        it take the credentials (a token request included), can its calibration be read,
+        and what its profile declares. A local simulator has nothing to reach."""
+        from jobkeeper._execution import run_coroutine
+        from jobkeeper.backends import create_backend
+        from jobkeeper.probing import Probeable, local_report
+
+        configs = self.backend_configs()
+        if name not in configs:
+            known = ", ".join(sorted(configs))
+            raise ConfigError(f"unknown backend {name!r}; known backends: {known}")
+
+        async def probe() -> ProbeReport:
+            # A backend of its own: its HTTP client lives on this loop only.
+            backend = create_backend(name, configs[name])
+            try:
+                if isinstance(backend, Probeable):
+                    return await backend.probe()
+                return local_report(backend.info)
+            finally:
+                await backend.aclose()
+
+        report: ProbeReport = run_coroutine(probe())
+        return report
 
     def backend_infos(self) -> list[BackendInfo]:
         return [self.backend(name).info for name in sorted(self.backend_configs())]

@@ -11,79 +11,52 @@ Endpoints (the loopback profile, ``jobkeeper/profiles/loopback.toml``, speaks th
     GET  /stats                   counters (no token, no faults)
     GET  /health                  liveness (no token, no faults)
 
-Faults, drawn per ``/v1`` request with probability ``rate`` from a seeded generator
-(which request gets which draw depends on arrival order): ``500``; ``503`` with an
-HTTP-date Retry-After; ``429`` with a delta-seconds Retry-After; ``slow`` (the answer
-comes after ``slow_delay`` seconds, past the client's timeout; the request is still
-carried out); ``drop`` (headers, then the connection closes mid-body, nothing done);
-``malformed`` (200 with broken JSON, nothing done); ``lost`` (the request is carried out,
-e.g. the job IS created, then the answer is cut off like ``drop``). One more kind is
-never drawn at random, only asked for by name (``force``, or ``--faults huge``):
-``huge`` (200 with a JSON answer of ``huge_size`` bytes, 200 MiB by default, streamed
-without a length; a hostile device's endless job id; nothing done).
+The ``exchange`` preset speaks another API shape instead (``_exchange.py``). Faults
+(``_faults.py``) are drawn per ``/v1`` request (``/v2`` and ``/oauth`` in the exchange
+preset) with probability ``rate`` from a seeded generator (which request gets which draw
+depends on arrival order).
 """
 
 from __future__ import annotations
 
 import asyncio
-import base64
 import hmac
 import json
 import random
 from collections import deque
-from collections.abc import Callable
-from dataclasses import dataclass
 from datetime import UTC, datetime, timedelta
 from typing import Any
-from urllib.parse import quote
 
 from starlette.applications import Starlette
 from starlette.concurrency import run_in_threadpool
 from starlette.requests import ClientDisconnect, Request
 from starlette.responses import JSONResponse, Response
 from starlette.routing import Route
-from starlette.types import Message, Receive, Scope, Send
+from starlette.types import Receive, Scope, Send
 
 from jobkeeper.backends.rest.wire import format_http_date, parse_structured_string
 from jobkeeper.loopback._device import LoopbackDevice, Rejection
+from jobkeeper.loopback._exchange import TokenIssuer, bearer_valid, exchange_routes, token_refused
+from jobkeeper.loopback._faults import (
+    ALL_FAULTS,
+    ECHO_FORMS,
+    KNOWN_FAULTS,
+    MAX_BODY,
+    FaultPlan,
+    buffered,
+    cut_off,
+    discard,
+    huge,
+)
 from jobkeeper.loopback._state import DeviceState
 
-ALL_FAULTS = ("500", "503", "429", "slow", "drop", "malformed", "lost")
-#: every fault kind: ALL_FAULTS and those injected only when named.
-KNOWN_FAULTS = (*ALL_FAULTS, "huge")
-#: how a careless device may echo the credentials it was sent (see ``echo_on_rejection``).
-ECHO_FORMS: dict[str, Callable[[str], str]] = {
-    "lower": str.lower,
-    "upper": str.upper,
-    "base64": lambda text: base64.b64encode(text.encode()).decode(),
-    "url": lambda text: quote(text, safe=""),
-    "hex": lambda text: text.encode().hex(),
-}
-#: the chunk in which a ``huge`` answer is streamed.
-_HUGE_CHUNK = 1024 * 1024
-#: a request body larger than this is refused (413) before it is read.
-MAX_BODY = 4 * 1024 * 1024
+__all__ = ["ALL_FAULTS", "KNOWN_FAULTS", "PRESETS", "FaultPlan", "LoopbackApp", "create_app"]
 
-
-@dataclass(frozen=True)
-class FaultPlan:
-    """Which faults to inject, how often, and their timings."""
-
-    rate: float = 0.0
-    kinds: tuple[str, ...] = ALL_FAULTS
-    seed: int = 0
-    slow_delay: float = 35.0
-    retry_after: int = 1
-    huge_size: int = 200 * 1024 * 1024
-
-    def __post_init__(self) -> None:
-        unknown = set(self.kinds) - set(KNOWN_FAULTS)
-        if unknown:
-            raise ValueError(f"unknown fault kinds {sorted(unknown)}; known: {KNOWN_FAULTS}")
-        if not 0.0 <= self.rate <= 1.0:
-            raise ValueError(f"fault rate must be in [0, 1], not {self.rate}")
-        if self.rate > 0 and not self.kinds:
-            raise ValueError("a fault rate above 0 needs at least one fault kind")
+#: the API shapes the device can speak: its own (``loopback``) and ``exchange``
+#: (``_exchange.py``), each with a shipped profile of the same name (``loopback-exchange``).
+PRESETS = ("loopback", "exchange")
+#: the paths where faults are injected and the credentials checked, per preset.
+_GUARDED = {"loopback": ("/v1/",), "exchange": ("/v2/", "/oauth/")}
 
 
 def _error(status: int, code: str, message: str, headers: dict[str, str] | None = None) -> Response:
@@ -158,85 +131,34 @@ def _routes(device: LoopbackDevice) -> Starlette:
     )
 
 
-async def _discard(message: Message) -> None:
-    return None
-
-
-async def _buffered(receive: Receive) -> Receive:
-    """Read the whole request body now; the returned ``receive`` hands it over later
-    (then waits on the real one, e.g. for the client's disconnect)."""
-    chunks: list[bytes] = []
-    size = 0
-    while size <= MAX_BODY:  # bounded: the content-length was checked against MAX_BODY
-        message = await receive()
-        if message["type"] != "http.request":
-            break
-        chunk = bytes(message.get("body", b""))
-        chunks.append(chunk)
-        size += len(chunk)
-        if not message.get("more_body", False):
-            break
-    body = b"".join(chunks)
-    handed_over = False
-
-    async def replay() -> Message:
-        nonlocal handed_over
-        if handed_over:
-            return await receive()
-        handed_over = True
-        return {"type": "http.request", "body": body, "more_body": False}
-
-    return replay
-
-
-async def _cut_off(send: Send) -> None:
-    # Headers promise 64 bytes, a few arrive, then the ASGI call returns: uvicorn closes
-    # the connection and the client sees a protocol error, as with a dropped connection.
-    await send(
-        {
-            "type": "http.response.start",
-            "status": 200,
-            "headers": [(b"content-type", b"application/json"), (b"content-length", b"64")],
-        }
-    )
-    await send({"type": "http.response.body", "body": b'{"job": ', "more_body": True})
-
-
-async def _huge(send: Send, size: int) -> None:
-    # A job id that never ends: streamed (no Content-Length) so that only a client that
-    # counts what it reads can stop it. A client that hangs up ends the stream early.
-    await send(
-        {
-            "type": "http.response.start",
-            "status": 200,
-            "headers": [(b"content-type", b"application/json")],
-        }
-    )
-    head = b'{"job": {"id": "'
-    await send({"type": "http.response.body", "body": head, "more_body": True})
-    chunk = b"x" * _HUGE_CHUNK
-    sent = len(head)
-    while sent < size:  # bounded by size
-        piece = chunk[: min(_HUGE_CHUNK, size - sent)]
-        try:
-            await send({"type": "http.response.body", "body": piece, "more_body": True})
-        except OSError:  # the client hung up
-            return
-        sent += len(piece)
-    await send({"type": "http.response.body", "body": b'"}}', "more_body": False})
-
-
 class LoopbackApp:
     """The ASGI application: token check and faults around the routes."""
 
-    def __init__(self, device: LoopbackDevice, *, token: str, faults: FaultPlan) -> None:
+    def __init__(
+        self,
+        device: LoopbackDevice,
+        *,
+        token: str,
+        faults: FaultPlan,
+        preset: str = "loopback",
+        token_ttl: float = 60.0,
+        page_size: int = 100,
+    ) -> None:
         if not token:
             raise ValueError("the loopback device needs a non-empty token")
+        if preset not in PRESETS:
+            raise ValueError(f"unknown preset {preset!r}; known: {', '.join(PRESETS)}")
         self.device = device
+        self.preset = preset
         self._expected = f"Bearer {token}".encode()
         self._faults = faults
         self._rng = random.Random(faults.seed)
+        #: the exchange preset's token issuer (its client secret is ``token``)
+        self.issuer = TokenIssuer(secret=token, ttl=token_ttl)
         self._routes = _routes(device)
+        if preset == "exchange":
+            extra = exchange_routes(device, self.issuer, page_size)
+            self._routes.router.routes[:0] = extra
         self._forced: deque[tuple[str, str | None, str | None]] = deque()
         self._echoes: deque[str] = deque()
 
@@ -279,6 +201,10 @@ class LoopbackApp:
         return None
 
     def _authorised(self, scope: Scope) -> bool:
+        if self.preset == "exchange":
+            return str(scope["path"]).startswith("/oauth/") or bearer_valid(
+                self.issuer, scope["headers"]
+            )
         for name, value in scope["headers"]:
             if name == b"authorization":
                 return hmac.compare_digest(bytes(value), self._expected)
@@ -291,13 +217,15 @@ class LoopbackApp:
         return self._rng.choice(plan.kinds)
 
     async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
-        if scope["type"] != "http" or not str(scope["path"]).startswith("/v1/"):
+        if scope["type"] != "http" or not str(scope["path"]).startswith(_GUARDED[self.preset]):
             await self._routes(scope, receive, send)
             return
         self.device.counters["requests"] += 1
         response: Response | None = None
         length = dict(scope["headers"]).get(b"content-length", b"0")
-        if not self._authorised(scope):
+        if not self._authorised(scope) and self.preset == "exchange":
+            response = token_refused()
+        elif not self._authorised(scope):
             response = _error(
                 401,
                 "unauthorized",
@@ -314,7 +242,11 @@ class LoopbackApp:
         if response is not None:
             await response(scope, receive, send)
             return
-        await self._serve(scope, receive, send, self._take_forced(scope) or self._draw())
+        kind = self._take_forced(scope) or self._draw()
+        first_use = self.preset == "exchange" and self.issuer.first_use(scope["headers"])
+        if kind == "expire" and (first_use or str(scope["path"]).startswith("/oauth/")):
+            kind = None  # a token is not revoked on its first use, nor a token request
+        await self._serve(scope, receive, send, kind)
 
     async def _serve(self, scope: Scope, receive: Receive, send: Send, kind: str | None) -> None:
         plan = self._faults
@@ -337,7 +269,7 @@ class LoopbackApp:
             await _error(429, "injected-fault", message, headers)(scope, receive, send)
         elif kind == "slow":
             # the device takes the whole request in, then is slow to act on it and answer
-            replay = await _buffered(receive)
+            replay = await buffered(receive)
             await asyncio.sleep(plan.slow_delay)
             await self._routes(scope, replay, send)
         elif kind == "malformed":
@@ -345,13 +277,16 @@ class LoopbackApp:
             await Response(body, status_code=200, media_type="application/json")(
                 scope, receive, send
             )
+        elif kind == "expire":
+            self.issuer.expire_all()
+            await token_refused()(scope, receive, send)
         elif kind == "huge":
-            await _huge(send, plan.huge_size)
+            await huge(send, plan.huge_size)
         elif kind == "lost":
-            await self._routes(scope, receive, _discard)
-            await _cut_off(send)
+            await self._routes(scope, receive, discard)
+            await cut_off(send)
         else:  # "drop"
-            await _cut_off(send)
+            await cut_off(send)
 
 
 def create_app(
@@ -367,9 +302,15 @@ def create_app(
     max_jobs: int = 100_000,
     huge_size: int = 200 * 1024 * 1024,
     state: str | None = None,
+    preset: str = "loopback",
+    token_ttl: float = 60.0,
+    page_size: int = 100,
 ) -> LoopbackApp:
     """The loopback device as an ASGI application (for uvicorn, or httpx's ASGITransport).
-    ``state`` is the SQLite file that keeps its jobs across restarts (None: in memory)."""
+    ``state`` is the SQLite file that keeps its jobs across restarts (None: in memory);
+    ``preset`` the API shape it speaks (PRESETS); in the ``exchange`` preset ``token`` is
+    the OAuth client secret, access tokens live ``token_ttl`` seconds and samples come
+    ``page_size`` to a page."""
     from jobkeeper.loopback._sim import check_program, simulate
 
     device = LoopbackDevice(
@@ -389,4 +330,6 @@ def create_app(
         retry_after=retry_after,
         huge_size=huge_size,
     )
-    return LoopbackApp(device, token=token, faults=plan)
+    return LoopbackApp(
+        device, token=token, faults=plan, preset=preset, token_ttl=token_ttl, page_size=page_size
+    )

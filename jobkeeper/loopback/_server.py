@@ -58,6 +58,7 @@ def serve(
     retry_after: int = 1,
     max_qubits: int = 20,
     state: str | None = None,
+    preset: str = "loopback",
     log_level: str = "info",
 ) -> None:
     """Run the loopback device in the foreground until interrupted (Ctrl-C / SIGTERM).
@@ -67,7 +68,8 @@ def serve(
     injected fault (of the kinds in ``faults``), drawn from a generator seeded by ``seed``
     (which also seeds the device's own choices); ``state`` the SQLite file that keeps its
     jobs across restarts (None: in memory, forgotten when it stops). Raises ConfigError
-    for a non-loopback ``host`` or bad settings.
+    for a non-loopback ``host`` or bad settings. ``preset`` is the API shape it speaks
+    (``loopback``, or ``exchange``: see ``jobkeeper/profiles/loopback-exchange.toml``).
     """
     address = loopback_address(host)
     try:
@@ -81,6 +83,7 @@ def serve(
             retry_after=retry_after,
             max_qubits=max_qubits,
             state=state,
+            preset=preset,
         )
     except ValueError as exc:
         raise ConfigError(f"loopback device: {exc}") from None

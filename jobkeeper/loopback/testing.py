@@ -28,6 +28,9 @@ from jobkeeper.loopback._server import BackgroundDevice
 
 TEST_TOKEN = "loopback-test-token-not-a-secret"
 TEST_TOKEN_ENV = "JOBKEEPER_LOOPBACK_TEST_TOKEN"
+#: the exchange preset's client id, and the variable tests put it in
+CLIENT_ID = "loopback-client"
+CLIENT_ID_ENV = "JOBKEEPER_LOOPBACK_TEST_CLIENT_ID"
 
 
 @dataclass(frozen=True)
@@ -57,7 +60,13 @@ class RunningDevice:
         return stats
 
     def backend_config(self, **overrides: Any) -> dict[str, Any]:
-        """A ``[backends.NAME]`` table for a ``rest`` backend speaking to this device."""
+        """A ``[backends.NAME]`` table for a ``rest`` backend speaking to this device (in
+        the exchange preset the secret is read from ``token_env`` and the client id from
+        CLIENT_ID_ENV, set it to ``CLIENT_ID``)."""
+        if self.app.preset == "exchange":
+            auth = {"client_id_env": CLIENT_ID_ENV, "client_secret_env": self.token_env}
+            return {"adapter": "rest", "profile": "loopback-exchange", "url": self.url,
+                    **auth, **overrides}  # fmt: skip
         return {
             "adapter": "rest",
             "profile": "loopback",
@@ -82,12 +91,17 @@ def running_device(
     huge_size: int = 200 * 1024 * 1024,
     state: str | None = None,
     port: int = 0,
+    preset: str = "loopback",
+    token_ttl: float = 60.0,
+    page_size: int = 100,
     startup_timeout: float = 10.0,
 ) -> Iterator[RunningDevice]:
     """Start a loopback device on 127.0.0.1 and a free port; stop it on exit. The
     defaults suit tests: short queue delay, slow faults of 1 s (set the client's read
     timeout below that). ``state``: the SQLite file that keeps the device's jobs (give the
-    same file and ``port`` to rehearse a restart)."""
+    same file and ``port`` to rehearse a restart). ``preset = "exchange"`` speaks the
+    ``loopback-exchange`` profile (``token`` is then the client secret; tokens live
+    ``token_ttl`` seconds; samples come ``page_size`` to a page)."""
     app = create_app(
         token=token,
         queue_delay=queue_delay,
@@ -99,6 +113,9 @@ def running_device(
         max_qubits=max_qubits,
         huge_size=huge_size,
         state=state,
+        preset=preset,
+        token_ttl=token_ttl,
+        page_size=page_size,
     )
     with BackgroundDevice(app, startup_timeout=startup_timeout, port=port) as server:
         yield RunningDevice(url=server.url, token=token, token_env=token_env, app=app)

@@ -67,7 +67,10 @@ def _problems(data: dict[str, Any]) -> str:
 @pytest.mark.parametrize(
     ("edit", "expected"),
     [
-        (lambda d: d["requests"]["submit"].pop("handle"), "requests.submit.handle: Field required"),
+        (
+            lambda d: d["requests"]["submit"].pop("handle"),
+            "requests.submit: handle: give the JSON Pointer to the job id",
+        ),
         (
             lambda d: d["requests"]["submit"].update(handle="job/id"),
             "requests.submit.handle: JSON Pointer 'job/id' must be empty or start with '/'",
@@ -99,7 +102,7 @@ def _problems(data: dict[str, Any]) -> str:
             "states must map at least one of the device's words to 'done'",
         ),
         (lambda d: d["auth"].update(sheme="Bearer"), "auth.sheme: Extra inputs are not permitted"),
-        (lambda d: d.update(format=2), "format: Input should be 1"),
+        (lambda d: d.update(format=3), "format: Input should be 1 or 2"),
         (lambda d: d.pop("results"), "results: Field required"),
         (
             lambda d: d["requests"]["submit"]["body"].update(o="x{options}"),

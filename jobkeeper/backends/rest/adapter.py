@@ -28,6 +28,7 @@ import os
 import time
 from collections import OrderedDict
 from collections.abc import Mapping
+from dataclasses import replace
 from datetime import UTC, datetime
 from typing import Any
 
@@ -36,17 +37,20 @@ import httpx
 from jobkeeper._version import __version__
 from jobkeeper.backend import BackendInfo, Polled, Pricing, Result, Started, Task
 from jobkeeper.backends.rest.config import parse_config
+from jobkeeper.backends.rest.credentials import Credentials, make_credentials
+from jobkeeper.backends.rest.handles import JobRef, device_handle
 from jobkeeper.backends.rest.http import (
     DEFAULT_IN_CALL_RETRY,
     DEFAULT_MAX_ANSWER,
     DEFAULT_TIMEOUTS,
-    MAX_HANDLE,
     DeviceAuthError,
     InCallRetry,
     Reply,
     Timeouts,
     Wire,
 )
+from jobkeeper.backends.rest.pages import read_outcome
+from jobkeeper.backends.rest.probe import probe_device
 from jobkeeper.backends.rest.profile import DeviceProfile, RequestSpec, load_profile
 from jobkeeper.backends.rest.redaction import Redactor
 from jobkeeper.backends.rest.results import outcome_from, pick, pick_text
@@ -54,6 +58,7 @@ from jobkeeper.backends.rest.session import DeviceSession, Outgoing
 from jobkeeper.backends.rest.wire import fill_path, fill_template, structured_string
 from jobkeeper.exceptions import PermanentBackendError
 from jobkeeper.hashing import digest_of
+from jobkeeper.probing import ProbeReport
 
 __all__ = [
     "DeviceAuthError",
@@ -85,7 +90,9 @@ class RestBackend:
         name: str,
         profile: DeviceProfile,
         url: str,
-        token_env: str,
+        token_env: str | None = None,
+        client_id_env: str | None = None,
+        client_secret_env: str | None = None,
         timeouts: Timeouts = DEFAULT_TIMEOUTS,
         max_connections: int = 10,
         retry: InCallRetry = DEFAULT_IN_CALL_RETRY,
@@ -101,21 +108,22 @@ class RestBackend:
         self._name = name
         self._profile = profile
         self._url = url.rstrip("/")
-        self._token_env = token_env
         self._pricing = pricing
         self._max_qubits = min(max_qubits or profile.device.max_qubits, profile.device.max_qubits)
         self._config_hash = config_hash
-        self._environ = environ if environ is not None else os.environ
+        environ = environ if environ is not None else os.environ
+        redactor = Redactor()
         self._session = DeviceSession(
             url=url,
             wire=Wire(
                 backend=name,
-                token_env=token_env,
+                credentials="",
                 retry_header=profile.retry_hint.header,
                 message_pointer=profile.errors.message,
+                conflict_names_job=profile.requests.submit.repeats == "conflict",
             ),
             user_agent=_user_agent(),
-            redactor=Redactor(),
+            redactor=redactor,
             timeouts=timeouts,
             max_connections=max_connections,
             retry=retry,
@@ -124,6 +132,12 @@ class RestBackend:
             trust_env=trust_env,
             transport=transport,
         )
+        self._credentials = make_credentials(
+            name, profile, self._session, environ,
+            token_env=token_env, client_id_env=client_id_env, client_secret_env=client_secret_env,
+        )  # fmt: skip
+        self._session.wire = replace(self._session.wire, credentials=self._credentials.describe())
+        self._noted = profile.format >= 2
         self._profile_digest = profile.digest()
         self._calibration: dict[str, Any] | None = None
         self._calibration_at = 0.0
@@ -133,7 +147,7 @@ class RestBackend:
     def __repr__(self) -> str:
         return (
             f"RestBackend(name={self._name!r}, url={self._url!r}, "
-            f"profile={self._profile.device.name!r}, token_env={self._token_env!r})"
+            f"profile={self._profile.device.name!r}, credentials={self._credentials.names()!r})"
         )
 
     # ------------------------------------------------------------------ description
@@ -163,20 +177,9 @@ class RestBackend:
 
     # ------------------------------------------------------------------ HTTP
 
-    def _token(self) -> str:
-        token = self._environ.get(self._token_env, "")
-        if not token.strip():
-            raise DeviceAuthError(
-                f"{self._name}: environment variable {self._token_env} is not set or empty; "
-                "it must hold the device's token"
-            )
-        self._session.redactor.add(token.strip())
-        return token.strip()
-
-    async def _auth_headers(self) -> dict[str, str]:
-        token = self._token()
-        auth = self._profile.auth
-        return {auth.header: f"{auth.scheme} {token}" if auth.scheme else token}
+    @property
+    def credentials(self) -> Credentials:
+        return self._credentials
 
     async def _send(
         self,
@@ -186,15 +189,22 @@ class RestBackend:
         handle: str | None = None,
         body: Any = None,
         key: str | None = None,
+        form: bool = False,
+        target: str | None = None,
     ) -> Reply:
         headers: dict[str, str] = {}
         if key is not None:
             idem = self._profile.idempotency
             headers[idem.header] = structured_string(key) if idem.structured else key
-        request = Outgoing(
-            spec.method, fill_path(spec.path, handle=handle), body=body, headers=headers
+        whole = self._profile.requests.submit.handle_part == "path"
+        path = target or fill_path(spec.path, handle=handle, whole_path=whole)
+        if whole and target is None and handle is not None:
+            # the handle is a path on the device's origin, not below the backend's URL
+            path = str(httpx.URL(self._session.url).join(path))
+        request = Outgoing(spec.method, path, body=body, form=form, headers=headers)
+        return await self._session.send(
+            op, request, self._credentials.headers, on_refused=self._credentials.renew
         )
-        return await self._session.send(op, request, self._auth_headers)
 
     # ------------------------------------------------------------------ calibration
 
@@ -217,7 +227,7 @@ class RestBackend:
             self._calibration = {
                 "device": self._profile.device.name,
                 "fetched_at": datetime.now(UTC).isoformat(timespec="seconds"),
-                "data": self._session.redactor.document(data),
+                "data": self._redactor.document(data),
             }
             self._calibration_at = time.monotonic()
             return self._calibration
@@ -256,7 +266,7 @@ class RestBackend:
         """Submit ``task`` with ``client_key`` as the idempotency key, and return the
         device's job id as the handle. Safe to call again with the same key."""
         self._check(task)
-        self._token()  # a missing token fails before anything is fetched
+        self._credentials.check()  # missing credentials fail before anything is fetched
         calibration = await self.refresh_calibration()
         spec = self._profile.requests.submit
         values = {
@@ -269,69 +279,82 @@ class RestBackend:
         }
         try:
             body = fill_template(spec.body or {}, values)
-            reply = await self._send("submit", spec, body=body, key=client_key)
+            form = spec.body_format == "form"
+            reply = await self._send("submit", spec, body=body, key=client_key, form=form)
         except (ValueError, TypeError) as exc:  # an unprintable key; options not JSON
             raise PermanentBackendError(f"{self._name}: cannot send the job: {exc}") from None
-        raw = pick(reply.document, spec.handle, "submit", self._profile)
-        if isinstance(raw, bool) or not isinstance(raw, str | int) or str(raw) == "":
-            raise PermanentBackendError(
-                f"{self._name}: the device's job id at {spec.handle!r} is {raw!r}, "
-                "not a non-empty string or integer"
-            )
-        handle = str(raw)
-        if len(handle.encode("utf-8")) > MAX_HANDLE:
-            raise PermanentBackendError(
-                f"{self._name}: the device's job id is {len(handle.encode('utf-8'))} bytes "
-                f"long; at most {MAX_HANDLE} are accepted"
-            )
-        if self._session.redactor.holds_secret(handle):
-            raise PermanentBackendError(
-                f"{self._name}: the device's job id holds a secret; it is not kept"
-            )
+        try:
+            device = device_handle(reply, self._profile, self._session.url, self._redactor)
+        except PermanentBackendError as exc:
+            raise PermanentBackendError(f"{self._name}: {exc}") from None
+        ref = JobRef(device)
+        if self._noted:
+            widths = tuple(reg.size for reg in task.circuit.cregs)
+            ref = JobRef(device, shots=task.shots, registers=widths)
+        handle = ref.stored()
         self._remember(handle, dict(calibration) if calibration is not None else None)
         return Started(handle=handle, poll_after=reply.retry_after)
 
     async def poll(self, handle: str) -> Polled:
         """The device job's state; its result once done."""
         requests = self._profile.requests
-        reply = await self._send("status", requests.status, handle=handle)
+        ref = JobRef.read(handle, noted=self._noted)
+        reply = await self._send("status", requests.status, handle=ref.device)
         word = pick_text(reply.document, requests.status.state, "status", self._profile)
         state = self._profile.states.get(word)
         if state is None:
             known = ", ".join(sorted(self._profile.states))
             raise PermanentBackendError(
-                f"{self._name}: the device reported status {word!r} for job {handle}, which "
+                f"{self._name}: the device reported status {word!r} for job {ref.device}, which "
                 f"profile {self._profile.device.name!r} does not map (it knows: {known})"
             )
         if state == "waiting":
             return Polled(state="waiting", poll_after=reply.retry_after)
         if state in ("failed", "cancelled"):
             self._calibration_by_handle.pop(handle, None)
-            message = f"device job {handle} ended {word!r}"
+            message = f"device job {ref.device} ended {word!r}"
             pointer = requests.status.message
             if pointer is not None:
                 detail = pick_text(reply.document, pointer, "status", self._profile, default="")
-                message += f": {self._session.redactor.text(detail)}" if detail else ""
+                message += f": {self._redactor.text(detail)}" if detail else ""
             return Polled(state=state, message=message)
-        document = reply.document
         if requests.result is not None:
-            document = (await self._send("result", requests.result, handle=handle)).document
-        counts, probabilities, device_metadata = outcome_from(document, self._profile)
+            reply = await self._send("result", requests.result, handle=ref.device)
+        counts, probabilities, device_metadata = await self._outcome(reply, ref)
         # the snapshot taken when this instance submitted the job; after a restart, the
         # latest one (its fetched_at says when it was taken)
         calibration = self._calibration_by_handle.pop(handle, self._calibration)
         metadata: dict[str, Any] = {
             "device": self._profile.device.name,
-            "device_job": handle,
+            "device_job": ref.device,
             "profile_digest": self._profile_digest,
             "calibration": calibration,
         }
         if device_metadata is not None:
-            metadata["device_metadata"] = self._session.redactor.document(device_metadata)
+            metadata["device_metadata"] = self._redactor.document(device_metadata)
         return Polled(
             state="done",
             result=Result(counts=counts, probabilities=probabilities, metadata=metadata),
         )
+
+    async def _outcome(
+        self, reply: Reply, ref: JobRef
+    ) -> tuple[dict[str, int] | None, dict[str, float] | None, Any]:
+        if not self._noted:
+            return outcome_from(reply.document, self._profile)
+
+        async def fetch(target: str) -> Reply:
+            return await self._send("result", self._result_spec(), target=target)
+
+        return await read_outcome(reply, self._profile, ref, fetch, self._session.url)
+
+    def _result_spec(self) -> RequestSpec:
+        requests = self._profile.requests
+        return requests.result if requests.result is not None else requests.status
+
+    @property
+    def _redactor(self) -> Redactor:
+        return self._session.redactor
 
     async def cancel(self, handle: str) -> None:
         """Ask the device to cancel. A job that already ended is left as it is (the next
@@ -341,7 +364,18 @@ class RestBackend:
             raise PermanentBackendError(
                 f"{self._name}: device {self._profile.device.name} has no cancel request"
             )
-        await self._send("cancel", spec, handle=handle)
+        await self._send("cancel", spec, handle=JobRef.read(handle, noted=self._noted).device)
+
+    async def probe(self) -> ProbeReport:
+        """Reachability, authentication (the token request included) and a calibration
+        read, with what the profile declares; nothing is submitted."""
+        return await probe_device(
+            self._name,
+            self._profile,
+            self._session,
+            self._credentials,
+            lambda: self.refresh_calibration(force=True),
+        )
 
     async def aclose(self) -> None:
         await self._session.aclose()
@@ -362,6 +396,8 @@ def from_config(name: str, config: Mapping[str, Any]) -> RestBackend:
         profile=load_profile(settings.profile),
         url=settings.url,
         token_env=settings.token_env,
+        client_id_env=settings.client_id_env,
+        client_secret_env=settings.client_secret_env,
         timeouts=settings.timeouts(),
         max_connections=settings.max_connections,
         retry=settings.in_call_retry(),

@@ -64,7 +64,11 @@ class RestConfig(_Table):
     adapter: Literal["rest"] = "rest"
     profile: str = Field(default="loopback", min_length=1)
     url: str
-    token_env: str
+    #: the variable holding a static token (profiles with auth kind "token")
+    token_env: str | None = None
+    #: the variables holding the OAuth client id and secret (kind "client_credentials")
+    client_id_env: str | None = None
+    client_secret_env: str | None = None
     timeout: float | TimeoutTable | None = None
     max_connections: int = Field(default=10, ge=1, le=1000)
     #: the largest answer read from the device, in bytes (1 KiB to 1 GiB)
@@ -91,10 +95,10 @@ class RestConfig(_Table):
             "since the token travels with every request)"
         )
 
-    @field_validator("token_env")
+    @field_validator("token_env", "client_id_env", "client_secret_env")
     @classmethod
-    def _check_env_name(cls, name: str) -> str:
-        if not _ENV_NAME.fullmatch(name):
+    def _check_env_name(cls, name: str | None) -> str | None:
+        if name is not None and not _ENV_NAME.fullmatch(name):
             raise ValueError("must be the NAME of an environment variable, e.g. MY_DEVICE_TOKEN")
         return name
 
@@ -123,11 +127,11 @@ def parse_config(name: str, config: Mapping[str, Any]) -> RestConfig:
     """The validated table, or a :class:`ConfigError` naming each problem (never a value:
     a misplaced token must not be echoed)."""
     for key in config:
-        if key != "token_env" and _SECRET_KEYS.search(str(key)):
+        if not str(key).endswith("_env") and _SECRET_KEYS.search(str(key)):
             raise ConfigError(
                 f"backend {name!r}: key {key!r} looks like a secret; secrets never go in the "
                 "configuration: put the token in an environment variable and set token_env "
-                "to that variable's NAME"
+                "(or client_secret_env) to that variable's NAME"
             )
     try:
         return RestConfig.model_validate(dict(config))

@@ -125,9 +125,12 @@ class Wire:
     """What error mapping needs to know about the backend and its profile."""
 
     backend: str
-    token_env: str
+    #: what the credentials are, for messages: "the token in environment variable X"
+    credentials: str
     retry_header: str
     message_pointer: str | None
+    #: the device answers a repeated submission with 409 naming the existing job
+    conflict_names_job: bool = False
 
 
 def _clamp(seconds: float | None, wire: Wire) -> float | None:
@@ -173,14 +176,22 @@ def read_reply(op: str, response: httpx.Response, wire: Wire, redactor: Redactor
                 + (" (the submission may have been accepted)" if op == "submit" else ""),
                 retry_after=retry_after,
             ) from None
+    if op == "submit" and status == 303:  # see other: the job made by an earlier request
+        return Reply(status, None, retry_after, headers, url)
+    if op == "submit" and status == 409 and wire.conflict_names_job:
+        try:
+            document = response.json() if response.content.strip() else None
+        except (ValueError, UnicodeDecodeError, RecursionError):
+            document = None
+        return Reply(status, document, retry_after, headers, url)
     message = device_message(response, wire, redactor)
     if op == "cancel" and status == 409:
         # the job already finished (or was cancelled): the next poll tells which.
         return Reply(status, None, retry_after, headers, url)
     if status in (401, 403):
         raise DeviceAuthError(
-            f"{wire.backend}: the device refused the token ({status}): the token in "
-            f"environment variable {wire.token_env} is missing or wrong (device said: {message})",
+            f"{wire.backend}: the device refused the {'credentials' if op == 'token' else 'token'}"
+            f" ({status}): {wire.credentials} (device said: {message})",
             status=status,
         )
     if status in (408, 409, 425, 429) or status >= 500:

@@ -13,36 +13,26 @@ from __future__ import annotations
 import tomllib
 from importlib import resources
 from pathlib import Path
-from typing import Annotated, Any, Literal
+from typing import Any, Literal
 
-from pydantic import AfterValidator, BaseModel, ConfigDict, Field, ValidationError, model_validator
+from pydantic import BaseModel, ConfigDict, Field, ValidationError, model_validator
 
 from jobkeeper.backend import RemoteState
+from jobkeeper.backends.rest.results_spec import ResultsSpec
 from jobkeeper.backends.rest.wire import (
     BODY_FIELDS,
     PATH_FIELDS,
-    PointerError,
-    pointer_tokens,
+    Pointer,
     template_fields,
     template_strings,
 )
 from jobkeeper.exceptions import ConfigError
 from jobkeeper.hashing import digest_of
 
-PROFILE_FORMAT: Literal[1] = 1
+#: the newest profile format; format 1 files keep working (they use none of format 2's keys).
+PROFILE_FORMAT: Literal[2] = 2
 DEFAULT_PROFILE = "loopback"
 
-
-def _check_pointer(value: str) -> str:
-    try:
-        pointer_tokens(value)
-    except PointerError as exc:
-        raise ValueError(str(exc)) from None
-    return value
-
-
-#: a JSON Pointer (RFC 6901) into a device's JSON answer; "" is the whole answer.
-Pointer = Annotated[str, AfterValidator(_check_pointer)]
 
 HttpMethod = Literal["GET", "POST", "PUT", "PATCH", "DELETE"]
 
@@ -65,12 +55,44 @@ class DeviceSpec(_Model):
     native_operations: list[str] | None = None
 
 
-class AuthSpec(_Model):
-    """The header that carries the token: ``header: scheme token`` (``scheme = ""`` sends
-    the bare token)."""
+class TokenRequestSpec(_Model):
+    """OAuth 2.0 client credentials (RFC 6749 §4.4): where to ask for an access token.
+    ``path`` is a path on the device's URL or an absolute URL; ``client_auth`` sends the
+    client id and secret with HTTP Basic (``basic``, RFC 6749 §2.3.1) or as form fields
+    (``body``)."""
 
+    path: str = Field(min_length=1)
+    scope: str | None = None
+    client_auth: Literal["basic", "body"] = "basic"
+
+    @model_validator(mode="after")
+    def _check_path(self) -> TokenRequestSpec:
+        if not self.path.startswith(("/", "https://", "http://")):
+            raise ValueError(f"path {self.path!r} must start with '/' or be an absolute URL")
+        host = self.path.removeprefix("http://").split("/", 1)[0].split(":", 1)[0]
+        if self.path.startswith("http://") and host not in ("127.0.0.1", "localhost", "[::1]"):
+            raise ValueError("the client secret travels to the token endpoint: use https://")
+        return self
+
+
+class AuthSpec(_Model):
+    """How requests are authenticated: a static token from the environment (``token``),
+    or an access token obtained with OAuth 2.0 client credentials
+    (``client_credentials``, format 2). Either way the token goes in ``header`` as
+    ``scheme token`` (``scheme = ""`` sends the bare token)."""
+
+    kind: Literal["token", "client_credentials"] = "token"
     header: str = Field(default="Authorization", min_length=1)
     scheme: str = "Bearer"
+    token_request: TokenRequestSpec | None = None
+
+    @model_validator(mode="after")
+    def _check_kind(self) -> AuthSpec:
+        if self.kind == "client_credentials" and self.token_request is None:
+            raise ValueError("client_credentials needs [auth.token_request]")
+        if self.kind == "token" and self.token_request is not None:
+            raise ValueError("a token_request needs kind = 'client_credentials'")
+        return self
 
 
 class IdempotencySpec(_Model):
@@ -103,8 +125,8 @@ class RequestSpec(_Model):
 
     @model_validator(mode="after")
     def _check_templates(self) -> RequestSpec:
-        if not self.path.startswith("/"):
-            raise ValueError(f"path {self.path!r} must start with '/'")
+        if not self.path.startswith(("/", "{handle}")):
+            raise ValueError(f"path {self.path!r} must start with '/' (or with {{handle}})")
         for name in template_fields(self.path):
             if name not in PATH_FIELDS:
                 raise ValueError(
@@ -127,10 +149,24 @@ class RequestSpec(_Model):
 
 
 class SubmitSpec(RequestSpec):
-    """The submission. ``handle`` locates the device's job id in the answer."""
+    """The submission. The device's job id, the handle, is found at the JSON Pointer
+    ``handle`` in the answer, or (format 2) in the ``Location`` header of a 201, 202 or
+    303 answer (RFC 9110 §10.2.2), resolved against the request URL: its last path
+    segment, or its whole path (``handle_part``). ``repeats`` says how the device answers
+    a repeated idempotency key: with the same answer again (``same``), with 303 and the
+    existing job's ``Location`` (``see_other``), or with 409 naming the existing job at
+    ``conflict_handle`` (or in ``Location``) (``conflict``). ``body_format`` sends the body
+    as JSON or form-encoded (``application/x-www-form-urlencoded``). ``program`` is the
+    language of ``{circuit}``."""
 
     method: HttpMethod = "POST"
-    handle: Pointer
+    handle: Pointer | None = None
+    handle_from: Literal["answer", "location"] = "answer"
+    handle_part: Literal["last_segment", "path"] = "last_segment"
+    repeats: Literal["same", "see_other", "conflict"] = "same"
+    conflict_handle: Pointer | None = None
+    body_format: Literal["json", "form"] = "json"
+    program: Literal["openqasm2"] = "openqasm2"
 
     @model_validator(mode="after")
     def _check_submit(self) -> SubmitSpec:
@@ -139,6 +175,18 @@ class SubmitSpec(RequestSpec):
         names = {n for text in template_strings(self.body or {}) for n in template_fields(text)}
         if "circuit" not in names:
             raise ValueError("the submit body must send the circuit: put {circuit} in it")
+        if self.handle_from == "answer" and self.handle is None:
+            raise ValueError("handle: give the JSON Pointer to the job id in the answer")
+        if self.handle_from == "location" and self.handle is not None:
+            raise ValueError("handle: not used when handle_from = 'location'")
+        if self.conflict_handle is not None and self.repeats != "conflict":
+            raise ValueError("conflict_handle: only used with repeats = 'conflict'")
+        if self.body_format == "form":
+            for key, value in (self.body or {}).items():
+                if not isinstance(value, str | int | float | bool):
+                    raise ValueError(f"a form body holds plain values; {key!r} is not one")
+                if value == "{options}":
+                    raise ValueError("{options} is an object: a form body cannot send it")
         return self
 
 
@@ -188,22 +236,10 @@ class RequestsSpec(_Model):
     calibration: CalibrationSpec | None = None
 
 
-class ResultsSpec(_Model):
-    """Where the outcome sits: in the result answer, or in the status answer when the
-    profile has no result request. ``bit_order = "ours"``: bit strings are written as
-    jobkeeper writes them (OpenQASM 2 convention, c[0] rightmost, registers separated by
-    one space, the last declared leftmost)."""
-
-    counts: Pointer
-    probabilities: Pointer | None = None
-    metadata: Pointer | None = None
-    bit_order: Literal["ours"] = "ours"
-
-
 class DeviceProfile(_Model):
     """A whole profile file."""
 
-    format: Literal[1] = PROFILE_FORMAT
+    format: Literal[1, 2] = PROFILE_FORMAT
     device: DeviceSpec
     auth: AuthSpec = AuthSpec()
     idempotency: IdempotencySpec = IdempotencySpec()
@@ -220,9 +256,34 @@ class DeviceProfile(_Model):
             raise ValueError("states must map at least one of the device's words to 'done'")
         return self
 
+    @model_validator(mode="after")
+    def _check_format(self) -> DeviceProfile:
+        if self.format == 1:
+            newer = format_2_keys(self)
+            if newer:
+                raise ValueError(f"{', '.join(newer)}: format 2 keys; set format = 2 to use them")
+        return self
+
     def digest(self) -> str:
         """``sha256:`` of the profile's content (comments and layout do not count)."""
         return digest_of(self.model_dump(mode="json"))
+
+
+def format_2_keys(profile: DeviceProfile) -> list[str]:
+    """The keys of ``profile`` that only format 2 knows, set to anything but their
+    default (a format 1 profile has none)."""
+    checks = {
+        "auth.kind": profile.auth.kind != "token",
+        "requests.submit.handle_from": profile.requests.submit.handle_from != "answer",
+        "requests.submit.handle_part": profile.requests.submit.handle_part != "last_segment",
+        "requests.submit.repeats": profile.requests.submit.repeats != "same",
+        "requests.submit.body_format": profile.requests.submit.body_format != "json",
+        "results.samples": profile.results.samples is not None,
+        "results.bit_order": profile.results.bit_order != "ours",
+        "results.encoding": profile.results.encoding != "bitstrings",
+        "results.pages": profile.results.pages is not None,
+    }
+    return [key for key, used in checks.items() if used]
 
 
 def _describe(exc: ValidationError) -> str:
@@ -230,8 +291,9 @@ def _describe(exc: ValidationError) -> str:
     for error in exc.errors():
         where = ".".join(str(part) for part in error["loc"]) or "(top level)"
         message = str(error["msg"]).removeprefix("Value error, ")
-        lines.append(f"  {where}: {message}")
-    return "\n".join(lines)
+        lines.append(f"{where}: {message}")
+    # one line, as every usage or configuration error is reported
+    return "; ".join(lines)
 
 
 def parse_profile(data: dict[str, Any], *, source: str = "<profile>") -> DeviceProfile:
@@ -239,7 +301,7 @@ def parse_profile(data: dict[str, Any], *, source: str = "<profile>") -> DeviceP
     try:
         return DeviceProfile.model_validate(data)
     except ValidationError as exc:
-        raise ConfigError(f"device profile {source} is invalid:\n{_describe(exc)}") from None
+        raise ConfigError(f"device profile {source} is invalid: {_describe(exc)}") from None
 
 
 def shipped_profiles() -> list[str]:

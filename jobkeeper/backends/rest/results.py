@@ -17,7 +17,7 @@ BITSTRING = re.compile(r"[01]+( [01]+)*")
 _MISSING = object()
 
 
-def _mismatch(profile: DeviceProfile, op: str, detail: str) -> PermanentBackendError:
+def mismatch(profile: DeviceProfile, op: str, detail: str) -> PermanentBackendError:
     # A 2xx answer without the promised value will not change on retry: the profile and
     # the device disagree, which a person must fix.
     return PermanentBackendError(
@@ -35,7 +35,7 @@ def pick(
     except PointerError as exc:
         if default is not _MISSING:
             return default
-        raise _mismatch(profile, op, f"{exc} (JSON Pointer {pointer!r})") from None
+        raise mismatch(profile, op, f"{exc} (JSON Pointer {pointer!r})") from None
 
 
 def pick_text(
@@ -49,33 +49,33 @@ def pick_text(
         return value
     if isinstance(value, int | float) and not isinstance(value, bool):
         return str(value)
-    raise _mismatch(profile, op, f"expected text at {pointer!r}, found {type(value).__name__}")
+    raise mismatch(profile, op, f"expected text at {pointer!r}, found {type(value).__name__}")
 
 
 def _counts(value: Any, profile: DeviceProfile) -> dict[str, int]:
     if not isinstance(value, dict):
-        raise _mismatch(profile, "result", f"counts are {type(value).__name__}, not an object")
+        raise mismatch(profile, "result", f"counts are {type(value).__name__}, not an object")
     counts: dict[str, int] = {}
     for bits, count in value.items():
         if not BITSTRING.fullmatch(bits):
-            raise _mismatch(profile, "result", f"{bits!r} is not a bit string")
+            raise mismatch(profile, "result", f"{bits!r} is not a bit string")
         if isinstance(count, bool) or not isinstance(count, int) or count < 0:
-            raise _mismatch(profile, "result", f"count {count!r} of {bits!r} is not a count")
+            raise mismatch(profile, "result", f"count {count!r} of {bits!r} is not a count")
         counts[bits] = count
     return counts
 
 
-def _probabilities(value: Any, profile: DeviceProfile) -> dict[str, float]:
+def probabilities_of(value: Any, profile: DeviceProfile) -> dict[str, float]:
     if not isinstance(value, dict):
-        raise _mismatch(profile, "result", f"probabilities are {type(value).__name__}")
+        raise mismatch(profile, "result", f"probabilities are {type(value).__name__}")
     probabilities: dict[str, float] = {}
     for bits, p in value.items():
         if not BITSTRING.fullmatch(bits):
-            raise _mismatch(profile, "result", f"{bits!r} is not a bit string")
+            raise mismatch(profile, "result", f"{bits!r} is not a bit string")
         if isinstance(p, bool) or not isinstance(p, int | float) or not math.isfinite(p):
-            raise _mismatch(profile, "result", f"probability {p!r} of {bits!r} is not a number")
+            raise mismatch(profile, "result", f"probability {p!r} of {bits!r} is not a number")
         if not -1e-9 <= p <= 1 + 1e-9:
-            raise _mismatch(profile, "result", f"probability {p!r} of {bits!r} is out of [0, 1]")
+            raise mismatch(profile, "result", f"probability {p!r} of {bits!r} is out of [0, 1]")
         probabilities[bits] = float(p)
     return probabilities
 
@@ -86,16 +86,17 @@ def outcome_from(
     """(counts, probabilities, device metadata) from a result answer. At least one of
     counts and probabilities must be there (not absent, not null)."""
     results = profile.results
+    assert results.counts is not None  # format 1 profiles have counts
     raw_counts = pick(document, results.counts, "result", profile, default=None)
     raw_probabilities = None
     if results.probabilities is not None:
         raw_probabilities = pick(document, results.probabilities, "result", profile, default=None)
     if raw_counts is None and raw_probabilities is None:
         where = results.counts + (f" or {results.probabilities}" if results.probabilities else "")
-        raise _mismatch(profile, "result", f"no counts at {where}")
+        raise mismatch(profile, "result", f"no counts at {where}")
     counts = _counts(raw_counts, profile) if raw_counts is not None else None
     probabilities = (
-        _probabilities(raw_probabilities, profile) if raw_probabilities is not None else None
+        probabilities_of(raw_probabilities, profile) if raw_probabilities is not None else None
     )
     metadata = None
     if results.metadata is not None:

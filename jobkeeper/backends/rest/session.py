@@ -30,6 +30,7 @@ from jobkeeper.backends.rest.http import (
     transport_error,
 )
 from jobkeeper.backends.rest.redaction import Redactor
+from jobkeeper.exceptions import TransientBackendError
 
 
 @dataclass(frozen=True)
@@ -123,19 +124,33 @@ class DeviceSession:
         request: Outgoing,
         auth: AuthHeaders,
         *,
-        on_refused: Callable[[], Awaitable[bool]] | None = None,
+        on_refused: Callable[[Mapping[str, str]], Awaitable[bool]] | None = None,
     ) -> Reply:
         """Send ``request`` with in-call retries of transient errors. ``auth`` gives the
         credentials' headers for each try; when the device refuses them (401) and
-        ``on_refused`` says fresh credentials are worth a try, the request goes once more."""
+        ``on_refused`` (given the refused headers) says fresh credentials are worth a
+        try, the request goes once more with them; if they are refused too, the error is
+        transient (the token request succeeded, so the credentials themselves are good)."""
         async for attempt in retrying(self._retry):
             with attempt:
+                headers = await auth()
+                try:
+                    return await self.exchange(op, request, headers)
+                except DeviceAuthError as exc:
+                    if exc.status != 401 or on_refused is None or not await on_refused(headers):
+                        raise
                 try:
                     return await self.exchange(op, request, await auth())
                 except DeviceAuthError as exc:
-                    if exc.status != 401 or on_refused is None or not await on_refused():
+                    if exc.status != 401:
                         raise
-                    return await self.exchange(op, request, await auth())
+                    # A token fetched a moment ago was refused too (the token request
+                    # itself succeeded, so the credentials are good): the device revokes
+                    # tokens early. Later, with another token, it may take the request.
+                    raise TransientBackendError(
+                        f"{self.wire.backend}: the device refused a freshly obtained access "
+                        f"token on the {op} request too; the request is retried later"
+                    ) from None
         raise AssertionError("unreachable: tenacity re-raises the last error")
 
     async def aclose(self) -> None:

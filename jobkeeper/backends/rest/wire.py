@@ -17,8 +17,10 @@ import re
 import string
 from collections.abc import Mapping
 from datetime import UTC, datetime
-from typing import Any
+from typing import Annotated, Any
 from urllib.parse import quote
+
+from pydantic import AfterValidator
 
 # --------------------------------------------------------------------------- JSON Pointer
 
@@ -42,6 +44,18 @@ def pointer_tokens(pointer: str) -> list[str]:
         if re.search(r"~(?![01])", token):
             raise PointerError(f"JSON Pointer {pointer!r}: '~' must be followed by 0 or 1")
     return [token.replace("~1", "/").replace("~0", "~") for token in tokens]
+
+
+def _check_pointer(value: str) -> str:
+    try:
+        pointer_tokens(value)
+    except PointerError as exc:
+        raise ValueError(str(exc)) from None
+    return value
+
+
+#: a JSON Pointer (RFC 6901) into a device's JSON answer; "" is the whole answer.
+Pointer = Annotated[str, AfterValidator(_check_pointer)]
 
 
 def resolve_pointer(document: Any, pointer: str) -> Any:
@@ -193,7 +207,13 @@ def fill_template(template: Any, values: Mapping[str, Any]) -> Any:
     return template
 
 
-def fill_path(template: str, *, handle: str | None = None) -> str:
-    """A request path with ``{handle}`` filled in, percent-encoded as one path segment."""
-    encoded = quote(handle, safe="") if handle is not None else ""
+def fill_path(template: str, *, handle: str | None = None, whole_path: bool = False) -> str:
+    """A request path with ``{handle}`` filled in, percent-encoded as one path segment
+    (or, with ``whole_path``, as the path it is: a handle taken from a Location's path)."""
+    if handle is None:
+        encoded = ""
+    elif whole_path:
+        encoded = quote(handle, safe="/%:@!$&'()*+,;=-._~")
+    else:
+        encoded = quote(handle, safe="")
     return template.format_map({"handle": encoded})
