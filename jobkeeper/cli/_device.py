@@ -49,7 +49,7 @@ def loopback_device(
         str,
         typer.Option(
             "--preset",
-            help="API shape: loopback, or exchange (OAuth, Location handles, paged samples).",
+            help="API shape: loopback, exchange (OAuth, Locations, linked pages) or ledger.",
         ),
     ] = "loopback",
     state: Annotated[
@@ -73,8 +73,8 @@ def loopback_device(
         )
     if not token:
         raise ConfigError("give the device a token: --token or JOBKEEPER_LOOPBACK_TOKEN")
-    if preset not in ("loopback", "exchange"):
-        raise ConfigError(f"unknown preset {preset!r}; known: loopback, exchange")
+    if preset not in ("loopback", "exchange", "ledger"):
+        raise ConfigError(f"unknown preset {preset!r}; known: loopback, exchange, ledger")
     if not 0.0 <= fault_rate <= 1.0:
         raise ConfigError("--fault-rate must be between 0 and 1")
     typer.echo(

@@ -11,7 +11,8 @@ Endpoints (the loopback profile, ``jobkeeper/profiles/loopback.toml``, speaks th
     GET  /stats                   counters (no token, no faults)
     GET  /health                  liveness (no token, no faults)
 
-The ``exchange`` preset speaks another API shape instead (``_exchange.py``). Faults
+The ``exchange`` and ``ledger`` presets speak other API shapes instead (``_exchange.py``,
+``_ledger.py``). Faults
 (``_faults.py``) are drawn per ``/v1`` request (``/v2`` and ``/oauth`` in the exchange
 preset) with probability ``rate`` from a seeded generator (which request gets which draw
 depends on arrival order).
@@ -48,15 +49,16 @@ from jobkeeper.loopback._faults import (
     discard,
     huge,
 )
+from jobkeeper.loopback._ledger import ledger_routes
 from jobkeeper.loopback._state import DeviceState
 
 __all__ = ["ALL_FAULTS", "KNOWN_FAULTS", "PRESETS", "FaultPlan", "LoopbackApp", "create_app"]
 
-#: the API shapes the device can speak: its own (``loopback``) and ``exchange``
-#: (``_exchange.py``), each with a shipped profile of the same name (``loopback-exchange``).
-PRESETS = ("loopback", "exchange")
+#: the API shapes the device can speak: its own (``loopback``), ``exchange`` and ``ledger``,
+#: each with a shipped profile (``loopback-exchange``, ``loopback-ledger``).
+PRESETS = ("loopback", "exchange", "ledger")
 #: the paths where faults are injected and the credentials checked, per preset.
-_GUARDED = {"loopback": ("/v1/",), "exchange": ("/v2/", "/oauth/")}
+_GUARDED = {"loopback": ("/v1/",), "exchange": ("/v2/", "/oauth/"), "ledger": ("/v3/",)}
 
 
 def _error(status: int, code: str, message: str, headers: dict[str, str] | None = None) -> Response:
@@ -156,9 +158,11 @@ class LoopbackApp:
         #: the exchange preset's token issuer (its client secret is ``token``)
         self.issuer = TokenIssuer(secret=token, ttl=token_ttl)
         self._routes = _routes(device)
+        self._key = token.encode()
         if preset == "exchange":
-            extra = exchange_routes(device, self.issuer, page_size)
-            self._routes.router.routes[:0] = extra
+            self._routes.router.routes[:0] = exchange_routes(device, self.issuer, page_size)
+        elif preset == "ledger":
+            self._routes.router.routes[:0] = ledger_routes(device, page_size)
         self._forced: deque[tuple[str, str | None, str | None]] = deque()
         self._echoes: deque[str] = deque()
 
@@ -205,6 +209,9 @@ class LoopbackApp:
             return str(scope["path"]).startswith("/oauth/") or bearer_valid(
                 self.issuer, scope["headers"]
             )
+        if self.preset == "ledger":
+            sent = dict(scope["headers"]).get(b"x-ledger-key", b"")
+            return hmac.compare_digest(bytes(sent), self._key)
         for name, value in scope["headers"]:
             if name == b"authorization":
                 return hmac.compare_digest(bytes(value), self._expected)

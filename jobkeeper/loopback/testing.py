@@ -67,6 +67,9 @@ class RunningDevice:
             auth = {"client_id_env": CLIENT_ID_ENV, "client_secret_env": self.token_env}
             return {"adapter": "rest", "profile": "loopback-exchange", "url": self.url,
                     **auth, **overrides}  # fmt: skip
+        if self.app.preset == "ledger":
+            return {"adapter": "rest", "profile": "loopback-ledger", "url": self.url,
+                    "token_env": self.token_env, **overrides}  # fmt: skip
         return {
             "adapter": "rest",
             "profile": "loopback",

@@ -116,6 +116,7 @@ CASES: list[tuple[str, list[str], Setup]] = [
     ("heartbeat longer than lease", ["worker", "--heartbeat", "90"], _plain),
     ("port out of range", ["loopback-device", "--port", "99999", "--token", "t"], _nothing),
     ("fault rate out of range", ["loopback-device", "--fault-rate", "2", "--token", "t"], _nothing),
+    ("unknown device preset", ["loopback-device", "--preset", "x", "--token", "t"], _nothing),
     ("root option and no command", ["--keep", "somewhere"], _nothing),
     ("timeout not a number", ["wait", "abc", "--timeout", "soon"], _plain),
     ("limit zero", ["jobs", "--limit", "0"], _plain),
