@@ -141,10 +141,19 @@ class _Collector:
     def add(self, factors: tuple[tuple[int, PauliLetter], ...], coefficient: float) -> None:
         self.sums[factors] = self.sums.get(factors, Fraction(0)) + Fraction(coefficient)
 
+    def _rounded(self, factors: tuple[tuple[int, PauliLetter], ...], total: Fraction) -> float:
+        try:
+            return float(total)
+        except OverflowError:
+            raise ObservableError(
+                f"the coefficients of {label_of(factors)} add up past the largest double",
+                file=self.source_name,
+            ) from None
+
     def build(self, num_qubits: int | None) -> Observable:
-        identity = float(self.sums.pop((), Fraction(0)))
+        identity = self._rounded((), self.sums.pop((), Fraction(0)))
         terms = tuple(
-            PauliTerm(factors, float(total))
+            PauliTerm(factors, self._rounded(factors, total))
             for factors, total in sorted(self.sums.items(), key=lambda kv: _sort_key(kv[0]))
             if total != 0
         )

