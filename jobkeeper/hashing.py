@@ -4,11 +4,14 @@ The reference implementation is the rfc8785 package (pure Python). For ASCII str
 (without DEL), integers within ±(2^53−1), booleans, null, lists and objects, RFC 8785
 output equals what ``json.dumps`` writes for the same value with keys sorted: ASCII
 sorts the same by UTF-16 code units as by code points, and the two escape the same
-characters the same way. :func:`canonical_json` takes that path where it can and the
-reference everywhere else (floats, non-ASCII, DEL, big integers), so its bytes are always
-the reference's (a differential property test holds it to that). Job keys, manifests,
-envelopes and counts documents are all hashed through it: the reference alone cost a
-fifth of submitting a small job, and dominated log verification.
+characters the same way; so does a float that Python writes without an exponent, once a
+trailing ".0" is dropped (other floats are the reference's writing of the number alone).
+:func:`canonical_json` takes that path where it can and the reference everywhere else
+(non-ASCII, DEL, big integers), so its bytes are always the reference's (a differential
+property test holds it to that). Job keys, manifests, envelopes, counts documents and
+estimate documents are all hashed through it: the reference alone cost a fifth of
+submitting a small job, dominated log verification, and wrote a 1,000-term estimate's
+document in about 20 ms (8 ms with floats on the fast path).
 """
 
 from __future__ import annotations
@@ -52,6 +55,19 @@ def _plain_str(text: str) -> str:
     return encoded
 
 
+def _plain_float(value: float) -> str:
+    # The reference writes str(value) reshaped to ECMAScript's rules; where Python writes
+    # no exponent (1e-4 ≤ |value| < 1e16) the two agree but for a trailing ".0". Zero is
+    # "0" for both signs. A number is written alone, whatever surrounds it, so any other
+    # float is the reference's writing of it alone (infinities and NaN: its error).
+    if value == 0.0:
+        return "0"
+    text = repr(value)
+    if "e" in text or "n" in text:
+        return reference_canonical_json(value).decode("ascii")
+    return text[:-2] if text.endswith(".0") else text
+
+
 def _dump(value: Any, out: list[str]) -> None:
     # Dispatch on the exact type, commonest first (an isinstance check against
     # CountTable, an abstract Mapping, goes through the slow ABC machinery).
@@ -90,11 +106,13 @@ def _dump(value: Any, out: list[str]) -> None:
             _dump(item, out)
             sep = ","
         out.append("]")
+    elif kind is float:
+        out.append(_plain_float(value))
     elif kind is CountTable:
         # Writes its own canonical JSON with numpy (keys are '0', '1' and spaces).
         out.append(value.canonical_json().decode("ascii"))
     else:
-        # Floats, subclasses and anything else: the reference decides.
+        # Subclasses and anything else: the reference decides.
         raise _Fallback
 
 

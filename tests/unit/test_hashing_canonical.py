@@ -54,3 +54,18 @@ def test_typical_documents() -> None:
     # Outside the I-JSON domain both refuse, with the reference's error.
     with pytest.raises(rfc8785.IntegerDomainError):
         fast({"big": 2**60})
+
+
+@settings(max_examples=500, deadline=None)
+@given(st.floats(allow_nan=False, allow_infinity=False))
+def test_floats_equal_the_reference(value: float) -> None:
+    # Floats take the fast path where Python writes no exponent: the reference decides.
+    assert fast(value) == reference(value)
+    assert fast([value, -value]) == reference([value, -value])
+
+
+@pytest.mark.parametrize(
+    "value", [0.0, -0.0, 1.0, -2.5, 1e-4, 9.999e-5, 1e15, 1e16, 1e21, 123456789.125, 0.1 + 0.2]
+)
+def test_float_edges_equal_the_reference(value: float) -> None:
+    assert fast(value) == reference(value)
