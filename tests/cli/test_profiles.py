@@ -102,3 +102,32 @@ def test_a_bad_profile_is_refused_at_load_naming_file_key_and_reason(
     lines = err.strip().splitlines()
     assert out == "" and len(lines) == 1, err
     assert str(profile) in lines[0] and key in lines[0] and reason in lines[0], lines[0]
+
+
+def _keys(model: type, prefix: str = "") -> list[str]:
+    """Every key of the profile language, as dotted paths (nested tables walked)."""
+    from pydantic import BaseModel
+
+    found = []
+    for name, field in model.model_fields.items():  # type: ignore[attr-defined]
+        found.append(prefix + name)
+        for kind in getattr(field.annotation, "__args__", (field.annotation,)):
+            if isinstance(kind, type) and issubclass(kind, BaseModel):
+                found += _keys(kind, f"{prefix}{name}.")
+    return found
+
+
+def test_the_readme_profile_reference_documents_every_key() -> None:
+    from jobkeeper.backends.rest.profile import DeviceProfile
+
+    readme = (REPO / "README.md").read_text(encoding="utf-8")
+    reference = readme.split("### Profile reference", 1)[1].split("\n### ", 1)[0]
+    example = reference.split("```toml", 1)[1].split("```", 1)[0]
+    tables = {"device", "auth", "auth.token_request", "idempotency", "retry_hint", "errors",
+              "requests", "results", "results.pages", "states"}  # fmt: skip
+    for key in _keys(DeviceProfile):
+        name = key.rpartition(".")[2]
+        if key in tables or (key.startswith("requests.") and key.count(".") == 1):
+            assert f"[{key}]" in example or key == "requests", key
+        elif key != "states":
+            assert f"\n{name} = " in example or f"# {name} = " in example, key
