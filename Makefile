@@ -30,6 +30,7 @@ lint: $(STAMP)
 	$(BIN)/ruff format --check jobkeeper tests benchmarks examples conftest.py
 	$(BIN)/mypy
 	$(BIN)/lint-imports --no-cache
+	$(BIN)/pylint jobkeeper tests
 
 clean:
 	rm -rf $(VENV) .pytest_cache .mypy_cache .ruff_cache

@@ -7,6 +7,7 @@ Columns count characters (code points), starting at 1, as editors show them.
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from typing import NamedTuple, NoReturn
 
 from jobkeeper.exceptions import CircuitError
@@ -49,20 +50,32 @@ class Token(NamedTuple):
         return f"'{text}'"
 
 
-def _shown(char: str) -> str:
+def shown(char: str) -> str:
+    """A character as an error message shows it."""
     return repr(char) if char.isprintable() else f"U+{ord(char):04X}"
 
 
-def tokenize(text: str, file: str | None) -> list[Token]:
-    """All tokens of ``text`` followed by one EOF token; CircuitError on a bad character."""
+#: Raise a CircuitError at an index of the text (its line and column worked out).
+Fail = Callable[[str, int], NoReturn]
+#: What one language makes of the text at index ``i`` (not a blank, not a ``//`` comment):
+#: ``read(text, i, line, column, fail)`` gives a token, or None for text that makes none (a
+#: block comment; its line ends are counted), and the index after it.
+ReadToken = Callable[[str, int, int, int, Fail], tuple[Token | None, int]]
+
+# tuple.__new__ skips the named tuple's keyword-handling constructor: a third of
+# tokenizing went into building tokens.
+_new = tuple.__new__
+
+
+def scan(text: str, file: str | None, read: ReadToken) -> list[Token]:
+    """The pass both OpenQASM readers share: all tokens of ``text`` followed by one EOF
+    token. Blanks, line ends and ``//`` comments are handled here; ``read`` reads the
+    rest. CircuitError on text that is no token."""
     # A lone CR (old Mac line ends) ends a line too, so that it ends a comment as well.
     if "\r" in text:
         text = text.replace("\r\n", "\n").replace("\r", "\n")
     tokens: list[Token] = []
     append = tokens.append
-    # tuple.__new__ skips the named tuple's keyword-handling constructor: a third of
-    # tokenizing went into building tokens.
-    new = tuple.__new__
     n = len(text)
     i = 0
     line = 1
@@ -79,76 +92,84 @@ def tokenize(text: str, file: str | None) -> list[Token]:
                 line_start = i + 1
             i += 1
             continue
-        col = i - line_start + 1
         if ch == "/" and i + 1 < n and text[i + 1] == "/":
             end = text.find("\n", i)
             i = n if end < 0 else end
             continue
-        if ch in _ID_START:
-            j = i + 1
-            while j < n and text[j] in _ID_CHARS:
-                j += 1
-            word = text[i:j]
-            if not ("a" <= ch <= "z") and word not in _UPPER_KEYWORDS:
-                fail(f"identifier '{word[:40]}' must start with a lowercase letter", i)
-            append(new(Token, (ID, word, line, col)))
-            i = j
-            continue
-        if ch in _DIGITS or (ch == "." and i + 1 < n and text[i + 1] in _DIGITS):
-            j = i
-            while j < n and text[j] in _DIGITS:
-                j += 1
-            kind = INT
-            if j < n and text[j] == ".":
-                kind = REAL
-                j += 1
-                while j < n and text[j] in _DIGITS:
-                    j += 1
-            if j < n and text[j] in "eE":
-                k = j + 1
-                if k < n and text[k] in "+-":
-                    k += 1
-                if k >= n or text[k] not in _DIGITS:
-                    fail("malformed number: expected digits after the exponent", k)
-                while k < n and text[k] in _DIGITS:
-                    k += 1
-                kind = REAL
-                j = k
-            if j - i > MAX_LITERAL_LENGTH:
-                fail(f"number literal longer than {MAX_LITERAL_LENGTH} characters", i)
-            append(new(Token, (kind, text[i:j], line, col)))
-            i = j
-            continue
-        if ch in _SINGLE:
-            append(new(Token, (SYMBOL, ch, line, col)))
-            i += 1
-            continue
-        if ch == "-":
-            if i + 1 < n and text[i + 1] == ">":
-                append(new(Token, (SYMBOL, "->", line, col)))
-                i += 2
-            else:
-                append(new(Token, (SYMBOL, "-", line, col)))
-                i += 1
-            continue
-        if ch == "=":
-            if i + 1 < n and text[i + 1] == "=":
-                append(new(Token, (SYMBOL, "==", line, col)))
-                i += 2
-                continue
-            fail("expected '==' (OpenQASM 2.0 has no assignment)", i)
-        if ch == '"':
-            j = i + 1
-            while j < n and text[j] != '"' and text[j] != "\n":
-                j += 1
-            if j >= n or text[j] != '"':
-                fail("unterminated string: expected '\"' before the end of the line", i)
-            append(new(Token, (STRING, text[i + 1 : j], line, col)))
-            i = j + 1
-            continue
-        fail(f"unexpected character {_shown(ch)}", i)
+        token, end = read(text, i, line, i - line_start + 1, fail)
+        if token is not None:
+            append(token)
+        else:
+            last = text.rfind("\n", i, end)
+            if last >= 0:  # line ends inside a block comment still count
+                line += text.count("\n", i, last + 1)
+                line_start = last + 1
+        i = end
     append(Token(EOF, "", line, n - line_start + 1))
     return tokens
+
+
+def string_token(text: str, i: int, line: int, col: int, fail: Fail) -> tuple[Token, int]:
+    """The string literal opening at ``i`` (closed by the same quote on the same line)."""
+    quote = text[i]
+    j = text.find(quote, i + 1)
+    if j < 0 or text.find("\n", i + 1, j) >= 0:
+        fail(f"unterminated string: expected {quote!r} before the end of the line", i)
+    return _new(Token, (STRING, text[i + 1 : j], line, col)), j + 1
+
+
+def tokenize(text: str, file: str | None) -> list[Token]:
+    """All tokens of ``text`` followed by one EOF token; CircuitError on a bad character."""
+    return scan(text, file, _read)
+
+
+def _read(text: str, i: int, line: int, col: int, fail: Fail) -> tuple[Token | None, int]:
+    n = len(text)
+    ch = text[i]
+    if ch in _ID_START:
+        j = i + 1
+        while j < n and text[j] in _ID_CHARS:
+            j += 1
+        word = text[i:j]
+        if not ("a" <= ch <= "z") and word not in _UPPER_KEYWORDS:
+            fail(f"identifier '{word[:40]}' must start with a lowercase letter", i)
+        return _new(Token, (ID, word, line, col)), j
+    if ch in _DIGITS or (ch == "." and i + 1 < n and text[i + 1] in _DIGITS):
+        j = i
+        while j < n and text[j] in _DIGITS:
+            j += 1
+        kind = INT
+        if j < n and text[j] == ".":
+            kind = REAL
+            j += 1
+            while j < n and text[j] in _DIGITS:
+                j += 1
+        if j < n and text[j] in "eE":
+            k = j + 1
+            if k < n and text[k] in "+-":
+                k += 1
+            if k >= n or text[k] not in _DIGITS:
+                fail("malformed number: expected digits after the exponent", k)
+            while k < n and text[k] in _DIGITS:
+                k += 1
+            kind = REAL
+            j = k
+        if j - i > MAX_LITERAL_LENGTH:
+            fail(f"number literal longer than {MAX_LITERAL_LENGTH} characters", i)
+        return _new(Token, (kind, text[i:j], line, col)), j
+    if ch in _SINGLE:
+        return _new(Token, (SYMBOL, ch, line, col)), i + 1
+    if ch == "-":
+        if i + 1 < n and text[i + 1] == ">":
+            return _new(Token, (SYMBOL, "->", line, col)), i + 2
+        return _new(Token, (SYMBOL, "-", line, col)), i + 1
+    if ch == "=":
+        if i + 1 < n and text[i + 1] == "=":
+            return _new(Token, (SYMBOL, "==", line, col)), i + 2
+        fail("expected '==' (OpenQASM 2.0 has no assignment)", i)
+    if ch == '"':
+        return string_token(text, i, line, col, fail)
+    fail(f"unexpected character {shown(ch)}", i)
 
 
 class TokenStream:

@@ -12,7 +12,14 @@ rate, and counts what it did at ``GET /stats``. It listens on loopback addresses
 
 from __future__ import annotations
 
-from jobkeeper.loopback._app import ALL_FAULTS, KNOWN_FAULTS, FaultPlan, LoopbackApp, create_app
+from jobkeeper.loopback._app import (
+    ALL_FAULTS,
+    KNOWN_FAULTS,
+    DeviceSettings,
+    FaultPlan,
+    LoopbackApp,
+    create_app,
+)
 from jobkeeper.loopback._device import DeviceJob, LoopbackDevice, Rejection
 from jobkeeper.loopback._server import BackgroundDevice, loopback_address, serve
 
@@ -21,6 +28,7 @@ __all__ = [
     "KNOWN_FAULTS",
     "BackgroundDevice",
     "DeviceJob",
+    "DeviceSettings",
     "FaultPlan",
     "LoopbackApp",
     "LoopbackDevice",

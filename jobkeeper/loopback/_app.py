@@ -26,7 +26,7 @@ import json
 import random
 from collections import deque
 from datetime import UTC, datetime, timedelta
-from typing import Any
+from typing import Any, TypedDict
 
 from starlette.applications import Starlette
 from starlette.concurrency import run_in_threadpool
@@ -294,6 +294,25 @@ class LoopbackApp:
             await cut_off(send)
         else:  # "drop"
             await cut_off(send)
+
+
+class DeviceSettings(TypedDict, total=False):
+    """How the loopback device behaves (keyword arguments of :func:`create_app`, passed on
+    unchanged by ``serve`` and ``running_device``); the defaults are create_app's."""
+
+    queue_delay: float
+    fault_rate: float
+    seed: int
+    faults: tuple[str, ...]
+    slow_delay: float
+    retry_after: int
+    max_qubits: int
+    max_jobs: int
+    huge_size: int
+    state: str | None
+    preset: str
+    token_ttl: float
+    page_size: int
 
 
 def create_app(

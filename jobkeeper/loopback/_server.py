@@ -8,12 +8,12 @@ import logging
 import socket
 import threading
 import time
-from typing import Any
+from typing import Any, Unpack
 
 import uvicorn
 
 from jobkeeper.exceptions import ConfigError
-from jobkeeper.loopback._app import ALL_FAULTS, LoopbackApp, create_app
+from jobkeeper.loopback._app import DeviceSettings, LoopbackApp, create_app
 
 #: uvicorn's complaint when an app ends a response early: that is our injected fault.
 _CUT_OFF = "ASGI callable returned without completing response."
@@ -50,41 +50,23 @@ def serve(
     port: int = 8765,
     *,
     token: str,
-    queue_delay: float = 1.0,
-    fault_rate: float = 0.0,
-    seed: int = 0,
-    faults: tuple[str, ...] = ALL_FAULTS,
-    slow_delay: float = 35.0,
-    retry_after: int = 1,
-    max_qubits: int = 20,
-    state: str | None = None,
-    preset: str = "loopback",
     log_level: str = "info",
+    **settings: Unpack[DeviceSettings],
 ) -> None:
     """Run the loopback device in the foreground until interrupted (Ctrl-C / SIGTERM).
 
-    ``token`` is the bearer token clients must send; ``queue_delay`` the seconds a job
-    waits before it completes; ``fault_rate`` the share of ``/v1`` requests that get an
-    injected fault (of the kinds in ``faults``), drawn from a generator seeded by ``seed``
-    (which also seeds the device's own choices); ``state`` the SQLite file that keeps its
-    jobs across restarts (None: in memory, forgotten when it stops). Raises ConfigError
-    for a non-loopback ``host`` or bad settings. ``preset`` is the API shape it speaks
+    ``token`` is the bearer token clients must send; ``settings`` are those of
+    :func:`create_app`: ``queue_delay`` the seconds a job waits before it completes;
+    ``fault_rate`` the share of ``/v1`` requests that get an injected fault (of the kinds
+    in ``faults``), drawn from a generator seeded by ``seed`` (which also seeds the
+    device's own choices); ``state`` the SQLite file that keeps its jobs across
+    restarts (None: in memory, forgotten when it stops). Raises ConfigError for a
+    non-loopback ``host`` or bad settings. ``preset`` is the API shape it speaks
     (``loopback``, or ``exchange``: see ``jobkeeper/profiles/loopback-exchange.toml``).
     """
     address = loopback_address(host)
     try:
-        app = create_app(
-            token=token,
-            queue_delay=queue_delay,
-            fault_rate=fault_rate,
-            seed=seed,
-            faults=faults,
-            slow_delay=slow_delay,
-            retry_after=retry_after,
-            max_qubits=max_qubits,
-            state=state,
-            preset=preset,
-        )
+        app = create_app(token=token, **settings)
     except ValueError as exc:
         raise ConfigError(f"loopback device: {exc}") from None
     family = socket.AF_INET6 if ":" in address else socket.AF_INET

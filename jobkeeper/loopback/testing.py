@@ -18,11 +18,11 @@ from __future__ import annotations
 from collections.abc import Iterator
 from contextlib import contextmanager
 from dataclasses import dataclass
-from typing import Any
+from typing import Any, Unpack
 
 import httpx
 
-from jobkeeper.loopback._app import ALL_FAULTS, LoopbackApp, create_app
+from jobkeeper.loopback._app import DeviceSettings, LoopbackApp, create_app
 from jobkeeper.loopback._device import LoopbackDevice
 from jobkeeper.loopback._server import BackgroundDevice
 
@@ -84,41 +84,19 @@ def running_device(
     *,
     token: str = TEST_TOKEN,
     token_env: str = TEST_TOKEN_ENV,
-    queue_delay: float = 0.05,
-    fault_rate: float = 0.0,
-    seed: int = 0,
-    faults: tuple[str, ...] = ALL_FAULTS,
-    slow_delay: float = 1.0,
-    retry_after: int = 1,
-    max_qubits: int = 20,
-    huge_size: int = 200 * 1024 * 1024,
-    state: str | None = None,
     port: int = 0,
-    preset: str = "loopback",
-    token_ttl: float = 60.0,
-    page_size: int = 100,
     startup_timeout: float = 10.0,
+    **settings: Unpack[DeviceSettings],
 ) -> Iterator[RunningDevice]:
-    """Start a loopback device on 127.0.0.1 and a free port; stop it on exit. The
-    defaults suit tests: short queue delay, slow faults of 1 s (set the client's read
-    timeout below that). ``state``: the SQLite file that keeps the device's jobs (give the
-    same file and ``port`` to rehearse a restart). ``preset = "exchange"`` speaks the
+    """Start a loopback device on 127.0.0.1 and a free port; stop it on exit. ``settings``
+    are those of :func:`~jobkeeper.loopback.create_app`, with defaults that suit tests:
+    a short queue delay (0.05 s), slow faults of 1 s (set the client's read timeout below
+    that). ``state`` (a setting): the SQLite file that keeps the device's jobs (give
+    the same file and ``port`` to rehearse a restart); ``preset = "exchange"`` speaks the
     ``loopback-exchange`` profile (``token`` is then the client secret; tokens live
     ``token_ttl`` seconds; samples come ``page_size`` to a page)."""
-    app = create_app(
-        token=token,
-        queue_delay=queue_delay,
-        fault_rate=fault_rate,
-        seed=seed,
-        faults=faults,
-        slow_delay=slow_delay,
-        retry_after=retry_after,
-        max_qubits=max_qubits,
-        huge_size=huge_size,
-        state=state,
-        preset=preset,
-        token_ttl=token_ttl,
-        page_size=page_size,
-    )
+    settings.setdefault("queue_delay", 0.05)
+    settings.setdefault("slow_delay", 1.0)
+    app = create_app(token=token, **settings)
     with BackgroundDevice(app, startup_timeout=startup_timeout, port=port) as server:
         yield RunningDevice(url=server.url, token=token, token_env=token_env, app=app)

@@ -6,7 +6,7 @@ PostgreSQL store translates the placeholders). Reads hold no transaction open.""
 from __future__ import annotations
 
 import json
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from typing import Any
 
 from jobkeeper.exceptions import AmbiguousJobId, JobNotFound
@@ -14,6 +14,7 @@ from jobkeeper.queue import JobState
 from jobkeeper.spec import JobSpec
 from jobkeeper.store import (
     Attempt,
+    Claim,
     ComparisonRecord,
     JobRecord,
     LogEntry,
@@ -21,6 +22,36 @@ from jobkeeper.store import (
     StoredResult,
     sql,
 )
+
+#: How a store writes ``column`` matching one of ``values``: the SQL and its parameters.
+InList = Callable[[str, Sequence[str]], tuple[str, list[Any]]]
+
+
+def claim_filter(
+    backends: Sequence[str] | None, ids: Sequence[str] | None, in_list: InList
+) -> tuple[str, list[Any]] | None:
+    """The extra condition of a claim limited to some backends or some job ids, and its
+    parameters; None when nothing can match (an empty list was given)."""
+    clause, params = "", []
+    for column, values in (("backend", backends), ("id", ids)):
+        if values is None:
+            continue
+        if not values:
+            return None
+        condition, values_params = in_list(column, values)
+        clause += f" AND {condition}"
+        params.extend(values_params)
+    return clause, params
+
+
+def claims_of(jobs: Sequence[JobRecord]) -> list[Claim]:
+    """Claimed jobs handed out oldest due first; a job with a device handle was waiting
+    (it is to be polled), any other was queued (it is to be started)."""
+    return [
+        Claim(job=job, token=job.lease_token,
+              was=JobState.WAITING if job.handle else JobState.QUEUED)
+        for job in sorted(jobs, key=lambda job: job.not_before)
+    ]  # fmt: skip
 
 
 def record_of(row: Sequence[Any]) -> JobRecord:

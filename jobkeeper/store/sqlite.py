@@ -37,7 +37,7 @@ from jobkeeper.store import (
     result_row,
     sql,
 )
-from jobkeeper.store.reads import StoreReads, record_of
+from jobkeeper.store.reads import StoreReads, claim_filter, claims_of, record_of
 from jobkeeper.store.sqlite_schema import check_migrated, sqlite_dialect
 
 T = TypeVar("T")
@@ -101,6 +101,10 @@ def map_errors(what: str) -> Iterator[None]:
         if type(exc) is sqlite3.DatabaseError:  # not a database file, or a damaged one
             raise StoreUnavailable(f"{what}: {exc}") from exc
         raise StoreError(f"{what}: {exc}") from exc
+
+
+def _in_list(column: str, values: Sequence[str]) -> tuple[str, list[Any]]:
+    return f"{column} IN ({', '.join('?' for _ in values)})", list(values)
 
 
 class SqliteStore(StoreReads):
@@ -212,29 +216,15 @@ class SqliteStore(StoreReads):
     ) -> list[Claim]:
         if limit <= 0:
             return []
-        params: list[Any] = [owner, lease_seconds]
-        backend_filter = ""
-        for column, values in (("backend", backends), ("id", ids)):
-            if values is None:
-                continue
-            if not values:
-                return []
-            backend_filter += f" AND {column} IN ({', '.join('?' for _ in values)})"
-            params.extend(values)
-        params.append(limit)
-        statement = _q(sql.CLAIM, backend_filter=backend_filter, lock="")
+        limited = claim_filter(backends, ids, _in_list)
+        if limited is None:
+            return []
+        condition, filter_params = limited
+        params = [owner, lease_seconds, *filter_params, limit]
+        statement = _q(sql.CLAIM, backend_filter=condition, lock="")
         with self._write(durable=False) as conn:
             rows = conn.execute(statement, params).fetchall()
-        claims = [record_of(row) for row in rows]
-        claims.sort(key=lambda job: job.not_before)
-        return [
-            Claim(
-                job=job,
-                token=job.lease_token,
-                was=JobState.WAITING if job.handle else JobState.QUEUED,
-            )
-            for job in claims
-        ]
+        return claims_of([record_of(row) for row in rows])
 
     def renew(
         self, owner: str, leases: Sequence[tuple[str, int]], lease_seconds: float

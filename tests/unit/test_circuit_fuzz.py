@@ -90,7 +90,13 @@ def test_token_soup(tokens: list[str]) -> None:
 def test_mutated_corpus_files(index: int, edits: list[tuple[str, float, bytes]]) -> None:
     if not CORPUS_BYTES:
         return
-    data = bytearray(CORPUS_BYTES[index])
+    load_bytes_safely(mutated(CORPUS_BYTES[index], edits))
+
+
+def mutated(original: bytes, edits: list[tuple[str, float, bytes]]) -> bytes:
+    """``original`` with each edit applied: insert, delete or replace ``chunk`` at a
+    relative position."""
+    data = bytearray(original)
     for kind, where, chunk in edits:
         at = int(where * len(data))
         if kind == "insert":
@@ -99,7 +105,7 @@ def test_mutated_corpus_files(index: int, edits: list[tuple[str, float, bytes]])
             del data[at : at + len(chunk)]
         else:
             data[at : at + len(chunk)] = chunk
-    load_bytes_safely(bytes(data))
+    return bytes(data)
 
 
 @SETTINGS
@@ -163,8 +169,15 @@ def test_parse_time_is_linear() -> None:
     # A 10x larger input may take at most 30x longer: generous slack against timer noise
     # and other processes on the machine, while quadratic behaviour shows as ~100x. Each
     # time is the best of three runs, and a shape gets three tries before it counts as slow.
+    slow = superlinear(SHAPES)
+    assert not slow, f"superlinear parse time: {slow}"
+
+
+def superlinear(shapes: dict[str, Callable[[int], str]]) -> dict[str, list[float]]:
+    """The shapes whose parse time grew more than 30x for 10x the input, three times over
+    (with the ratios measured)."""
     slow = {}
-    for name, make in SHAPES.items():
+    for name, make in shapes.items():
         ratios = []
         for _ in range(3):
             small, large = best_of_3(make, 1_000), best_of_3(make, 10_000)
@@ -173,4 +186,4 @@ def test_parse_time_is_linear() -> None:
                 break
         else:
             slow[name] = ratios
-    assert not slow, f"superlinear parse time: {slow}"
+    return slow

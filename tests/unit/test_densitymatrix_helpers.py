@@ -16,17 +16,21 @@ from collections.abc import Callable, Iterable
 
 import numpy as np
 
-from jobkeeper.circuit.ir import Circuit, Condition, Operation
+from jobkeeper.circuit.ir import Circuit, Operation
 from jobkeeper.circuit.stdgates import expand_standard
 from tests.unit.test_statevector_helpers import (
     PAULI_X,
     PAULI_Y,
     PAULI_Z,
+    Add,
     circuit,
     cregs,
+    evolve,
+    ground_records,
     measure,
     on_register,
     op,
+    projector,
     spec_u,
 )
 
@@ -65,18 +69,11 @@ def reference(
     noisy, as the backend documents."""
     n = circ.num_qubits
     dim = 1 << n
-    rho0 = np.zeros((dim, dim), dtype=complex)
-    rho0[0, 0] = 1
-    records: dict[int, np.ndarray] = {0: rho0}
+    records = ground_records(n)
     noisy = p1 > 0 or p2 > 0 or t1 is not None or t2 is not None
 
     def error(q: int) -> float:
         return readout[q] if isinstance(readout, list) else readout
-
-    def holds(cond: Condition | None, record: int) -> bool:
-        if cond is None:
-            return True
-        return sum(((record >> c) & 1) << i for i, c in enumerate(cond.clbits)) == cond.value
 
     def kraus(rho: np.ndarray, ops: list[np.ndarray], qubits: tuple[int, ...]) -> np.ndarray:
         full = [on_register(k, _positions(n, qubits), n) for k in ops]
@@ -101,51 +98,40 @@ def reference(
                 rho = kraus(rho, [math.sqrt(1 - flip) * IDENTITY, math.sqrt(flip) * PAULI_Z], (q,))
         return rho
 
-    def projector(q: int, value: int) -> np.ndarray:
-        return np.diag([1.0 if ((i >> q) & 1) == value else 0.0 for i in range(dim)])
+    def step(operation: Operation, record: int, rho: np.ndarray, add: Add) -> None:
+        if operation.name == "measure":
+            (q,), (c,) = operation.qubits, operation.clbits
+            e = error(q)
+            for value in (0, 1):
+                proj = projector(q, value, dim)
+                collapsed = proj @ rho @ proj
+                for reading, weight in ((value, 1 - e), (1 - value, e)):
+                    if weight:
+                        bits = record | (1 << c) if reading else record & ~(1 << c)
+                        add(bits, weight * collapsed)
+        elif operation.name == "reset":
+            (q,) = operation.qubits
+            flip = on_register(PAULI_X, _positions(n, (q,)), n)
+            p0, p1_ = projector(q, 0, dim), projector(q, 1, dim)
+            # measure, then X when the (possibly misread) outcome is 1.
+            e = error(q)
+            right = p0 @ rho @ p0 + flip @ p1_ @ rho @ p1_ @ flip
+            add(record, (1 - e) * right + e * flip @ right @ flip)
+        elif len(operation.qubits) >= 3 and noisy:
+            for name, pos, values in expand_standard(operation.name, operation.params):
+                qubits = tuple(operation.qubits[i] for i in pos)
+                rho = noisy_gate(rho, CX if name == "CX" else spec_u(*values), qubits)
+            add(record, rho)
+        elif noisy:
+            add(
+                record,
+                noisy_gate(rho, gate(operation.name, operation.params), operation.qubits),
+            )
+        else:
+            u = gate(operation.name, operation.params)
+            add(record, kraus(rho, [u], operation.qubits))
 
-    for operation in circ.operations:
-        updated: dict[int, np.ndarray] = {}
-
-        def add(record: int, rho: np.ndarray, into: dict[int, np.ndarray] = updated) -> None:
-            into[record] = into[record] + rho if record in into else rho
-
-        for record, rho in records.items():
-            if operation.name == "barrier" or not holds(operation.condition, record):
-                add(record, rho)
-            elif operation.name == "measure":
-                (q,), (c,) = operation.qubits, operation.clbits
-                e = error(q)
-                for value in (0, 1):
-                    proj = projector(q, value)
-                    collapsed = proj @ rho @ proj
-                    for reading, weight in ((value, 1 - e), (1 - value, e)):
-                        if weight:
-                            bits = record | (1 << c) if reading else record & ~(1 << c)
-                            add(bits, weight * collapsed)
-            elif operation.name == "reset":
-                (q,) = operation.qubits
-                flip = on_register(PAULI_X, _positions(n, (q,)), n)
-                p0, p1_ = projector(q, 0), projector(q, 1)
-                # measure, then X when the (possibly misread) outcome is 1.
-                e = error(q)
-                right = p0 @ rho @ p0 + flip @ p1_ @ rho @ p1_ @ flip
-                add(record, (1 - e) * right + e * flip @ right @ flip)
-            elif len(operation.qubits) >= 3 and noisy:
-                for name, pos, values in expand_standard(operation.name, operation.params):
-                    qubits = tuple(operation.qubits[i] for i in pos)
-                    rho = noisy_gate(rho, CX if name == "CX" else spec_u(*values), qubits)
-                add(record, rho)
-            elif noisy:
-                add(
-                    record,
-                    noisy_gate(rho, gate(operation.name, operation.params), operation.qubits),
-                )
-            else:
-                u = gate(operation.name, operation.params)
-                add(record, kraus(rho, [u], operation.qubits))
-        records = updated
-    return records
+    return evolve(circ, records, step)
 
 
 def distribution(circ: Circuit, records: dict[int, np.ndarray]) -> dict[str, float]:

@@ -7,7 +7,12 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from tests.conftest import SHARED
-from tests.unit.test_circuit_fuzz import best_of_3, load_bytes_safely, parse_only_safely
+from tests.unit.test_circuit_fuzz import (
+    load_bytes_safely,
+    mutated,
+    parse_only_safely,
+    superlinear,
+)
 
 SETTINGS = settings(max_examples=150, deadline=None, suppress_health_check=list(HealthCheck))
 H3 = 'OPENQASM 3.0;\ninclude "stdgates.inc";\n'
@@ -50,16 +55,7 @@ def test_token_soup(tokens: list[str]) -> None:
 def test_mutated_examples(index: int, edits: list[tuple[str, float, bytes]]) -> None:
     if not CORPUS_BYTES:
         return
-    data = bytearray(CORPUS_BYTES[index])
-    for kind, where, chunk in edits:
-        at = int(where * len(data))
-        if kind == "insert":
-            data[at:at] = chunk
-        elif kind == "delete":
-            del data[at : at + len(chunk)]
-        else:
-            data[at : at + len(chunk)] = chunk
-    load_bytes_safely(bytes(data))
+    load_bytes_safely(mutated(CORPUS_BYTES[index], edits))
 
 
 def test_the_examples_are_there_for_the_fuzzer() -> None:
@@ -90,14 +86,5 @@ SHAPES = {
 
 def test_parse_time_is_linear() -> None:
     # As for 2.0: 10x the input may take at most 30x the time (quadratic shows as ~100x).
-    slow = {}
-    for name, make in SHAPES.items():
-        ratios = []
-        for _ in range(3):
-            small, large = best_of_3(make, 1_000), best_of_3(make, 10_000)
-            ratios.append(large / max(small, 1e-4))
-            if ratios[-1] < 30:
-                break
-        else:
-            slow[name] = ratios
+    slow = superlinear(SHAPES)
     assert not slow, f"superlinear parse time: {slow}"

@@ -5,6 +5,7 @@ distributions. No tests here."""
 from __future__ import annotations
 
 from collections.abc import Callable, Iterable, Mapping
+from functools import partial
 
 import numpy as np
 from scipy.linalg import expm
@@ -99,6 +100,58 @@ def on_register(matrix: np.ndarray, positions: tuple[int, ...], width: int) -> n
     return full
 
 
+def ground_records(n: int) -> dict[int, np.ndarray]:
+    """One classical record (all bits 0) holding ρ = |0…0⟩⟨0…0| on ``n`` qubits."""
+    rho0 = np.zeros((1 << n, 1 << n), dtype=complex)
+    rho0[0, 0] = 1
+    return {0: rho0}
+
+
+def projector(qubit: int, value: int, dim: int) -> np.ndarray:
+    """The projector onto bit ``qubit`` of the basis index being ``value``."""
+    return np.diag([1.0 if ((i >> qubit) & 1) == value else 0.0 for i in range(dim)])
+
+
+def add_density(into: dict[int, np.ndarray], record: int, rho: np.ndarray) -> None:
+    """Add ρ to what classical record ``record`` holds (unnormalised mixtures add)."""
+    into[record] = into[record] + rho if record in into else rho
+
+
+def passes_by(operation: Operation, record: int) -> bool:
+    """A barrier, or an operation whose condition the classical record does not meet,
+    leaves that record's ρ as it is."""
+    if operation.name == "barrier":
+        return True
+    cond = operation.condition
+    if cond is None:
+        return False
+    return sum(((record >> c) & 1) << i for i, c in enumerate(cond.clbits)) != cond.value
+
+
+#: Adds ρ to a classical record's share (see :func:`evolve`).
+Add = Callable[[int, np.ndarray], None]
+
+
+def evolve(
+    circ: Circuit,
+    records: dict[int, np.ndarray],
+    step: Callable[[Operation, int, np.ndarray, Add], None],
+) -> dict[int, np.ndarray]:
+    """ρ per classical record after each operation of ``circ`` in turn:
+    ``step(operation, record, rho, add)`` adds what one operation makes of one record's ρ
+    (barriers and unmet conditions pass it by)."""
+    for operation in circ.operations:
+        updated: dict[int, np.ndarray] = {}
+        add = partial(add_density, updated)
+        for record, rho in records.items():
+            if passes_by(operation, record):
+                add(record, rho)
+            else:
+                step(operation, record, rho, add)
+        records = updated
+    return records
+
+
 def density_reference(
     circ: Circuit, gate: Callable[[str, tuple[float, ...]], np.ndarray]
 ) -> dict[str, float]:
@@ -108,50 +161,29 @@ def density_reference(
     listed qubit most significant)."""
     n = circ.num_qubits
     dim = 1 << n
-    rho0 = np.zeros((dim, dim), dtype=complex)
-    rho0[0, 0] = 1
-    records: dict[int, np.ndarray] = {0: rho0}
+    records = ground_records(n)
 
     def positions(qubits: tuple[int, ...]) -> tuple[int, ...]:
         return tuple(n - 1 - q for q in qubits)
 
-    def projector(qubit: int, value: int) -> np.ndarray:
-        return np.diag([1.0 if ((i >> qubit) & 1) == value else 0.0 for i in range(dim)])
-
-    def holds(cond: Condition | None, record: int) -> bool:
-        if cond is None:
-            return True
-        return sum(((record >> c) & 1) << i for i, c in enumerate(cond.clbits)) == cond.value
-
-    for operation in circ.operations:
-        updated: dict[int, np.ndarray] = {}
-
-        def add(record: int, rho: np.ndarray, into: dict[int, np.ndarray] = updated) -> None:
-            into[record] = into[record] + rho if record in into else rho
-
-        for record, rho in records.items():
-            if operation.name == "barrier" or not holds(operation.condition, record):
-                add(record, rho)
-            elif operation.name == "measure":
-                (q,), (c,) = operation.qubits, operation.clbits
-                for value in (0, 1):
-                    p = projector(q, value)
-                    bit_set = record | (1 << c) if value else record & ~(1 << c)
-                    add(bit_set, p @ rho @ p)
-            elif operation.name == "reset":
-                (q,) = operation.qubits
-                flip = on_register(PAULI_X, positions((q,)), n)
-                p0, p1 = projector(q, 0), projector(q, 1)
-                add(record, p0 @ rho @ p0 + flip @ p1 @ rho @ p1 @ flip)
-            else:
-                u = on_register(
-                    gate(operation.name, operation.params), positions(operation.qubits), n
-                )
-                add(record, u @ rho @ u.conj().T)
-        records = updated
+    def step(operation: Operation, record: int, rho: np.ndarray, add: Add) -> None:
+        if operation.name == "measure":
+            (q,), (c,) = operation.qubits, operation.clbits
+            for value in (0, 1):
+                p = projector(q, value, dim)
+                bit_set = record | (1 << c) if value else record & ~(1 << c)
+                add(bit_set, p @ rho @ p)
+        elif operation.name == "reset":
+            (q,) = operation.qubits
+            flip = on_register(PAULI_X, positions((q,)), n)
+            p0, p1 = projector(q, 0, dim), projector(q, 1, dim)
+            add(record, p0 @ rho @ p0 + flip @ p1 @ rho @ p1 @ flip)
+        else:
+            u = on_register(gate(operation.name, operation.params), positions(operation.qubits), n)
+            add(record, u @ rho @ u.conj().T)
 
     out: dict[str, float] = {}
-    for record, rho in records.items():
+    for record, rho in evolve(circ, records, step).items():
         prob = float(np.real(np.trace(rho)))
         if prob > 1e-15:
             key = " ".join(

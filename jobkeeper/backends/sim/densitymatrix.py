@@ -45,12 +45,10 @@ import numpy as np
 import numpy.typing as npt
 from pydantic import Field, StrictInt
 
-from jobkeeper.backend import Pricing
 from jobkeeper.backends.sim import density_state as dm
 from jobkeeper.backends.sim import kernels
 from jobkeeper.backends.sim.base import (
     BRANCH_FLOOR,
-    Simulator,
     holds,
 )
 from jobkeeper.backends.sim.density_program import (
@@ -64,11 +62,10 @@ from jobkeeper.backends.sim.noise import (
     log10_success_probability,
     noise_model_from_calibration,
 )
-from jobkeeper.backends.sim.noisy_options import NoisyOptions, parse_noisy
+from jobkeeper.backends.sim.noisy_options import NoisyOptions, NoisySimulator
 from jobkeeper.backends.sim.program import Measure, Reset
 from jobkeeper.backends.sim.sampling import Floats
 from jobkeeper.circuit.ir import Circuit
-from jobkeeper.exceptions import ConfigError
 
 __all__ = ["DensityMatrixBackend", "NoiseModel", "from_config", "noise_model_from_calibration"]
 
@@ -83,13 +80,7 @@ class DensityMatrixOptions(NoisyOptions):
     fusion_width: StrictInt = Field(default=DEFAULT_MAX_WIDTH, ge=2, le=8)
 
 
-def _parse(
-    name: str, config: Mapping[str, Any]
-) -> tuple[DensityMatrixOptions, NoiseModel, dict[str, Any] | None]:
-    return parse_noisy(DensityMatrixOptions, f"densitymatrix backend {name!r}", config)
-
-
-class DensityMatrixBackend(Simulator[DensityProgram]):
+class DensityMatrixBackend(NoisySimulator[DensityProgram]):
     """Exact noisy simulation of OpenQASM 2.0 circuits on this machine (picklable).
 
     Build it from configuration with :func:`from_config`, or directly from a
@@ -114,25 +105,7 @@ class DensityMatrixBackend(Simulator[DensityProgram]):
         *,
         noise: NoiseModel | None = None,
     ):
-        if noise is not None:
-            if config is not None:
-                raise ConfigError("give either a configuration or a noise model, not both")
-            config = {"adapter": "densitymatrix", **noise.to_json()}
-        config = dict(config or {"adapter": "densitymatrix"})
-        table, model, provenance = _parse(name, config)
-        self._set_limits(name, config, table)
-        self.noise = model
-        #: where the noise came from (a calibration snapshot), or None.
-        self.provenance = provenance
-        if model.num_qubits is not None:
-            self.max_qubits = min(self.max_qubits, model.num_qubits)
-        self.pricing = Pricing(**table.pricing.model_dump()) if table.pricing else None
-
-    def calibration(self) -> dict[str, Any]:
-        out = self.noise.to_json()
-        if self.provenance is not None:
-            out["derived_from"] = self.provenance
-        return out
+        self._configure(DensityMatrixOptions, name, config, noise)
 
     def qubits_that_fit(self, limit: int) -> int:
         return max(0, ((limit // BYTES_PER_ENTRY).bit_length() - 1) // 2)

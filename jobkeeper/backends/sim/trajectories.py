@@ -41,16 +41,15 @@ from typing import Any
 import numpy as np
 from pydantic import Field, StrictInt
 
-from jobkeeper.backend import Pricing, Result, Task
+from jobkeeper.backend import Result, Task
 from jobkeeper.backends.sim.base import (
-    Simulator,
     estimated_seconds,
 )
 from jobkeeper.backends.sim.noise import (
     NoiseModel,
     log10_success_probability,
 )
-from jobkeeper.backends.sim.noisy_options import NoisyOptions, parse_noisy
+from jobkeeper.backends.sim.noisy_options import NoisyOptions, NoisySimulator
 from jobkeeper.backends.sim.sampling import TABLE_FROM, BitFormatter
 from jobkeeper.backends.sim.trajectory_program import (
     DEFAULT_MAX_WIDTH,
@@ -60,7 +59,7 @@ from jobkeeper.backends.sim.trajectory_program import (
 from jobkeeper.backends.sim.trajectory_run import Runner, Trajectory
 from jobkeeper.circuit.ir import NON_GATE_OPERATIONS, Circuit
 from jobkeeper.counts import CountTable
-from jobkeeper.exceptions import ConfigError, PermanentBackendError
+from jobkeeper.exceptions import PermanentBackendError
 
 __all__ = ["TrajectoryBackend", "from_config", "share_shots"]
 
@@ -80,12 +79,6 @@ class TrajectoryOptions(NoisyOptions):
     trajectories: StrictInt | None = Field(default=None, ge=1)
 
 
-def _parse(
-    name: str, config: Mapping[str, Any]
-) -> tuple[TrajectoryOptions, NoiseModel, dict[str, Any] | None]:
-    return parse_noisy(TrajectoryOptions, f"trajectories backend {name!r}", config)
-
-
 def share_shots(shots: int, cap: int | None) -> list[int]:
     """Shots per trajectory: one each up to ``cap`` (default 1,000) trajectories, else
     ``cap`` trajectories sharing the shots as evenly as possible (the first ones take
@@ -97,7 +90,7 @@ def share_shots(shots: int, cap: int | None) -> list[int]:
     return [base + 1] * extra + [base] * (count - extra)
 
 
-class TrajectoryBackend(Simulator[TrajectoryProgram]):
+class TrajectoryBackend(NoisySimulator[TrajectoryProgram]):
     """Noisy simulation of OpenQASM 2.0 circuits by sampled trajectories (picklable).
 
     Build it from configuration with :func:`from_config`, or directly from a
@@ -117,26 +110,7 @@ class TrajectoryBackend(Simulator[TrajectoryProgram]):
         *,
         noise: NoiseModel | None = None,
     ):
-        if noise is not None:
-            if config is not None:
-                raise ConfigError("give either a configuration or a noise model, not both")
-            config = {"adapter": METHOD, **noise.to_json()}
-        config = dict(config or {"adapter": METHOD})
-        table, model, provenance = _parse(name, config)
-        self._set_limits(name, config, table)
-        self.noise = model
-        #: where the noise came from (a calibration snapshot), or None.
-        self.provenance = provenance
-        if model.num_qubits is not None:
-            self.max_qubits = min(self.max_qubits, model.num_qubits)
-        self.trajectories = table.trajectories
-        self.pricing = Pricing(**table.pricing.model_dump()) if table.pricing else None
-
-    def calibration(self) -> dict[str, Any]:
-        out = self.noise.to_json()
-        if self.provenance is not None:
-            out["derived_from"] = self.provenance
-        return out
+        self.trajectories = self._configure(TrajectoryOptions, name, config, noise).trajectories
 
     def qubits_that_fit(self, limit: int) -> int:
         return max(0, (limit // BYTES_PER_AMPLITUDE).bit_length() - 1)

@@ -11,17 +11,27 @@ parser as a timing feature), ``imag`` (``1.5im``), ``hwq`` (``$0``).
 from __future__ import annotations
 
 import unicodedata
-from typing import NoReturn
 
-from jobkeeper.circuit.lexer import EOF, ID, INT, MAX_LITERAL_LENGTH, REAL, STRING, SYMBOL, Token
-from jobkeeper.exceptions import CircuitError
+from jobkeeper.circuit.lexer import (
+    EOF,
+    ID,
+    INT,
+    MAX_LITERAL_LENGTH,
+    REAL,
+    STRING,
+    SYMBOL,
+    Fail,
+    Token,
+    scan,
+    shown,
+    string_token,
+)
 
 DURATION = "duration"
 IMAG = "imag"
 HWQ = "hwq"
 
 _DIGITS = frozenset("0123456789")
-_SPACE = frozenset(" \t\r\n\f\v")
 _ASCII_ID = frozenset("abcdefghijklmnopqrstuvwxyzABCDEFGHIJKLMNOPQRSTUVWXYZ_")
 #: Unicode letter categories the grammar's ``FirstIdCharacter`` admits.
 _LETTER_CATEGORIES = frozenset({"Lu", "Ll", "Lt", "Lm", "Lo", "Nl"})
@@ -45,92 +55,46 @@ def _id_char(ch: str) -> bool:
     return ch in _ASCII_ID or ch in _DIGITS or _id_start(ch)
 
 
-def _shown(char: str) -> str:
-    return repr(char) if char.isprintable() else f"U+{ord(char):04X}"
-
-
 def tokenize3(text: str, file: str | None) -> list[Token]:
     """All tokens of ``text`` and one EOF token; CircuitError on text that is no token."""
-    if "\r" in text:
-        text = text.replace("\r\n", "\n").replace("\r", "\n")
-    tokens: list[Token] = []
-    append = tokens.append
-    new = tuple.__new__
+    return scan(text, file, _read)
+
+
+_new = tuple.__new__  # see circuit/lexer.py: the named tuple's constructor is slow
+
+
+def _read(text: str, i: int, line: int, col: int, fail: Fail) -> tuple[Token | None, int]:
     n = len(text)
-    i = 0
-    line = 1
-    line_start = 0
-
-    def fail(message: str, at: int) -> NoReturn:
-        raise CircuitError(message, file=file, line=line, column=at - line_start + 1)
-
-    while i < n:
-        ch = text[i]
-        if ch in _SPACE:
-            if ch == "\n":
-                line += 1
-                line_start = i + 1
-            i += 1
-            continue
-        col = i - line_start + 1
-        if ch == "/" and i + 1 < n and text[i + 1] == "/":
-            end = text.find("\n", i)
-            i = n if end < 0 else end
-            continue
-        if ch == "/" and i + 1 < n and text[i + 1] == "*":
-            end = text.find("*/", i + 2)
-            if end < 0:
-                fail("unterminated comment: '/*' without '*/'", i)
-            # Lines inside the comment still count.
-            k = text.find("\n", i, end)
-            while k >= 0:
-                line += 1
-                line_start = k + 1
-                k = text.find("\n", k + 1, end)
-            i = end + 2
-            continue
-        if _id_start(ch):
-            j = i + 1
-            while j < n and _id_char(text[j]):
-                j += 1
-            append(new(Token, (ID, text[i:j], line, col)))
-            i = j
-            continue
-        if ch in _DIGITS or (ch == "." and i + 1 < n and text[i + 1] in _DIGITS):
-            kind, j, problem = _number(text, i, n)
-            if problem:
-                fail(problem, j)
-            append(new(Token, (kind, text[i:j], line, col)))
-            i = j
-            continue
-        if ch == '"' or ch == "'":
-            j = i + 1
-            while j < n and text[j] != ch and text[j] != "\n":
-                j += 1
-            if j >= n or text[j] != ch:
-                fail(f"unterminated string: expected {ch!r} before the end of the line", i)
-            append(new(Token, (STRING, text[i + 1 : j], line, col)))
-            i = j + 1
-            continue
-        if ch == "$":
-            j = i + 1
-            while j < n and text[j] in _DIGITS:
-                j += 1
-            if j == i + 1:
-                fail("expected digits after '$'", i)
-            append(new(Token, (HWQ, text[i:j], line, col)))
-            i = j
-            continue
-        if ch in _OP_START:
-            for op in _OPERATORS:
-                if text.startswith(op, i):
-                    append(new(Token, (SYMBOL, op, line, col)))
-                    i += len(op)
-                    break
-            continue
-        fail(f"unexpected character {_shown(ch)}", i)
-    append(Token(EOF, "", line, n - line_start + 1))
-    return tokens
+    ch = text[i]
+    if ch == "/" and i + 1 < n and text[i + 1] == "*":
+        end = text.find("*/", i + 2)
+        if end < 0:
+            fail("unterminated comment: '/*' without '*/'", i)
+        return None, end + 2
+    if _id_start(ch):
+        j = i + 1
+        while j < n and _id_char(text[j]):
+            j += 1
+        return _new(Token, (ID, text[i:j], line, col)), j
+    if ch in _DIGITS or (ch == "." and i + 1 < n and text[i + 1] in _DIGITS):
+        kind, j, problem = _number(text, i, n)
+        if problem:
+            fail(problem, j)
+        return _new(Token, (kind, text[i:j], line, col)), j
+    if ch == '"' or ch == "'":
+        return string_token(text, i, line, col, fail)
+    if ch == "$":
+        j = i + 1
+        while j < n and text[j] in _DIGITS:
+            j += 1
+        if j == i + 1:
+            fail("expected digits after '$'", i)
+        return _new(Token, (HWQ, text[i:j], line, col)), j
+    if ch in _OP_START:
+        for op in _OPERATORS:
+            if text.startswith(op, i):
+                return _new(Token, (SYMBOL, op, line, col)), i + len(op)
+    fail(f"unexpected character {shown(ch)}", i)
 
 
 def _digits(text: str, i: int, n: int, allowed: frozenset[str]) -> int:

@@ -25,7 +25,7 @@ from jobkeeper.store import (
 from jobkeeper.store.postgres.database import Conn, Database, redact
 from jobkeeper.store.postgres.dialect import dialect, each_row, translate
 from jobkeeper.store.postgres.migrations import migrate
-from jobkeeper.store.reads import StoreReads
+from jobkeeper.store.reads import StoreReads, claim_filter, claims_of
 from jobkeeper.store.reads import record_of as _record
 
 WAKE_CHANNEL = sql.PG_WAKE_CHANNEL
@@ -136,18 +136,15 @@ class PostgresStore(StoreReads):
     ) -> list[Claim]:
         if limit <= 0:
             return []
-        params: list[Any] = [owner, float(lease_seconds)]
-        backend_filter = ""
-        for column, values in (("backend", backends), ("id", ids)):
-            if values is None:
-                continue
-            if not values:
-                return []
-            backend_filter += f" AND {column} = ANY(?)"
-            params.append(list(values))
-        params.append(int(limit))
+        limited = claim_filter(
+            backends, ids, lambda column, values: (f"{column} = ANY(?)", [list(values)])
+        )
+        if limited is None:
+            return []
+        condition, filter_params = limited
+        params = [owner, float(lease_seconds), *filter_params, int(limit)]
         statement = translate(
-            sql.CLAIM, backend_filter=backend_filter, lock="FOR UPDATE SKIP LOCKED"
+            sql.CLAIM, backend_filter=condition, lock="FOR UPDATE SKIP LOCKED"
         ).encode()
 
         def work(conn: Conn) -> list[Any]:
@@ -161,16 +158,7 @@ class PostgresStore(StoreReads):
                 cur = conn.execute(statement, params)
             return cur.fetchall()
 
-        claimed = [_record(row) for row in self._db.run(work, write=True)]
-        claimed.sort(key=lambda job: job.not_before)
-        return [
-            Claim(
-                job=job,
-                token=job.lease_token,
-                was=JobState.WAITING if job.handle else JobState.QUEUED,
-            )
-            for job in claimed
-        ]
+        return claims_of([_record(row) for row in self._db.run(work, write=True)])
 
     def renew(
         self, owner: str, leases: Sequence[tuple[str, int]], lease_seconds: float
