@@ -77,7 +77,7 @@ class Outcomes:
         if width > 52:
             raise StatsInputError(f"outcomes of {width} bits have no integer codes here")
         # Sums of distinct powers of two below 2^53: exact as doubles in any order.
-        powers = np.exp2(np.arange(width - 1, -1, -1, dtype=np.float64))
+        powers = np.ldexp(1.0, np.arange(width - 1, -1, -1))  # exact powers of two
         codes: npt.NDArray[np.int64] = ((self.rows == ord("1")) @ powers).astype(np.int64)
         return codes
 
