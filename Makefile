@@ -4,7 +4,7 @@ VENV := .venv
 BIN := $(VENV)/bin
 STAMP := $(VENV)/.installed
 
-.PHONY: demo test bench lint clean
+.PHONY: demo test bench lint clean screenshots
 
 $(BIN)/python:
 	$(PYTHON) -m venv $(VENV)
@@ -24,6 +24,10 @@ test: $(STAMP)
 
 bench: $(STAMP)
 	$(BIN)/python benchmarks/run_all.py
+
+# The README's pictures of the web view (docs/*.png), from an invented keep; needs chromium.
+screenshots: $(STAMP)
+	$(BIN)/python examples/screenshots.py
 
 lint: $(STAMP)
 	$(BIN)/ruff check jobkeeper tests benchmarks examples conftest.py

@@ -2,53 +2,14 @@
 
 from __future__ import annotations
 
-import datetime as dt
 from collections.abc import Mapping
-from typing import TYPE_CHECKING, Any
 
-if TYPE_CHECKING:
-    from jobkeeper.store import JobRecord
+from jobkeeper.shapes import job_json, when, when_iso
+
+__all__ = ["bar_chart", "job_json", "shots_warning", "table", "when", "when_iso"]
 
 BAR_WIDTH = 40
 SMALL_SHOTS = 100
-
-
-def when(seconds: float | None) -> str:
-    if seconds is None:
-        return "-"
-    return dt.datetime.fromtimestamp(seconds, tz=dt.UTC).strftime("%Y-%m-%d %H:%M:%S UTC")
-
-
-def when_iso(seconds: float | None) -> str | None:
-    if seconds is None:
-        return None
-    return dt.datetime.fromtimestamp(seconds, tz=dt.UTC).isoformat().replace("+00:00", "Z")
-
-
-def job_json(job: JobRecord) -> dict[str, Any]:
-    spec = job.spec
-    return {
-        "id": job.id,
-        "job_key": job.job_key,
-        "state": job.state,
-        "backend": spec.backend,
-        "shots": spec.shots,
-        # The seed the job runs with (resolved at submission, the one its manifest signs),
-        # and the one asked for (None: chosen by jobkeeper).
-        "seed": spec.seed,
-        "requested_seed": spec.requested_seed,
-        "repeat": spec.repeat,
-        "labels": list(job.labels),
-        "circuit_hash": spec.circuit_hash,
-        "source": spec.source_name,
-        "created_at": when_iso(job.created_at),
-        "started_at": when_iso(job.started_at),
-        "finished_at": when_iso(job.finished_at),
-        "attempts": job.attempts,
-        "error": job.error,
-        "cost": job.cost,
-        "remote_handle": job.handle,
-    }
 
 
 def bar_chart(values: Mapping[str, float], *, total: float | None = None, limit: int = 32) -> str:

@@ -3,11 +3,11 @@ its attempts, its result and whether its provenance verifies."""
 
 from __future__ import annotations
 
-import json
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
-from jobkeeper.cli._render import bar_chart, job_json, shots_warning, when
+from jobkeeper.cli._render import bar_chart, shots_warning
+from jobkeeper.shapes import job_details
 
 if TYPE_CHECKING:
     from jobkeeper.job import Job
@@ -21,41 +21,7 @@ class JobDetails:
 
 
 def describe_job(keeper: Keeper, job: Job) -> JobDetails:
-    record = job.record
-    spec = job.spec
-    data = job_json(record)
-    data["circuit"] = spec.circuit_text
-    data["source_hash"] = spec.source_hash
-    data["code_version"] = None if spec.code_version is None else dict(spec.code_version)
-    data["options"] = dict(spec.options)
-    data["attempt_history"] = [
-        {
-            "number": a.number,
-            "at": when(a.at),
-            "error_class": a.error_class,
-            "message": a.message,
-            "in_call": a.in_call,
-        }
-        for a in job.attempts
-    ]
-    result = job.result
-    if result is not None:
-        data["counts"] = None if result.counts is None else dict(result.counts)
-        data["probabilities"] = None if result.probabilities is None else dict(result.probabilities)
-        data["result_metadata"] = dict(result.metadata)
-    data["rerun_of"] = spec.rerun_of
-    data["comparisons"] = [
-        {"id": c.id, "kind": c.kind, "job_a": c.job_a, "job_b": c.job_b, "verdict": c.verdict,
-         "result": json.loads(c.report).get("result", {})}
-        for c in job.comparisons
-    ]  # fmt: skip
-    entry = job.log_entry
-    if entry is not None:
-        data["envelope"] = json.loads(entry.envelope)
-        data["log_index"] = entry.index
-        data["signer"] = entry.signer
-        report = keeper.verify([record.id])
-        data["verification"] = {"ok": report.ok, "problems": list(report.problems)}
+    data = job_details(keeper, job)
     return JobDetails(data=data, text=_text(data))
 
 

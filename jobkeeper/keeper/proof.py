@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import os
 from collections.abc import Iterable, Sequence
+from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
@@ -18,7 +19,20 @@ if TYPE_CHECKING:
     from jobkeeper.audit.judging import Judgement
     from jobkeeper.audit.trust import KeepTrust
     from jobkeeper.provenance import VerifyReport
+    from jobkeeper.store import ComparisonRecord
     from jobkeeper.store.export import ExportSummary
+
+
+@dataclass(frozen=True)
+class LogStatus:
+    """The log at its latest signed checkpoint: ``size`` entries, ``note`` the signed
+    checkpoint itself (a C2SP signed note), ``checkpoint_at`` when it was signed."""
+
+    size: int
+    checkpoints: int
+    checkpoint_at: float | None
+    note: str | None
+    origin: str | None
 
 
 class KeepProof(KeepRuns):
@@ -131,6 +145,20 @@ class KeepProof(KeepRuns):
             keys = self.trust.load().keys
             return compare_ideal(self.store, self.sealer(), first, keys, alpha=alpha)
         return compare_jobs(self.store, self.sealer(), first, self._job(b).record, alpha=alpha)
+
+    def comparisons(self, job: Job | str | None = None) -> list[ComparisonRecord]:
+        """Archived reruns and comparisons, oldest first (those of one job, or all)."""
+        return self.store.comparisons(None if job is None else self._job(job).id)
+
+    def log_status(self) -> LogStatus:
+        """The signed log's size and its latest checkpoint (nothing is verified here)."""
+        checkpoints = self.store.checkpoints()
+        latest = checkpoints[-1] if checkpoints else None
+        return LogStatus(
+            size=0 if latest is None else latest.size, checkpoints=len(checkpoints),
+            checkpoint_at=None if latest is None else latest.created_at,
+            note=None if latest is None else latest.note, origin=self.store.get_meta("origin"),
+        )  # fmt: skip
 
     def _job(self, job: Job | str) -> Job:
         return job if isinstance(job, Job) else self.job(job)

@@ -17,7 +17,7 @@ from jobkeeper.exceptions import ConfigError, JobkeeperError
 from jobkeeper.job import Job, Submitted, wait_for
 from jobkeeper.keeper.core import KeepCore
 from jobkeeper.queue import TERMINAL_STATES
-from jobkeeper.store import NewJob
+from jobkeeper.store import JobFilter, NewJob, PageCursor
 
 # Signing, simulating and parsing load numpy, cryptography and the backends: imported
 # where they are used, so that opening a keep to read it (`jobkeeper jobs`) stays quick.
@@ -237,6 +237,26 @@ class KeepRuns(KeepCore):
         return [
             Job(self.store, r) for r in self.store.list_jobs(label=label, state=state, limit=limit)
         ]
+
+    def job_page(
+        self, where: JobFilter | None = None, *, after: PageCursor | None = None,
+        limit: int = 50,
+    ) -> list[Job]:  # fmt: skip
+        """A page of jobs matching ``where``, newest first; pass the last job's
+        ``(created_at, id)`` as ``after`` for the next page (an indexed keyset query)."""
+        return [Job(self.store, r) for r in self.store.page_jobs(where or JobFilter(),
+                                                                 after=after, limit=limit)]  # fmt: skip
+
+    def count_jobs(self, where: JobFilter | None = None) -> int:
+        return self.store.count_jobs(where or JobFilter())
+
+    def counts_by_state(self) -> dict[str, int]:
+        """How many jobs are in each state (states with none are left out)."""
+        return self.store.counts_by_state()
+
+    def spent(self, label: str | None = None) -> float:
+        """The estimated cost of live and done jobs (of one label, or all), what budgets cap."""
+        return self.store.spent(label)
 
     def cancel(self, id_or_prefix: str) -> Job:
         record = self.store.get(id_or_prefix)

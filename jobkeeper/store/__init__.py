@@ -75,6 +75,23 @@ class JobRecord:
 
 
 @dataclass(frozen=True)
+class JobFilter:
+    """Which jobs a listing shows: each field given narrows it (all of them at once).
+    ``since`` and ``until`` bound the creation time (seconds since the epoch, ``until``
+    excluded)."""
+
+    label: str | None = None
+    state: str | None = None
+    backend: str | None = None
+    since: float | None = None
+    until: float | None = None
+
+
+#: Where a page of jobs (newest first) goes on from: the last row's (created_at, id).
+PageCursor = tuple[float, str]
+
+
+@dataclass(frozen=True)
 class Claim:
     """A job a worker now holds: ``token`` fences every later write. ``was`` is the state
     the job was claimed from (``queued`` to start it, ``waiting`` to poll it)."""
@@ -279,6 +296,17 @@ class Store(Protocol):
         self, *, label: str | None = None, state: str | None = None, limit: int | None = None
     ) -> list[JobRecord]: ...
 
+    def page_jobs(
+        self, where: JobFilter, *, after: PageCursor | None = None, limit: int = 50
+    ) -> list[JobRecord]:
+        """Up to ``limit`` jobs matching ``where``, newest first, after the cursor
+        (keyset pagination: indexed, whatever the depth)."""
+        ...
+
+    def count_jobs(self, where: JobFilter) -> int:
+        """How many jobs match ``where``."""
+        ...
+
     def counts_by_state(self) -> dict[str, int]: ...
 
     def attempts(self, job_id: str) -> list[Attempt]: ...
@@ -380,10 +408,12 @@ __all__ = [
     "Claim",
     "ComparisonRecord",
     "Completion",
+    "JobFilter",
     "JobRecord",
     "LogAppender",
     "LogEntry",
     "NewJob",
+    "PageCursor",
     "Store",
     "StoredCheckpoint",
     "StoredResult",

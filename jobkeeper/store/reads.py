@@ -16,8 +16,10 @@ from jobkeeper.store import (
     Attempt,
     Claim,
     ComparisonRecord,
+    JobFilter,
     JobRecord,
     LogEntry,
+    PageCursor,
     StoredCheckpoint,
     StoredResult,
     sql,
@@ -97,8 +99,25 @@ def entry_of(row: Sequence[Any]) -> LogEntry:
     return LogEntry(int(idx), job_id, bytes(envelope), bytes(leaf), signer, created)
 
 
+def _conditions(where: JobFilter) -> tuple[list[str], list[Any]]:
+    conditions: list[str] = []
+    params: list[Any] = []
+    for value, condition in (
+        (where.label, sql.JOBS_WITH_LABEL), (where.state, sql.JOBS_IN_STATE),
+        (where.backend, sql.JOBS_ON_BACKEND), (where.since, sql.JOBS_CREATED_FROM),
+        (where.until, sql.JOBS_CREATED_BEFORE),
+    ):  # fmt: skip
+        if value is not None:
+            conditions.append(condition)
+            params.append(value)
+    return conditions, params
+
+
 class StoreReads:
     """Reading methods of a store; the store provides ``_read``."""
+
+    #: What the job list's query of a label's jobs names as its index (SQLite only).
+    _listing_hint = ""
 
     def _read(self, statement: str, params: Sequence[Any] = (), **extra: str) -> list[Any]:
         """Run one statement of :mod:`jobkeeper.store.sql` (its slots filled from
@@ -143,6 +162,24 @@ class StoreReads:
         tail = f"LIMIT {int(limit)}" if limit else ""
         rows = self._read(sql.LIST_JOBS, params, where=clause, limit=tail)
         return [record_of(row) for row in rows]
+
+    def page_jobs(
+        self, where: JobFilter, *, after: PageCursor | None = None, limit: int = 50
+    ) -> list[JobRecord]:
+        conditions, params = _conditions(where)
+        if after is not None:
+            conditions.append(sql.JOBS_BEFORE_CURSOR)
+            params += [float(after[0]), float(after[0]), str(after[1])]
+        clause = f"WHERE {' AND '.join(conditions)}" if conditions else ""
+        hint = self._listing_hint if where.label is not None else ""
+        rows = self._read(sql.PAGE_JOB_IDS, [*params, int(limit)], where=clause, hint=hint)
+        ids = [row[0] for row in rows]
+        return self.get_many(ids) if ids else []
+
+    def count_jobs(self, where: JobFilter) -> int:
+        conditions, params = _conditions(where)
+        clause = f"WHERE {' AND '.join(conditions)}" if conditions else ""
+        return int(self._read(sql.COUNT_JOBS, params, where=clause)[0][0])
 
     def counts_by_state(self) -> dict[str, int]:
         return {row[0]: int(row[1]) for row in self._read(sql.COUNT_BY_STATE)}

@@ -18,7 +18,7 @@ def _states(states: frozenset[JobState]) -> str:
     return "(" + ", ".join(f"'{state}'" for state in JobState if state in states) + ")"
 
 
-SCHEMA_VERSION = 3
+SCHEMA_VERSION = 4
 
 LIVE = _states(LIVE_STATES)
 KEYED = _states(KEYED_STATES)
@@ -156,6 +156,13 @@ MIGRATIONS: list[list[str]] = [
         "DROP INDEX jobs_label",
         "ALTER TABLE jobs DROP COLUMN label",
         "ALTER TABLE attempts ADD COLUMN in_call INTEGER NOT NULL DEFAULT 0",
+    ],
+    # 4: the job list (the web view) at 100,000 jobs and more: pages of one state newest
+    # first, and an index holding everything a listing filters and sorts on, so that a
+    # label's jobs are sorted and filtered without reading a single row.
+    [
+        "CREATE INDEX jobs_state_created ON jobs (state, created_at)",
+        "CREATE INDEX jobs_listing ON jobs (id, created_at, state, backend)",
     ],
 ]
 
@@ -326,6 +333,15 @@ LIST_JOBS = f"SELECT {JOB_COLUMNS} FROM jobs {{where}} ORDER BY created_at, id {
 #: Conditions of a job listing, joined with AND (each takes one parameter).
 JOBS_WITH_LABEL = "id IN (SELECT job_id FROM job_labels WHERE label = ?)"
 JOBS_IN_STATE = "state = ?"
+JOBS_ON_BACKEND = "backend = ?"
+JOBS_CREATED_FROM = "created_at >= ?"
+JOBS_CREATED_BEFORE = "created_at < ?"
+#: A page of jobs, newest first, after a keyset cursor (the last row of the page before:
+#: its created_at twice, then its id), so that a deep page costs what the first one does.
+JOBS_BEFORE_CURSOR = "(created_at < ? OR (created_at = ? AND id < ?))"
+#: The ids of a page (read from indexes alone); the rows are then read by id.
+PAGE_JOB_IDS = "SELECT id FROM jobs {hint} {where} ORDER BY created_at DESC, id DESC LIMIT ?"
+COUNT_JOBS = "SELECT COUNT(*) FROM jobs {where}"
 COUNT_BY_STATE = "SELECT state, COUNT(*) FROM jobs GROUP BY state"
 ATTEMPTS_OF = """
 SELECT job_id, number, at, error_class, message, retry_at, in_call FROM attempts
@@ -352,6 +368,10 @@ SQLITE_LABELS = f"(SELECT json_group_array(label) {LABELS_OF_JOB})"
 SQLITE_OPEN = ("PRAGMA journal_mode=WAL", "PRAGMA synchronous=FULL", "PRAGMA foreign_keys=ON")
 SQLITE_SYNC_FULL = "PRAGMA synchronous=FULL"
 SQLITE_SYNC_NORMAL = "PRAGMA synchronous=NORMAL"
+#: Without statistics (no ANALYZE has run on a user's keep) SQLite looks a label's job ids
+#: up in the primary key's index and reads every row for its time; the listing index
+#: holds the time itself. PostgreSQL's planner needs no hint.
+SQLITE_LISTING_HINT = "INDEXED BY jobs_listing"
 SQLITE_BEGIN = "BEGIN IMMEDIATE"
 SQLITE_COMMIT = "COMMIT"
 SQLITE_ROLLBACK = "ROLLBACK"

@@ -111,6 +111,8 @@ class SqliteStore(StoreReads):
     """The archive in one SQLite file. Safe for several processes on one machine (not on a
     network file system); one connection per store object, used by one thread at a time."""
 
+    _listing_hint = sql.SQLITE_LISTING_HINT
+
     def __init__(self, path: Path, *, create: bool = True) -> None:
         self.path = Path(path)
         self.location = str(self.path)

@@ -19,6 +19,7 @@ neither needs a display nor switches the backend of a user's notebook.
 from __future__ import annotations
 
 import io
+import textwrap
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any, Literal
@@ -86,7 +87,6 @@ class FigureSource:
     bundle_digest: str  # "sha256:" + hex
     caption: bool = False
 
-    @property
     def lines(self) -> list[str]:
         return [f"{self.kind} {self.record_id}", f"bundle {self.bundle_digest}"]
 
@@ -140,11 +140,15 @@ def _panel(ax: Any, panel: Histogram, shown: Sequence[str], tag: str, colour: st
 def histogram_figure(panel: Histogram, source: FigureSource) -> Figure:
     """One job's counts (or exact probabilities) as bars, one per outcome."""
     shown, left_out = chosen_outcomes([panel.frequencies()])
+    peak = max((float(v) for v in panel.values.values()), default=1.0)
+    digits = len(f"{peak:.0f}") if panel.shots else 4
     with matplotlib.rc_context(STYLE):
-        fig = Figure(figsize=(COLUMN_WIDTH_IN, 2.6), layout="constrained")
+        fig = Figure()
+        lines = _lines(source, _notes([panel], shown, left_out), COLUMN_WIDTH_IN)
+        _layout(fig, COLUMN_WIDTH_IN, shown, lines, digits, panels=1)
         ax = fig.add_subplot()
         _panel(ax, panel, shown, "a", BAR_COLOURS[0], relative=False)
-        _finish(fig, source, _notes([panel], shown, left_out))
+        _note(fig, lines)
     return fig
 
 
@@ -154,24 +158,53 @@ def comparison_figure(
     """Two jobs' frequencies side by side on one y scale and one outcome order."""
     shown, left_out = chosen_outcomes([a.frequencies(), b.frequencies()])
     width = COLUMN_WIDTH_IN if len(shown) <= 8 else DOUBLE_WIDTH_IN
+    notes = _notes([a, b], shown, left_out)
+    if verdict:
+        notes.insert(0, verdict)
     with matplotlib.rc_context(STYLE):
-        fig = Figure(figsize=(width, 2.6), layout="constrained")
+        fig = Figure()
+        lines = _lines(source, notes, width)
+        _layout(fig, width, shown, lines, 4, panels=2)
         ax_a, ax_b = fig.subplots(1, 2, sharey=True)
         _panel(ax_a, a, shown, "a", BAR_COLOURS[0], relative=True)
         _panel(ax_b, b, shown, "b", BAR_COLOURS[1], relative=True)
         ax_b.set_ylabel("")
         ax_b.tick_params(labelleft=True)
-        notes = _notes([a, b], shown, left_out)
-        if verdict:
-            notes.insert(0, verdict)
-        _finish(fig, source, notes)
+        _note(fig, lines)
     return fig
 
 
-def _finish(fig: Figure, source: FigureSource, notes: list[str]) -> None:
-    lines = [*notes, *source.lines] if source.caption else notes
+# Sizes in inches for a fixed layout: drawing once (no layout engine's extra passes) keeps
+# a page's figure quick, and the axes keep their height whatever the notes under them.
+_AXES_HEIGHT = 1.75
+_TOP = 0.28
+_CHAR = 7 * 0.62 / 72  # width of a 7 pt character, roughly
+_LINE = 6.5 / 72  # one 5 pt note line
+
+
+def _lines(source: FigureSource, notes: list[str], width: float) -> list[str]:
+    """The note lines under the axes, wrapped to the figure's width (5 pt text)."""
+    per_line = int((width - 0.1) * 72 / (5 * 0.56))
+    wrapped = [part for note in notes for part in textwrap.wrap(note, per_line)]
+    return [*wrapped, *source.lines()] if source.caption else wrapped
+
+
+def _layout(fig: Figure, width: float, shown: list[str], lines: list[str], digits: int,
+            panels: int) -> None:  # fmt: skip
+    longest = max((len(k) for k in shown), default=1)
+    ticks = longest * _CHAR if len(shown) > 8 else 8 / 72
+    bottom = 0.1 + ticks + 0.28 + len(lines) * _LINE
+    left = 0.4 + digits * _CHAR
+    height = bottom + _AXES_HEIGHT + _TOP
+    fig.set_size_inches(width, height)
+    fig.subplots_adjust(left=left / width, right=1 - 0.08 / width, bottom=bottom / height,
+                        top=1 - _TOP / height, wspace=0.25 if panels > 1 else 0.2)  # fmt: skip
+
+
+def _note(fig: Figure, lines: list[str]) -> None:
     if lines:
-        text = fig.supxlabel("\n".join(lines), fontsize=5, ha="left", x=0.01, color="#333333")
+        text = fig.text(0.02 / fig.get_figwidth(), 0.04 / fig.get_figheight(), "\n".join(lines),
+                        fontsize=5, ha="left", va="bottom", color="#333333")  # fmt: skip
         text.set_gid("note")
 
 
