@@ -11,6 +11,7 @@ from pathlib import Path
 from typing import TYPE_CHECKING
 
 from jobkeeper.exceptions import AmbiguousJobId, ConfigError, JobNotFound
+from jobkeeper.outputs import check_output, write_output
 from jobkeeper.web.figures import (
     FORMATS,
     FigureSource,
@@ -133,26 +134,15 @@ def figure_format(path: Path) -> Format:
 def plot(
     keeper: Keeper, id_or_prefix: str, path: Path, *, caption: bool = False, force: bool = False
 ) -> FigureSource:
-    """Draw a record to ``path`` (format from its suffix); refuses to replace a file
-    without ``force``. Returns what the figure's metadata names."""
+    """Draw a record to ``path`` (format from its suffix), by the rules of
+    :mod:`jobkeeper.outputs`: never over a file without ``force``, never into the keep.
+    Returns what the figure's metadata names."""
     fmt = figure_format(path)
-    if path.exists() and not force:
-        raise ConfigError(f"{path} exists; use --force to replace it")
+    check_output(path, guarded=keeper.guarded_paths(), force=force)  # before any drawing
     found = find_record(keeper, id_or_prefix)
     fig, source = record_figure(keeper, found, caption=caption)
-    data = render(fig, fmt, source)
-    _write(path, data)
+    write_output(path, render(fig, fmt, source), guarded=keeper.guarded_paths(), force=force)
     return source
-
-
-def _write(path: Path, data: bytes) -> None:
-    tmp = path.with_name(f".{path.name}.tmp")
-    try:
-        tmp.write_bytes(data)
-        tmp.replace(path)
-    except OSError as exc:
-        tmp.unlink(missing_ok=True)
-        raise ConfigError(f"cannot write {path}: {exc}") from exc
 
 
 __all__ = [

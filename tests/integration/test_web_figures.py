@@ -140,6 +140,9 @@ def test_plot_refuses_what_it_cannot_do(
     assert "--force" in capsys.readouterr().err
     assert main(["plot", job_id, "-o", str(out), "--caption", "--force", "--keep", str(keep)]) == 0
     assert out.read_bytes() != before
+    inside = keep / "figure.svg"
+    assert main(["plot", job_id, "-o", str(inside), "--force", "--keep", str(keep)]) == 2
+    assert not inside.exists()
 
 
 def test_many_outcomes_show_the_most_frequent_and_say_so() -> None:
