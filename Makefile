@@ -27,11 +27,11 @@ bench: $(STAMP)
 
 # The README's pictures of the web view (docs/*.png), from an invented keep; needs chromium.
 screenshots: $(STAMP)
-	$(BIN)/python examples/screenshots.py
+	$(BIN)/python docs/screenshots.py
 
 lint: $(STAMP)
-	$(BIN)/ruff check jobkeeper tests benchmarks examples conftest.py
-	$(BIN)/ruff format --check jobkeeper tests benchmarks examples conftest.py
+	$(BIN)/ruff check jobkeeper tests benchmarks examples docs conftest.py
+	$(BIN)/ruff format --check jobkeeper tests benchmarks examples docs conftest.py
 	$(BIN)/mypy
 	$(BIN)/lint-imports --no-cache
 	$(BIN)/pylint jobkeeper tests

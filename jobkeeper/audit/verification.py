@@ -192,7 +192,8 @@ def export_bundle(keeper: Keeper, ids: Sequence[str], path: Path, *, force: bool
         )
     keys = {fp: base64.b64decode(key) for fp, key in store.public_keys().items()}
     latest = checkpoints[-1]
-    bundle = make_bundle(tree, chosen, keys, latest.note)
+    records = {e.index: e.job_id for e in entries if e.job_id in wanted}
+    bundle = make_bundle(tree, chosen, keys, latest.note, records)
     write_bundle(path, bundle, force=force)
     return len(chosen)
 

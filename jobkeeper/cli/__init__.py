@@ -26,7 +26,7 @@ __all__ = ["app", "main"]
 # Help lists the commands in the order of the workflow (DESIGN §4), not module order.
 _ORDER = ["init", "backends", "check", "submit", "run", "worker", "jobs", "show", "wait",
           "counts", "cancel", "keys", "verify", "bundle", "export", "rerun", "compare",
-          "plot", "serve", "probe", "loopback-device"]  # fmt: skip
+          "plot", "serve", "report", "probe", "loopback-device"]  # fmt: skip
 app.registered_commands.sort(
     key=lambda c: _ORDER.index(c.name or (c.callback.__name__ if c.callback else ""))
 )

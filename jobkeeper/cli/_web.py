@@ -1,4 +1,5 @@
-"""Commands that show a keep to people: plot (figures) and serve (the web view)."""
+"""Commands that show a keep to people: plot (figures), serve (the web view) and report
+(a referee's page on a bundle)."""
 
 from __future__ import annotations
 
@@ -80,3 +81,46 @@ def serve(
     typer.echo(f"serving a read-only view of {keeper.path} on http://{shown}:{port}/ "
                "(Ctrl-C stops it)", err=True)  # fmt: skip
     run_view(keeper, host, port, token=token)
+
+
+@app.command()
+def report(
+    bundle_path: Annotated[Path, typer.Argument(metavar="BUNDLE", help="A bundle file.")],
+    output: Annotated[Path, typer.Option("-o", "--output", help="The HTML file to write.")] = Path(
+        "report.html"
+    ),
+    key: Annotated[
+        list[str] | None,
+        typer.Option("--key", help="Trust only this full key fingerprint (repeatable)."),
+    ] = None,
+    force: ForceOpt = False,
+    keep: KeepOpt = None,
+    json_out: JsonOpt = False,
+) -> None:
+    """Write a referee's report on a bundle: one self-contained HTML file saying what was
+    verified and how, with every record's figure and signed manifest."""
+    from jobkeeper.cli._app import ROOT
+    from jobkeeper.cli._proof import _keep_trust
+    from jobkeeper.config import DEFAULT_KEEP
+    from jobkeeper.exceptions import ConfigError
+    from jobkeeper.outputs import guarded_paths
+    from jobkeeper.web.report import write_report
+
+    if not bundle_path.is_file():
+        raise ConfigError(f"no bundle file {bundle_path}")
+    # The keep at hand (if any) lends its trusted keys, as `verify BUNDLE` does, and is
+    # never written into.
+    trust_set = _keep_trust(keep)
+    place = keep if keep is not None else ROOT.keep if ROOT.keep is not None else DEFAULT_KEEP
+    guarded = guarded_paths(place) if place.is_dir() else ()
+    with activity(f"verifying {bundle_path} and writing {output}"):
+        summary = write_report(bundle_path, output, trusted=key, trust_set=trust_set,
+                               guarded=guarded, force=force)  # fmt: skip
+    if json_out:
+        echo_json({"path": str(output), "records": summary.records, "ok": summary.ok,
+                   "signers": list(summary.signers)})  # fmt: skip
+    else:
+        verdict = "verified" if summary.ok else "VERIFICATION FAILED (the report says why)"
+        typer.echo(f"wrote {output}: {summary.records} record(s), {verdict}")
+    if not summary.ok:
+        raise typer.Exit(1)

@@ -9,7 +9,9 @@ Format ``jobkeeper-audit-bundle/v1`` (UTF-8 JSON object; members in this order):
     checkpoint  the latest signed checkpoint (C2SP signed note, key name = origin)
     entries     [{"index": log index,
                   "envelope": DSSE envelope object,
-                  "inclusionProof": [standard base64 32-byte hashes, leaf to root]}]
+                  "inclusionProof": [standard base64 32-byte hashes, leaf to root],
+                  "record": the keep's id of the job or comparison (optional; a name
+                            for readers, not signed: the signed identity is the job key)}]
 
 The leaf of an entry is SHA-256(0x00 ‖ RFC 8785 canonical JSON of its envelope); each
 inclusion proof leads from that leaf to the checkpoint's root at the checkpoint's size.
@@ -78,6 +80,7 @@ class BundleEntry:
     index: int
     envelope: dict[str, Any]
     inclusion_proof: tuple[bytes, ...]
+    record: str | None = None
 
 
 @dataclass(frozen=True)
@@ -100,6 +103,7 @@ class Bundle:
                     "index": e.index,
                     "envelope": copy.deepcopy(e.envelope),  # callers may edit the result
                     "inclusionProof": [b64(h).decode("ascii") for h in e.inclusion_proof],
+                    **({} if e.record is None else {"record": e.record}),
                 }
                 for e in self.entries
             ],
@@ -134,7 +138,10 @@ class Bundle:
             if not isinstance(envelope, dict) or not isinstance(proof, list):
                 raise VerificationError(f"bundle entry {i}: needs 'envelope' and 'inclusionProof'")
             hashes = tuple(b64decode_strict(h, f"bundle entry {i} proof") for h in proof)
-            entries.append(BundleEntry(index, envelope, hashes))
+            record = item.get("record")
+            entries.append(
+                BundleEntry(index, envelope, hashes, record if isinstance(record, str) else None)
+            )
         origin = data.get("origin", "")
         return cls(keys, note, tuple(entries), origin if isinstance(origin, str) else "")
 
@@ -144,11 +151,13 @@ def make_bundle(
     envelopes: Mapping[int, Mapping[str, Any] | bytes],
     keys: Mapping[str, bytes],
     checkpoint: str,
+    records: Mapping[int, str] | None = None,
 ) -> Bundle:
     """Bundle the envelopes at the given log indexes with proofs to ``checkpoint``.
 
     ``tree`` is the log's tree (at least as large as the checkpoint); ``envelopes`` maps
-    log index → stored envelope (bytes or object). ProvenanceError if an envelope is not
+    log index → stored envelope (bytes or object); ``records`` names the keep's record id
+    of each index (unsigned, for readers). ProvenanceError if an envelope is not
     the one in the tree at its index, or the checkpoint cannot be read.
     """
     try:
@@ -173,7 +182,8 @@ def make_bundle(
             )
         if leaf_hash(envelope_bytes(obj)) != tree.levels[0][index]:
             raise ProvenanceError(f"envelope given for index {index} is not the logged one")
-        entries.append(BundleEntry(index, obj, tuple(tree.inclusion_proof(index, cp.size))))
+        proof = tuple(tree.inclusion_proof(index, cp.size))
+        entries.append(BundleEntry(index, obj, proof, (records or {}).get(index)))
     return Bundle(dict(keys), checkpoint, tuple(entries), cp.origin)
 
 

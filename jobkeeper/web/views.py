@@ -257,13 +257,20 @@ def _manifest_fields(keeper: Keeper, job: Job) -> list[tuple[str, str]] | None:
         statement = keeper.manifest(job)
     except JobkeeperError:
         return None  # the verification block above says why
+    fields = manifest_fields(statement)
+    entry = job.log_entry
+    if entry is not None:
+        fields[2:2] = [("log index", str(entry.index)), ("signed by", entry.signer)]
+    return fields
+
+
+def manifest_fields(statement: Mapping[str, Any]) -> list[tuple[str, str]]:
+    """A Statement's fields as (path, value) rows: its predicate type, subject digests,
+    then every predicate field but the circuit text and counts (shown on their own)."""
     fields: list[tuple[str, str]] = [("predicate type", str(statement.get("predicateType")))]
     for subject in statement.get("subject", []):
         for algorithm, digest in subject.get("digest", {}).items():
             fields.append((f"subject {subject.get('name')}", f"{algorithm}:{digest}"))
-    entry = job.log_entry
-    if entry is not None:
-        fields += [("log index", str(entry.index)), ("signed by", entry.signer)]
     _flatten(statement.get("predicate", {}), "", fields)
     return fields
 

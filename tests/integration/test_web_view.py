@@ -153,3 +153,20 @@ def test_pages_of_records_that_do_not_exist_say_so(view: BackgroundView) -> None
     assert httpx.get(view.url + "/api/jobs/0123456789abcdef").json()["error"]
     assert httpx.get(view.url + "/comparisons/0123").status_code == 404
     assert httpx.get(view.url + "/nowhere").status_code == 404
+
+
+def test_the_overview_shows_each_budget(tmp_path: Path) -> None:
+    keep = tmp_path / "keep"
+    keep.mkdir()
+    (keep / "config.toml").write_text('[budget]\ntotal = 100.0\n[budget.labels]\n"<b>x</b>" = 5.0\n')
+    with Keeper.open(keep) as keeper:
+        keeper.run(circuit_text(0.0), shots=100, seed=1, labels={"<b>x</b>"})
+        with BackgroundView(keeper) as view:
+            overview = httpx.get(view.url + "/api/overview").json()
+            page = httpx.get(view.url + "/").text
+    assert overview["budgets"] == [
+        {"label": None, "spent": 0.0, "cap": 100.0},
+        {"label": "<b>x</b>", "spent": 0.0, "cap": 5.0},
+    ]
+    assert overview["states"]["done"] == 1 and overview["total"] == 1
+    assert "<meter" in page and "&lt;b&gt;x&lt;/b&gt;" in page and "<b>x</b>" not in page

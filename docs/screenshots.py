@@ -17,7 +17,7 @@ from pathlib import Path
 from jobkeeper import Keeper
 from jobkeeper.web.server import BackgroundView
 
-DOCS = Path(__file__).resolve().parent.parent / "docs"
+DOCS = Path(__file__).resolve().parent
 REPO = Path(__file__).resolve().parent.parent
 CIRCUITS = Path("examples/circuits")  # relative: the page shows the source as given
 
