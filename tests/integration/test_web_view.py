@@ -158,7 +158,9 @@ def test_pages_of_records_that_do_not_exist_say_so(view: BackgroundView) -> None
 def test_the_overview_shows_each_budget(tmp_path: Path) -> None:
     keep = tmp_path / "keep"
     keep.mkdir()
-    (keep / "config.toml").write_text('[budget]\ntotal = 100.0\n[budget.labels]\n"<b>x</b>" = 5.0\n')
+    (keep / "config.toml").write_text(
+        '[budget]\ntotal = 100.0\n[budget.labels]\n"<b>x</b>" = 5.0\n'
+    )
     with Keeper.open(keep) as keeper:
         keeper.run(circuit_text(0.0), shots=100, seed=1, labels={"<b>x</b>"})
         with BackgroundView(keeper) as view:
