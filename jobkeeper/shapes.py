@@ -6,12 +6,15 @@ from __future__ import annotations
 
 import datetime as dt
 import json
+import math
+import re
+from collections.abc import Mapping
 from typing import TYPE_CHECKING, Any
 
 if TYPE_CHECKING:
     from jobkeeper.job import Job
     from jobkeeper.keeper import Keeper
-    from jobkeeper.store import JobRecord
+    from jobkeeper.store import ComparisonRecord, JobRecord
 
 
 def when(seconds: float | None) -> str:
@@ -80,12 +83,13 @@ def job_details(keeper: Keeper, job: Job) -> dict[str, Any]:
     data["rerun_of"] = spec.rerun_of
     data["comparisons"] = [
         {"id": c.id, "kind": c.kind, "job_a": c.job_a, "job_b": c.job_b, "verdict": c.verdict,
-         "result": json.loads(c.report).get("result", {})}
+         "result": comparison_result(json.loads(c.report).get("result", {}))}
         for c in job.comparisons
     ]  # fmt: skip
     entry = job.log_entry
     if entry is not None:
-        data["envelope"] = json.loads(entry.envelope)
+        # The DSSE envelope as signed (its own key style), under a name that says so.
+        data["signed_envelope"] = json.loads(entry.envelope)
         data["log_index"] = entry.index
         data["signer"] = entry.signer
         report = keeper.verify([record.id])
@@ -93,4 +97,52 @@ def job_details(keeper: Keeper, job: Job) -> dict[str, Any]:
     return data
 
 
-__all__ = ["job_details", "job_json", "when", "when_iso"]
+def snake_case(name: str) -> str:
+    """``jobKeyA`` → ``job_key_a``: a signed document's lowerCamelCase key in the command
+    line's own key style."""
+    return "".join("_" + char.lower() if char.isupper() else char for char in name)
+
+
+def comparison_json(record: ComparisonRecord, rerun_job: str | None = None) -> dict[str, Any]:
+    """A rerun's or comparison's JSON (what ``rerun``/``compare --json`` print): its fields
+    in snake_case, the comparison's ``result``, and the archived report itself under
+    ``signed_report`` (the document whose digest the keep signed, in its own key style)."""
+    report = json.loads(record.report)
+    fields = {snake_case(key): value for key, value in report.items() if key != "result"}
+    return {"id": record.id, **fields, "verdict": record.verdict, "rerun_job": rerun_job,
+            "result": comparison_result(report.get("result", {})),
+            "signed_report": report}  # fmt: skip
+
+
+_OLD_OVERLAP = re.compile(r"Hellinger fidelity ([0-9.]+)\.")
+
+
+def comparison_result(result: Mapping[str, Any]) -> dict[str, Any]:
+    """An archived comparison's result under today's names. Reports archived before the
+    overlap took statistics' own names carry (Σ√(p·q))² under an older key; it is shown as
+    the Bhattacharyya coefficient and Hellinger distance it gives (the signed report itself
+    is left as it was signed)."""
+    out = dict(result)
+    old = out.pop("hellinger_" + "fidelity", None)
+    if isinstance(old, (int, float)) and "bhattacharyya_coefficient" not in out:
+        bc = math.sqrt(min(max(float(old), 0.0), 1.0))
+        out["bhattacharyya_coefficient"] = bc
+        out["hellinger_distance"] = math.sqrt(1.0 - bc)
+        if isinstance(out.get("summary"), str):
+            out["summary"] = _OLD_OVERLAP.sub(
+                f"Bhattacharyya coefficient {bc:.4f}, Hellinger distance "
+                f"{math.sqrt(1.0 - bc):.4f}.",
+                out["summary"],
+            )
+    return out
+
+
+__all__ = [
+    "comparison_json",
+    "comparison_result",
+    "job_details",
+    "job_json",
+    "snake_case",
+    "when",
+    "when_iso",
+]

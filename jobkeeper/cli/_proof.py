@@ -199,7 +199,9 @@ def export(
 
 def _print_judgement(judgement: Any, json_out: bool) -> None:
     if json_out:
-        echo_json(judgement.to_json())
+        from jobkeeper.shapes import comparison_json
+
+        echo_json(comparison_json(judgement.record, judgement.rerun_job))
     else:
         typer.echo(judgement.summary())
         typer.echo(f"archived and signed as comparison {judgement.record.id[:12]}")

@@ -5,17 +5,20 @@ write the archive can list a key of their own; so trust is rooted in a small fil
 verifier holds, never in the archive. Trusted = the keep's own keys (``keys/``) and the
 keys of this file.
 
-Format ``jobkeeper-trusted-keys/v1`` (UTF-8 JSON object), the same for a keep's own file
+Format ``jobkeeper-trusted-keys/v2`` (UTF-8 JSON object), the same for a keep's own file
 (``KEEP/trusted-keys.json``) and for a team's shared list kept in its own repository::
 
-    format   "jobkeeper-trusted-keys/v1"
-    keys     [{"fingerprint": 64 lowercase hex, SHA-256 of the raw public key,
-               "publicKey":   standard base64 of the raw 32-byte Ed25519 key,
-               "name":        who holds the key (free text),
-               "addedAt":     RFC 3339 UTC, when it was trusted,
-               "retired":     true once a successor key signs instead,
-               "retiredFrom": log index from which the successor signs (or null),
-               "successor":   the successor's fingerprint (or null)}]
+    format   "jobkeeper-trusted-keys/v2"
+    keys     [{"fingerprint":  64 lowercase hex, SHA-256 of the raw public key,
+               "public_key":   standard base64 of the raw 32-byte Ed25519 key,
+               "name":         who holds the key (free text),
+               "added_at":     RFC 3339 UTC, when it was trusted,
+               "retired":      true once a successor key signs instead,
+               "retired_from": log index from which the successor signs (or null),
+               "successor":    the successor's fingerprint (or null)}]
+
+Version 1 wrote ``publicKey``, ``addedAt`` and ``retiredFrom``; it is still read (a team's
+shared file need not be rewritten), and written again as version 2.
 
 The public key itself is stored, so verification never needs the archive's copy; each
 entry's fingerprint is checked against its key when read.
@@ -36,7 +39,10 @@ from typing import Any
 from jobkeeper.exceptions import ConfigError, ProvenanceError, VerificationError
 from jobkeeper.provenance.keys import fingerprint, load_public_key, utc_now_rfc3339
 
-FORMAT = "jobkeeper-trusted-keys/v1"
+FORMAT = "jobkeeper-trusted-keys/v2"
+#: The first format: the same fields, three of them named in lowerCamelCase.
+FORMAT_V1 = "jobkeeper-trusted-keys/v1"
+_V1_NAMES = {"public_key": "publicKey", "added_at": "addedAt", "retired_from": "retiredFrom"}
 HEX = set("0123456789abcdef")
 
 
@@ -70,11 +76,11 @@ class TrustedKey:
     def to_dict(self) -> dict[str, Any]:
         return {
             "fingerprint": self.fingerprint,
-            "publicKey": base64.b64encode(self.public_key).decode("ascii"),
+            "public_key": base64.b64encode(self.public_key).decode("ascii"),
             "name": self.name,
-            "addedAt": self.added_at,
+            "added_at": self.added_at,
             "retired": self.retired,
-            "retiredFrom": self.retired_from,
+            "retired_from": self.retired_from,
             "successor": self.successor,
         }
 
@@ -82,24 +88,25 @@ class TrustedKey:
     def from_dict(cls, data: Any, where: str) -> TrustedKey:
         if not isinstance(data, dict):
             raise VerificationError(f"{where}: an entry is not a JSON object")
+        data = {new: data[old] for new, old in _V1_NAMES.items() if old in data} | data
         try:
             fp = str(data["fingerprint"])
             if fp != fp.lower() or len(fp) != 64 or not set(fp) <= HEX:
                 raise VerificationError(f"{where}: {fp!r} is not a full fingerprint")
-            raw = base64.b64decode(str(data["publicKey"]), validate=True)
-            name, added = str(data.get("name") or ""), str(data.get("addedAt") or "")
+            raw = base64.b64decode(str(data["public_key"]), validate=True)
+            name, added = str(data.get("name") or ""), str(data.get("added_at") or "")
         except KeyError as exc:
             raise VerificationError(f"{where}: an entry lacks {exc.args[0]!r}") from None
         except (binascii.Error, ValueError) as exc:
-            raise VerificationError(f"{where}: publicKey of {data.get('fingerprint')}") from exc
+            raise VerificationError(f"{where}: public_key of {data.get('fingerprint')}") from exc
         load_public_key(raw)
         if fingerprint(raw) != fp:
             raise VerificationError(f"{where}: key {fp} is not the key its entry holds")
-        retired_from = data.get("retiredFrom")
+        retired_from = data.get("retired_from")
         if retired_from is not None and (
             isinstance(retired_from, bool) or not isinstance(retired_from, int) or retired_from < 0
         ):
-            raise VerificationError(f"{where}: retiredFrom of {fp} is not a log index")
+            raise VerificationError(f"{where}: retired_from of {fp} is not a log index")
         successor = data.get("successor")
         try:
             after = None if successor is None else check_fingerprint(str(successor))
@@ -109,7 +116,7 @@ class TrustedKey:
 
 
 def parse_trusted(data: Any, where: str) -> list[TrustedKey]:
-    if not isinstance(data, dict) or data.get("format") != FORMAT:
+    if not isinstance(data, dict) or data.get("format") not in (FORMAT, FORMAT_V1):
         raise VerificationError(f"{where} is not a {FORMAT} document")
     entries = data.get("keys")
     if not isinstance(entries, list):

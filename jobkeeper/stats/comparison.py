@@ -32,12 +32,17 @@ Methods (chosen so a referee can recompute every number with scipy):
   lower end is 0, since zero is then a value the data cannot exclude. ``tvd_noise`` (the
   TVD that noise alone produces on average at these shot counts) says how much of the
   observed distance may be noise, and a note says so when it is most of it.
-- **Hellinger fidelity** (Σ√(p q))², the squared Bhattacharyya coefficient (common practice
-  in the quantum-computing literature): 1 for equal distributions, 0 for disjoint ones.
+- **Overlap.** The Bhattacharyya coefficient BC = Σ√(p q) (1 for equal distributions, 0 for
+  disjoint ones) and the Hellinger distance H = √(1 − BC) (0 for equal, 1 for disjoint),
+  under the names statistics gives them (Bhattacharyya 1943; the Hellinger distance in
+  this normalisation, as in Le Cam & Yang, "Asymptotics in Statistics"), both between the
+  observed frequencies (or the frequencies and the exact distribution), with no bias
+  correction: they describe, the test decides.
 """
 
 from __future__ import annotations
 
+import math
 from collections.abc import Mapping
 from dataclasses import asdict, dataclass
 from typing import Any, Literal
@@ -93,7 +98,8 @@ class Comparison:
     tvd: float
     tvd_estimate: float
     tvd_ci: tuple[float, float]
-    hellinger_fidelity: float
+    bhattacharyya_coefficient: float
+    hellinger_distance: float
     shots_a: int
     shots_b: int | None
     alpha: float
@@ -113,7 +119,9 @@ class Comparison:
             f"Total variation distance, sampling bias removed: {self.tvd_estimate:.3f} "
             f"({level} CI {low:.3f}–{high:.3f}). Observed between the frequencies: "
             f"{self.tvd:.3f}, biased upwards (noise alone gives about {self.tvd_noise:.3f} "
-            f"at these shot counts). Hellinger fidelity {self.hellinger_fidelity:.4f}."
+            f"at these shot counts). Bhattacharyya coefficient "
+            f"{self.bhattacharyya_coefficient:.4f}, Hellinger distance "
+            f"{self.hellinger_distance:.4f}."
         )
         lines.append(distance)
         lines.extend(self.notes)
@@ -223,26 +231,11 @@ def compare_counts(
         f"estimate and interval from {reps} multinomial resamples of each run "
         f"(directional bootstrap), seed {seed}"
     )
-    return Comparison(
-        verdict=verdict,
-        p_value=test.p_value,
-        g_p_value=test.g_p_value,
-        statistic=test.statistic,
-        dof=test.dof,
-        tvd=tvd,
-        tvd_estimate=distance.estimate,
-        tvd_ci=_zero_floor(distance, test, confidence),
-        hellinger_fidelity=_fidelity(px, py),
-        shots_a=shots_a,
-        shots_b=shots_b,
-        alpha=alpha,
-        notes=tuple(notes),
-        method=method,
-        too_few_shots=test.p_value is None,
-        confidence=confidence,
-        tvd_noise=noise,
+    return _comparison(
+        test, distance, (px, py), confidence, verdict=verdict, shots_a=shots_a,
+        shots_b=shots_b, alpha=alpha, notes=tuple(notes), method=method, tvd_noise=noise,
         deterministic=deterministic,
-    )
+    )  # fmt: skip
 
 
 def compare_to_distribution(
@@ -319,25 +312,10 @@ def compare_to_distribution(
         f"; TVD: bias-corrected estimate and interval from {reps} multinomial resamples "
         f"of the counts (directional bootstrap), seed {seed}"
     )
-    return Comparison(
-        verdict=verdict,
-        p_value=test.p_value,
-        g_p_value=test.g_p_value,
-        statistic=test.statistic,
-        dof=test.dof,
-        tvd=tvd,
-        tvd_estimate=distance.estimate,
-        tvd_ci=_zero_floor(distance, test, confidence),
-        hellinger_fidelity=_fidelity(freq, ref),
-        shots_a=shots,
-        shots_b=None,
-        alpha=alpha,
-        notes=tuple(notes),
-        method=method,
-        too_few_shots=test.p_value is None,
-        confidence=confidence,
-        tvd_noise=noise,
-    )
+    return _comparison(
+        test, distance, (freq, ref), confidence, verdict=verdict, shots_a=shots,
+        shots_b=None, alpha=alpha, notes=tuple(notes), method=method, tvd_noise=noise,
+    )  # fmt: skip
 
 
 def _streams(seed: int, count: int) -> tuple[np.random.Generator, ...]:
@@ -364,6 +342,19 @@ def _zero_floor(
     return (distance.low, distance.high)
 
 
-def _fidelity(p: np.ndarray[Any, np.dtype[np.float64]], q: np.ndarray[Any, Any]) -> float:
-    bc = float(np.sqrt(p * q).sum())
-    return min(max(bc * bc, 0.0), 1.0)
+def _comparison(
+    test: TestResult, distance: DistanceEstimate,
+    pair: tuple[np.ndarray[Any, np.dtype[np.float64]], np.ndarray[Any, Any]],
+    confidence: float, **fields: Any,
+) -> Comparison:  # fmt: skip
+    """A Comparison with the fields both kinds fill alike: the test's, the distance's, and
+    the overlap of the two distributions in ``pair``."""
+    p, q = pair
+    bc = min(max(float(np.sqrt(p * q).sum()), 0.0), 1.0)
+    return Comparison(
+        p_value=test.p_value, g_p_value=test.g_p_value, statistic=test.statistic,
+        dof=test.dof, tvd=distance.observed, tvd_estimate=distance.estimate,
+        tvd_ci=_zero_floor(distance, test, confidence), bhattacharyya_coefficient=bc,
+        hellinger_distance=math.sqrt(1.0 - bc), too_few_shots=test.p_value is None,
+        confidence=confidence, **fields,
+    )  # fmt: skip

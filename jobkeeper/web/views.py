@@ -15,7 +15,14 @@ from markupsafe import Markup
 
 from jobkeeper.exceptions import ConfigError, JobkeeperError
 from jobkeeper.queue import JobState
-from jobkeeper.shapes import job_details, job_json, when, when_iso
+from jobkeeper.shapes import (
+    comparison_json,
+    comparison_result,
+    job_details,
+    job_json,
+    when,
+    when_iso,
+)
 from jobkeeper.store import JobFilter, PageCursor
 from jobkeeper.web.figures import SMALL_SHOTS, inline_svg
 from jobkeeper.web.records import Found, find_record, record_figure
@@ -24,7 +31,6 @@ if TYPE_CHECKING:
     from jobkeeper.job import Job
     from jobkeeper.keeper import Keeper
     from jobkeeper.provenance import VerifyReport
-    from jobkeeper.store import ComparisonRecord
 
 PAGE_SIZE = 50
 MAX_PAGE_SIZE = 500
@@ -303,16 +309,11 @@ def comparison_page(keeper: Keeper, comparison_id: str) -> dict[str, Any]:
     return {
         "c": found.comparison,
         "figure": Markup(inline_svg(fig, source, prefix="cmp-")),
-        "summary": result.get("summary", "") if isinstance(result, Mapping) else "",
+        "summary": comparison_result(result).get("summary", "")
+        if isinstance(result, Mapping)
+        else "",
         "json": comparison_json(found.comparison),
     }
-
-
-def comparison_json(comparison: ComparisonRecord) -> dict[str, Any]:
-    """What ``jobkeeper compare --json`` printed for it."""
-    data: dict[str, Any] = json.loads(comparison.report)
-    data["id"] = comparison.id
-    return data
 
 
 __all__ = [

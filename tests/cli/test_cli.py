@@ -74,7 +74,7 @@ def test_jobs_show_counts_cancel_json_shapes(capsys, keep) -> None:
     assert set(job) >= {"id", "state", "backend", "shots", "labels", "created_at"}
     code, out, _ = jk(capsys, "show", job["id"][:8], "--keep", keep, "--json")
     shown = json.loads(out)
-    assert shown["envelope"]["payloadType"] == "application/vnd.in-toto+json"
+    assert shown["signed_envelope"]["payloadType"] == "application/vnd.in-toto+json"
     assert shown["verification"]["ok"] is True
     code, out, _ = jk(capsys, "counts", job["id"][:8], "--keep", keep)
     assert sum(json.loads(out).values()) == 1024

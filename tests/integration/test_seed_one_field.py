@@ -60,7 +60,7 @@ def seeds_shown(capsys: pytest.CaptureFixture[str], keep: Path, *args: str) -> d
     details = json.loads(shown)
     assert details["state"] == "done" and details["verification"]["ok"]
     # The DSSE envelope's payload is the in-toto Statement (DSSE spec, envelope.md).
-    statement = json.loads(base64.b64decode(details["envelope"]["payload"]))
+    statement = json.loads(base64.b64decode(details["signed_envelope"]["payload"]))
     return {
         "printed": int(match.group(2)),
         "show": details["seed"],

@@ -89,10 +89,10 @@ def test_the_trusted_list_lives_outside_the_archive_and_pins_the_key(
     assert jk(capsys, "trust", "add", attacker, "--name", "b", "--keep", str(owner))[0] == 0
     data = json.loads((owner / TRUST_FILE).read_text())
     (entry,) = data["keys"]
-    raw = base64.b64decode(entry["publicKey"])
+    raw = base64.b64decode(entry["public_key"])
     # The fingerprint is the SHA-256 of the raw 32-byte Ed25519 key (RFC 8032 §5.1.5).
     assert len(raw) == 32 and hashlib.sha256(raw).hexdigest() == attacker == entry["fingerprint"]
-    assert data["format"] == "jobkeeper-trusted-keys/v1" and entry["name"] == "b"
+    assert data["format"] == "jobkeeper-trusted-keys/v2" and entry["name"] == "b"
     code, out, _ = jk(capsys, "trust", "list", "--keep", str(owner), "--json")
     assert code == 0
     listed = json.loads(out)
@@ -240,8 +240,21 @@ def test_a_shared_list_is_imported_with_its_retirements(
         assert first in trust.keys and _fp(worker) in trust.keys
         assert trust.retired_from == {first: 0}
         assert trust.names[first] == "team-keys"  # not "this keep": it is the worker's key
-    bad = json.loads(shared.read_text())
-    bad["keys"][0]["publicKey"] = bad["keys"][1]["publicKey"]
+    # A team's file written in the first format (lowerCamelCase names) still imports.
+    current = json.loads(shared.read_text())
+    old = {"format": "jobkeeper-trusted-keys/v1",
+           "keys": [{"fingerprint": k["fingerprint"], "publicKey": k["public_key"],
+                     "name": k["name"], "addedAt": k["added_at"], "retired": k["retired"],
+                     "retiredFrom": k["retired_from"], "successor": k["successor"]}
+                    for k in current["keys"]]}  # fmt: skip
+    shared.write_text(json.dumps(old))
+    Keeper.open(tmp_path / "third").close()
+    code, _, err = jk(capsys, "trust", "import", str(shared), "--keep", str(tmp_path / "third"))
+    assert code == 0, err
+    with Keeper.open(tmp_path / "third", create=False) as keeper:
+        assert keeper.trust.load().retired_from == {first: 0}
+    bad = current
+    bad["keys"][0]["public_key"] = bad["keys"][1]["public_key"]
     shared.write_text(json.dumps(bad))
     code, _, err = jk(capsys, "trust", "import", str(shared), "--keep", str(owner))
     assert code == 1 and "is not the key its entry holds" in err

@@ -102,15 +102,29 @@ def test_goodness_of_fit_matches_scipy(seed: int) -> None:
     assert result.g_p_value == pytest.approx(g.pvalue, rel=1e-9)
 
 
-def test_tvd_and_fidelity_by_hand() -> None:
-    # Definitions (common practice): TVD = ½Σ|p−q|; Hellinger fidelity = (Σ√(pq))².
-    result = compare_counts({"0": 75, "1": 25}, {"0": 25, "1": 75}, bootstrap=100)
-    assert result.tvd == pytest.approx(0.5)
-    assert result.hellinger_fidelity == pytest.approx((2 * math.sqrt(0.75 * 0.25)) ** 2)
+def test_tvd_bhattacharyya_and_hellinger_by_hand() -> None:
+    # Definitions (textbook: Bhattacharyya 1943; the Hellinger distance normalised as in
+    # Le Cam & Yang): TVD = ½Σ|p−q|, BC = Σ√(p·q), H = √(1 − BC). Values worked out by hand.
+    # p = (0.9, 0.1), q = (0.1, 0.9): TVD = ½(0.8 + 0.8) = 0.8; BC = √0.09 + √0.09 = 0.6;
+    # H = √0.4 = 0.632456 (to six places).
+    result = compare_counts({"0": 90, "1": 10}, {"0": 10, "1": 90}, bootstrap=100)
+    assert result.tvd == pytest.approx(0.8)
+    assert result.bhattacharyya_coefficient == pytest.approx(0.6, abs=1e-12)
+    assert result.hellinger_distance == pytest.approx(0.632456, abs=1e-6)
+    # Frequencies (0.25, 0.75) against exact (0.5, 0.5): TVD = 0.25;
+    # BC = √0.125 + √0.375 = (√2 + √6)/4 = cos 15° = 0.965926; H = √(1 − 0.965926) = 0.184592.
+    against = compare_to_distribution({"0": 25, "1": 75}, {"0": 0.5, "1": 0.5}, bootstrap=100)
+    assert against.tvd == pytest.approx(0.25)
+    assert against.bhattacharyya_coefficient == pytest.approx(0.965926, abs=1e-6)
+    assert against.hellinger_distance == pytest.approx(0.184592, abs=1e-6)
+    # Half the shots on an impossible outcome: BC = √(0.5·1) = 0.707107, H = 0.541196.
     exact = compare_to_distribution({"0": 50, "1": 50}, {"0": 1.0, "1": 0.0}, bootstrap=100)
     assert exact.verdict == "different"
     assert exact.tvd == pytest.approx(0.5)
-    assert exact.hellinger_fidelity == pytest.approx(0.5)
+    assert exact.bhattacharyya_coefficient == pytest.approx(0.707107, abs=1e-6)
+    assert exact.hellinger_distance == pytest.approx(0.541196, abs=1e-6)
+    assert "Bhattacharyya coefficient 0.7071, Hellinger distance 0.5412" in exact.summary()
+    assert "fidelity" not in json.dumps(exact.to_json()).lower()
 
 
 # --- Pooling ------------------------------------------------------------------------------
@@ -189,7 +203,8 @@ def test_identical_tables_are_identical() -> None:
     counts = {"00": 512, "11": 488}
     result = compare_counts(counts, {"11": 488, "00": 512, "01": 0})
     assert result.verdict == "identical"
-    assert result.tvd == 0.0 and result.hellinger_fidelity == pytest.approx(1.0)
+    assert result.tvd == 0.0 and result.bhattacharyya_coefficient == pytest.approx(1.0)
+    assert result.hellinger_distance == pytest.approx(0.0, abs=1e-7)
     # Identical counts do not prove identical distributions: the interval starts at zero
     # but allows what sampling noise could hide.
     assert result.tvd_estimate == 0.0 and result.tvd_ci[0] == 0.0
@@ -251,7 +266,8 @@ def test_json_is_strict_and_complete() -> None:
     ):
         data = result.to_json()
         text = json.dumps(data, allow_nan=False)
-        for key in ("verdict", "p_value", "tvd", "tvd_ci", "hellinger_fidelity", "notes"):
+        for key in ("verdict", "p_value", "tvd", "tvd_ci", "bhattacharyya_coefficient",
+                    "hellinger_distance", "notes"):  # fmt: skip
             assert key in data
         assert json.loads(text)["tvd_ci"] == list(result.tvd_ci)
 

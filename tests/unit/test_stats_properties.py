@@ -1,8 +1,8 @@
 """Property tests for jobkeeper.stats (hypothesis): symmetry and ranges.
 
-The properties are mathematical facts of the definitions (common practice): TVD and
-Hellinger fidelity are symmetric and lie in [0, 1]; equal distributions have TVD 0 and
-fidelity 1; Pearson's test of homogeneity does not depend on the order of the rows.
+The properties are mathematical facts of the definitions (common practice): TVD, the
+Bhattacharyya coefficient and the Hellinger distance are symmetric and lie in [0, 1]; equal
+distributions have TVD 0, coefficient 1 and distance 0; Pearson's test of homogeneity does not depend on the order of the rows.
 """
 
 from __future__ import annotations
@@ -27,7 +27,8 @@ def test_symmetric_in_a_and_b(a: dict[str, int], b: dict[str, int]) -> None:
     forward = compare_counts(a, b, bootstrap=100)
     backward = compare_counts(b, a, bootstrap=100)
     assert forward.tvd == backward.tvd
-    assert forward.hellinger_fidelity == pytest.approx(backward.hellinger_fidelity)
+    assert forward.bhattacharyya_coefficient == pytest.approx(backward.bhattacharyya_coefficient)
+    assert forward.hellinger_distance == pytest.approx(backward.hellinger_distance)
     assert forward.verdict == backward.verdict
     if forward.p_value is None:
         assert backward.p_value is None
@@ -41,26 +42,29 @@ def test_symmetric_in_a_and_b(a: dict[str, int], b: dict[str, int]) -> None:
 def test_ranges(a: dict[str, int], b: dict[str, int]) -> None:
     result = compare_counts(a, b, bootstrap=100)
     assert 0.0 <= result.tvd <= 1.0
-    assert 0.0 <= result.hellinger_fidelity <= 1.0
+    assert 0.0 <= result.bhattacharyya_coefficient <= 1.0
+    assert 0.0 <= result.hellinger_distance <= 1.0
+    assert result.hellinger_distance**2 == pytest.approx(1 - result.bhattacharyya_coefficient)
     low, high = result.tvd_ci
     assert 0.0 <= low <= high <= 1.0
     assert result.p_value is None or 0.0 <= result.p_value <= 1.0
     assert result.g_p_value is None or 0.0 <= result.g_p_value <= 1.0
-    # Fidelity and TVD bound each other: 1 − √F ≤ TVD ≤ √(1 − F) (Fuchs–van de Graaf, for
-    # classical distributions; published).
-    root = result.hellinger_fidelity**0.5
-    assert 1 - root <= result.tvd + 1e-12
-    assert result.tvd <= (1 - result.hellinger_fidelity) ** 0.5 + 1e-12
+    # The coefficient and TVD bound each other: 1 − BC ≤ TVD ≤ √(1 − BC²) (Fuchs–van de
+    # Graaf, for classical distributions; published).
+    bc = result.bhattacharyya_coefficient
+    assert 1 - bc <= result.tvd + 1e-12
+    assert result.tvd <= (1 - bc**2) ** 0.5 + 1e-12
 
 
 @FAST
 @given(counts_tables, st.integers(min_value=2, max_value=5))
-def test_same_distribution_has_tvd_zero_and_fidelity_one(a: dict[str, int], scale: int) -> None:
+def test_same_distribution_has_tvd_zero_and_full_overlap(a: dict[str, int], scale: int) -> None:
     # Scaling every count keeps the distribution: not identical tables, same frequencies.
     b = {key: value * scale for key, value in a.items()}
     result = compare_counts(a, b, bootstrap=100)
     assert result.tvd == pytest.approx(0.0, abs=1e-15)
-    assert result.hellinger_fidelity == pytest.approx(1.0, rel=1e-12)
+    assert result.bhattacharyya_coefficient == pytest.approx(1.0, rel=1e-12)
+    assert result.hellinger_distance == pytest.approx(0.0, abs=1e-6)
     assert result.verdict == "consistent"
     assert compare_counts(a, dict(a), bootstrap=100).verdict == "identical"
 
@@ -72,7 +76,7 @@ def test_one_sample_ranges_and_self_agreement(a: dict[str, int]) -> None:
     probs = {key: value / total for key, value in a.items() if value}
     result = compare_to_distribution(a, probs, bootstrap=100)
     assert result.tvd == pytest.approx(0.0, abs=1e-12)
-    assert result.hellinger_fidelity == pytest.approx(1.0, rel=1e-12)
+    assert result.bhattacharyya_coefficient == pytest.approx(1.0, rel=1e-12)
     assert result.verdict in ("identical", "consistent")
     low, high = result.tvd_ci
     assert 0.0 <= low <= high <= 1.0

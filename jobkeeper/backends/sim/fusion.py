@@ -11,7 +11,9 @@ disjoint qubits commute, so emitting some of them early keeps the circuit's mean
 
 from __future__ import annotations
 
+from collections.abc import Iterable
 from dataclasses import dataclass
+from typing import TypeVar
 
 import numpy as np
 
@@ -32,6 +34,15 @@ class Block:
     qubits: tuple[int, ...]
     matrix: Matrix
     kind: str
+
+
+T = TypeVar("T")
+
+
+def distinct(blocks: Iterable[T]) -> list[T]:
+    """Each block once, in first-seen order: a block still open is listed under every
+    qubit it touches."""
+    return list({id(blk): blk for blk in blocks}.values())
 
 
 def _block(qubits: tuple[int, ...], matrix: Matrix) -> Block:
@@ -91,11 +102,7 @@ def fuse(
         merged.matrix = embed(matrix, positions, len(merged.qubits)) @ merged.matrix
         for q in merged.qubits:
             open_on[q] = merged
-    seen: set[int] = set()
-    for blk in list(open_on.values()):
-        if id(blk) not in seen:
-            seen.add(id(blk))
-            out.append(_block(tuple(blk.qubits), blk.matrix))
+    out.extend(_block(tuple(blk.qubits), blk.matrix) for blk in distinct(open_on.values()))
     return out
 
 

@@ -31,6 +31,7 @@ import numpy as np
 import numpy.typing as npt
 
 from jobkeeper.backends.sim.density_program import primitives
+from jobkeeper.backends.sim.fusion import distinct
 from jobkeeper.backends.sim.gates import Matrix, embed, gate_matrix
 from jobkeeper.backends.sim.kernels import classify
 from jobkeeper.backends.sim.noise import NoiseModel
@@ -192,11 +193,7 @@ def fuse_items(items: list[Item], max_width: int) -> list[tuple[tuple[int, ...],
         merged.items.append(item)
         for q in merged.qubits:
             open_on[q] = merged
-    seen: set[int] = set()
-    for blk in list(open_on.values()):
-        if id(blk) not in seen:
-            seen.add(id(blk))
-            out.append((tuple(blk.qubits), blk.items))
+    out.extend((tuple(blk.qubits), blk.items) for blk in distinct(open_on.values()))
     return out
 
 

@@ -27,7 +27,7 @@ from jobkeeper.circuit.qasm3.declarations import (
     input_declaration,
     register,
 )
-from jobkeeper.circuit.qasm3.modifiers import Expander, Gate
+from jobkeeper.circuit.qasm3.modifiers import Call, Expander, Gate
 from jobkeeper.circuit.qasm3.sinks import OperationSink
 from jobkeeper.circuit.qasm3.state import Var
 from jobkeeper.circuit.qasm3.stdlib import STANDARD_LIBRARY
@@ -341,7 +341,7 @@ class Interpreter:
                 self.fail(
                     f"the same qubit appears twice in a call of '{stmt.name.text}'", stmt.name
                 )
-            self.expander.apply(sink, mods, gate, values, qubits, (), False, stmt.tok)
+            self.expander.apply(sink, mods, Call(gate, values, qubits, (), False, stmt.tok))
         emit(self, out)
 
     # ---- gates -------------------------------------------------------------------------

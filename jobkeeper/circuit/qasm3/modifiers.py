@@ -24,6 +24,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable
+from dataclasses import dataclass, replace
 from typing import NoReturn
 
 from jobkeeper.circuit.lexer import Token
@@ -90,6 +91,22 @@ def _inverse(name: str, params: tuple[float, ...]) -> tuple[str, tuple[float, ..
 
 #: A gate: the built-ins are the strings "U" and "gphase".
 Gate = n.GateDef | str
+
+
+@dataclass(frozen=True, slots=True)
+class Call:
+    """One gate application as its modifiers have shaped it so far: the gate, its
+    parameters, its target qubits, the controls added (qubit, positive?), whether it is
+    inverted, and the token to blame for an error."""
+
+    gate: Gate
+    params: tuple[float, ...]
+    qubits: tuple[int, ...]
+    ctrls: Controls
+    inv: bool
+    at: Token
+
+
 Evaluate = Callable[[n.Expr, dict[str, float]], float]
 
 
@@ -149,100 +166,67 @@ class Expander:
                 name,
             )
 
-    def apply(
-        self,
-        sink: Sink,
-        mods: list[tuple[str, float, Token]],
-        gate: Gate,
-        params: tuple[float, ...],
-        qubits: tuple[int, ...],
-        ctrls: Controls,
-        inv: bool,
-        at: Token,
-    ) -> None:
+    def apply(self, sink: Sink, mods: list[tuple[str, float, Token]], call: Call) -> None:
+        """Apply ``call`` with its modifiers ``mods`` (outermost first) to ``sink``."""
         self.depth += 1
         if self.depth > MAX_CALL_DEPTH:
-            self.fail(f"gate calls nested more than {MAX_CALL_DEPTH} deep", at)
+            self.fail(f"gate calls nested more than {MAX_CALL_DEPTH} deep", call.at)
         try:
-            self._apply(sink, mods, gate, params, qubits, ctrls, inv, at)
+            self._modified(sink, mods, call)
         finally:
             self.depth -= 1
 
-    def _apply(
-        self,
-        sink: Sink,
-        mods: list[tuple[str, float, Token]],
-        gate: Gate,
-        params: tuple[float, ...],
-        qubits: tuple[int, ...],
-        ctrls: Controls,
-        inv: bool,
-        at: Token,
-    ) -> None:
+    def _modified(self, sink: Sink, mods: list[tuple[str, float, Token]], call: Call) -> None:
         if not mods:
-            self.base(sink, gate, params, qubits, ctrls, inv, at)
+            self.base(sink, call)
             return
         (kind, k, tok), rest = mods[0], mods[1:]
         if kind in ("ctrl", "negctrl"):
             count = int(k)
-            added = tuple((q, kind == "ctrl") for q in qubits[:count])
-            self.apply(sink, rest, gate, params, qubits[count:], ctrls + added, inv, at)
+            added = tuple((q, kind == "ctrl") for q in call.qubits[:count])
+            self.apply(
+                sink, rest, replace(call, qubits=call.qubits[count:], ctrls=call.ctrls + added)
+            )
         elif kind == "inv":
-            self.apply(sink, rest, gate, params, qubits, ctrls, not inv, at)
+            self.apply(sink, rest, replace(call, inv=not call.inv))
         elif k == round(k) and abs(k) <= MAX_REPEAT:
             times = int(abs(k))
             self.charge(times)
             for _ in range(times):
-                self.apply(sink, rest, gate, params, qubits, ctrls, inv != (k < 0), at)
+                self.apply(sink, rest, replace(call, inv=call.inv != (k < 0)))
         else:
-            if len(qubits) != 1:
+            if len(call.qubits) != 1:
                 self.fail(
                     "pow with a non-integer exponent is supported on single-qubit gates only", tok
                 )
             self.charge(NUMERIC_COST)
             inner = MatrixSink(lambda message: self.fail(message, tok))
-            self.apply(inner, rest, gate, params, (0,), (), False, at)
+            self.apply(inner, rest, replace(call, qubits=(0,), ctrls=(), inv=False))
             matrix = principal_power(inner.matrix, k)
-            if inv:
+            if call.inv:
                 matrix = matrix.conj().T
-            sink.u(angles_of(matrix), qubits[0], ctrls)
+            sink.u(angles_of(matrix), call.qubits[0], call.ctrls)
 
-    def base(
-        self,
-        sink: Sink,
-        gate: Gate,
-        params: tuple[float, ...],
-        qubits: tuple[int, ...],
-        ctrls: Controls,
-        inv: bool,
-        at: Token,
-    ) -> None:
+    def base(self, sink: Sink, call: Call) -> None:
+        gate, params, inv = call.gate, call.params, call.inv
         if gate == "gphase":
-            sink.gphase(-params[0] if inv else params[0], ctrls)
+            sink.gphase(-params[0] if inv else params[0], call.ctrls)
             return
         if gate == "U":
             theta, phi, lam = params
             if inv:
                 theta, phi, lam = -theta, -lam, -phi
-            sink.u((theta, phi, lam, theta / 2), qubits[0], ctrls)
+            sink.u((theta, phi, lam, theta / 2), call.qubits[0], call.ctrls)
             return
         assert isinstance(gate, n.GateDef)
-        name = gate.name.text
         named = self.standard(gate) and not sink.matrix_only
-        if named and self._named(sink, name, params, qubits, ctrls, inv):
+        if named and self._named(sink, gate.name.text, call):
             return
-        self.expand(sink, gate, params, qubits, ctrls, inv)
+        self.expand(sink, gate, call)
 
-    def _named(
-        self,
-        sink: Sink,
-        name: str,
-        params: tuple[float, ...],
-        qubits: tuple[int, ...],
-        ctrls: Controls,
-        inv: bool,
-    ) -> bool:
-        if inv:
+    def _named(self, sink: Sink, name: str, call: Call) -> bool:
+        params, qubits, ctrls = call.params, call.qubits, call.ctrls
+        if call.inv:
             if not ctrls and name == "sx":
                 sink.named("sxdg", (), qubits)
                 return True
@@ -270,23 +254,15 @@ class Expander:
             sink.named("x", (), q)
         return True
 
-    def expand(
-        self,
-        sink: Sink,
-        gate: n.GateDef,
-        params: tuple[float, ...],
-        qubits: tuple[int, ...],
-        ctrls: Controls,
-        inv: bool,
-    ) -> None:
-        scope = dict(zip(gate.params, params, strict=True))
-        where = dict(zip(gate.qubits, qubits, strict=True))
-        body = reversed(gate.body) if inv else iter(gate.body)
+    def expand(self, sink: Sink, gate: n.GateDef, call: Call) -> None:
+        scope = dict(zip(gate.params, call.params, strict=True))
+        where = dict(zip(gate.qubits, call.qubits, strict=True))
+        body = reversed(gate.body) if call.inv else iter(gate.body)
         for stmt in body:
             self.charge(STEP_COST)
             if isinstance(stmt, n.Barrier):
-                mapped = tuple(where[o.tok.text] for o in stmt.operands) or qubits
-                if not ctrls:
+                mapped = tuple(where[o.tok.text] for o in stmt.operands) or call.qubits
+                if not call.ctrls:
                     sink.barrier(mapped)
                 continue
             assert isinstance(stmt, n.GateCall)
@@ -304,4 +280,6 @@ class Expander:
                 )
             if target == "gphase" and not any(k in ("ctrl", "negctrl") for k, _, _ in call_mods):
                 targets = ()
-            self.apply(sink, call_mods, target, values, targets, ctrls, inv, stmt.tok)
+            self.apply(
+                sink, call_mods, Call(target, values, targets, call.ctrls, call.inv, stmt.tok)
+            )
