@@ -13,6 +13,7 @@ from collections.abc import Callable, Sequence
 from concurrent.futures import ThreadPoolExecutor
 from concurrent.futures.process import BrokenProcessPool
 from dataclasses import dataclass, field
+from functools import partial
 from typing import Any, TypeVar, cast
 
 from jobkeeper._execution import LocalRunner, build_task
@@ -197,7 +198,8 @@ class JobSteps:
             raise LeaseLost(f"job {claim.job.id}: lease lost before archiving")
 
     async def _commit(self, completions: Sequence[Completion]) -> list[bool]:
-        return await self._store(self.store.finish, completions, self.sealer.appender)
+        # Through the sealer: it writes the committed checkpoint to the keep's witness.
+        return await self._store(self.sealer.commit, partial(self.store.finish, completions))
 
     async def _record_tries(self, held: Held) -> None:
         """Record the tries the backend retried inside its last call, before the job's

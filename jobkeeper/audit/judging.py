@@ -19,6 +19,7 @@ import json
 import uuid
 from collections.abc import Mapping
 from dataclasses import dataclass, field
+from functools import partial
 from typing import TYPE_CHECKING, Any
 
 from jobkeeper.backend import Task
@@ -112,7 +113,7 @@ def _archive(
     envelope = sealer.seal_comparison(document, {"kind": kind, "verdict": comparison.verdict,
                                                   "jobKeyA": report["jobKeyA"],
                                                   "jobKeyB": report["jobKeyB"]})  # fmt: skip
-    store.record_comparison(record, envelope, sealer.fingerprint, sealer.appender)
+    sealer.commit(partial(store.record_comparison, record, envelope, sealer.fingerprint))
     return record
 
 

@@ -9,19 +9,22 @@ one per bit of the size), so an append costs O(log n) hashes however long the lo
 
 from __future__ import annotations
 
+import contextlib
 import datetime as dt
 import functools
 import platform
 import sys
-from collections.abc import Sequence
-from typing import Any
+from collections.abc import Callable, Sequence
+from pathlib import Path
+from typing import Any, TypeVar
 
 import numpy as np
 from cryptography.hazmat.primitives.asymmetric.ed25519 import Ed25519PrivateKey
 
 from jobkeeper._version import __version__
+from jobkeeper.audit.witness import write_witness
 from jobkeeper.backend import BackendInfo, Result
-from jobkeeper.provenance.checkpoint import format_checkpoint, sign_note
+from jobkeeper.provenance.checkpoint import PREVIOUS_SIZE, format_checkpoint, sign_note
 from jobkeeper.provenance.dsse import PAYLOAD_TYPE, envelope_bytes, sign_envelope
 from jobkeeper.provenance.keys import fingerprint
 from jobkeeper.provenance.manifest import (
@@ -32,9 +35,10 @@ from jobkeeper.provenance.manifest import (
     statement_bytes,
 )
 from jobkeeper.provenance.merkle import leaf_hash, node_hash
-from jobkeeper.store import Attempt, Claim, Completion
+from jobkeeper.store import Attempt, Claim, Completion, LogAppender
 
 HASH_SIZE = 32
+T = TypeVar("T")
 
 
 def rfc3339(seconds: float | None) -> str | None:
@@ -92,13 +96,43 @@ def frontier_root(frontier: Sequence[tuple[int, bytes]]) -> bytes:
     return root
 
 
-class Sealer:
-    """Signs manifests and checkpoints with one keep's active key."""
+def log_state_of(leaves: Sequence[bytes]) -> bytes:
+    """The saved log state (compact range) of a log with these leaf hashes."""
+    frontier: list[tuple[int, bytes]] = []
+    for leaf in leaves:
+        frontier_append(frontier, leaf)
+    return _pack(frontier)
 
-    def __init__(self, key: Ed25519PrivateKey, *, origin: str) -> None:
+
+class Sealer:
+    """Signs manifests and checkpoints with one keep's active key. With a ``witness``
+    path, :meth:`commit` records each committed checkpoint there (see
+    :mod:`jobkeeper.audit.witness`)."""
+
+    def __init__(self, key: Ed25519PrivateKey, *, origin: str, witness: Path | None = None) -> None:
         self.key = key
         self.fingerprint = fingerprint(key)
         self.origin = origin
+        self.witness = witness
+        self._signed: str | None = None  # the note of the transaction under way
+
+    def commit(self, step: Callable[[LogAppender], T]) -> T:
+        """Run one store call that appends to the log with :meth:`appender` (``finish``,
+        ``record_comparison``); once it has committed, write its checkpoint to the
+        witness. A checkpoint whose transaction did not commit is never written."""
+        self._signed = None
+        try:
+            out = step(self.appender)
+            note, self._signed = self._signed, None
+        except BaseException:
+            self._signed = None
+            raise
+        if note is not None and self.witness is not None:
+            # The archive holds the result; a witness that stays behind is still one the
+            # log extends (verify brings it forward). Never fail a job for it.
+            with contextlib.suppress(OSError):
+                write_witness(self.witness, note)
+        return out
 
     def predicate(
         self, claim: Claim, result: Result, info: BackendInfo, attempts: Sequence[Attempt]
@@ -197,7 +231,9 @@ class Sealer:
         for leaf in leaves:
             frontier_append(frontier, leaf)
         root = frontier_root(frontier)
-        note = sign_note(
-            format_checkpoint(self.origin, size + len(leaves), root), self.origin, self.key
-        )
+        # The extension line links each checkpoint to the one before it (the log's size
+        # before this append), so that a deleted checkpoint leaves a gap verify sees.
+        text = format_checkpoint(self.origin, size + len(leaves), root, [f"{PREVIOUS_SIZE} {size}"])
+        note = sign_note(text, self.origin, self.key)
+        self._signed = note
         return leaves, _pack(frontier), root, note

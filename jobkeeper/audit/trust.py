@@ -230,6 +230,12 @@ class KeepTrust:
     def load(self) -> TrustSet:
         return load_trust(self.keep, self.keyring)
 
+    def for_verify(self) -> tuple[TrustSet, list[str]]:
+        """The trusted keys, and what a keep made before trust roots is told at its first
+        verify (its list is started now)."""
+        notice = first_use_notice(self.keep, self.keyring, self.store.public_keys())
+        return self.load(), [notice] if notice else []
+
     def add(
         self, fingerprint: str, name: str, *, key_file: str | os.PathLike[str] | None = None
     ) -> tuple[TrustedKey, bool]:

@@ -17,7 +17,16 @@ from pathlib import Path
 from typing import TYPE_CHECKING
 
 from jobkeeper.audit import trust
+from jobkeeper.audit.sealing import log_state_of
 from jobkeeper.audit.trust import TrustSet
+from jobkeeper.audit.witness import (
+    Anchor,
+    check_extends,
+    latest_checkpoint,
+    read_anchor,
+    read_witness,
+    write_witness,
+)
 from jobkeeper.exceptions import JobkeeperError, ProvenanceError, VerificationError
 from jobkeeper.provenance import (
     MerkleTree,
@@ -28,21 +37,16 @@ from jobkeeper.provenance import (
     verify_log,
     write_bundle,
 )
-from jobkeeper.provenance.checkpoint import verify_checkpoint
+from jobkeeper.provenance.checkpoint import parse_checkpoint, split_note, verify_checkpoint
 from jobkeeper.provenance.dsse import key_table, verify_envelope_detailed
 from jobkeeper.provenance.log import LogEntry as VerifiableEntry
 from jobkeeper.provenance.log import check_public_keys
+from jobkeeper.provenance.merkle import leaf_hash
 from jobkeeper.provenance.trusted import check_fingerprint
 
 if TYPE_CHECKING:
-    from jobkeeper.keeper import Keeper
-
-
-def _trust(keeper: Keeper, report: VerifyReport) -> TrustSet:
-    notice = trust.first_use_notice(keeper.path, keeper.keyring, keeper.store.public_keys())
-    if notice:
-        report.warnings.append(notice)
-    return trust.load_trust(keeper.path, keeper.keyring)
+    from jobkeeper.store import LogEntry as StoredEntry
+    from jobkeeper.store import Store, StoredCheckpoint
 
 
 def _pin(base: TrustSet, pinned: Iterable[str], listed: Mapping[str, bytes]) -> TrustSet:
@@ -82,18 +86,43 @@ def check_signers(
             f"{len(indexes)} entr{'y' if len(indexes) == 1 else 'ies'} (log index {shown}) "
             f"signed by key {fp}, which is not trusted here; to trust it: {hint(fp)}"
         )
-    trusted_raw = list(trusted.keys.values())
+    current = [raw for fp, raw in trusted.keys.items() if fp not in trusted.retired_from]
     for j, note in enumerate(notes):
         try:
-            verify_checkpoint(note, trusted_raw, origin=origin)
+            verify_checkpoint(note, current, origin=origin)
             continue  # the usual case: one more signature check per checkpoint
         except VerificationError:
             pass
+        late = _retired_signer(note, trusted, origin)
+        if late is not None:
+            if late:
+                report.problems.append(f"checkpoint {j}: {late}")
+            continue
         try:
             verify_checkpoint(note, list(all_keys.values()), origin=origin)
         except VerificationError:
             continue  # an integrity problem, reported by the integrity pass
         report.trust_problems.append(f"checkpoint {j} is signed by no key trusted here")
+
+
+def _retired_signer(note: str, trusted: TrustSet, origin: str | None) -> str | None:
+    """None when no retired key signed the checkpoint; else "" when it signed within its
+    time, or the problem when it signed a checkpoint covering entries of its successor."""
+    for fp, start in trusted.retired_from.items():
+        raw = trusted.keys.get(fp)
+        if raw is None:
+            continue
+        try:
+            cp = verify_checkpoint(note, [raw], origin=origin)
+        except VerificationError:
+            continue
+        if cp.size <= start:
+            return ""
+        return (
+            f"size {cp.size}, signed by retired key {fp} after its retirement: its "
+            f"successor signs from log index {start}"
+        )
+    return None
 
 
 def _finish(report: VerifyReport, integrity_only: bool, what: str) -> None:
@@ -105,27 +134,31 @@ def _finish(report: VerifyReport, integrity_only: bool, what: str) -> None:
         )
 
 
-def verify_jobs(
-    keeper: Keeper,
+def verify_archive(
+    store: Store,
+    trust_set: TrustSet,
     ids: Sequence[str] | None = None,
     *,
     trusted: Iterable[str] | None = None,
     integrity_only: bool = False,
+    witness: Path | None = None,
+    since: Sequence[Path] = (),
 ) -> VerifyReport:
     """Verify the whole log and the named jobs (all done jobs when ``ids`` is None).
 
-    Signers are checked against the keep's trusted keys (its own and those its owner
-    trusted), or only the ``trusted`` fingerprints when given (a one-off ``--key``)."""
-    store = keeper.store
+    Signers are checked against ``trust_set`` (the keep's own keys and those its owner
+    trusted), or only the ``trusted`` fingerprints when given (a one-off ``--key``). The
+    log must extend the keep's ``witness`` file and every checkpoint in ``since`` (a
+    bundle, witness or checkpoint held elsewhere); a keep with no witness gets one here."""
     pre = VerifyReport()
     listed = {fp: base64.b64decode(key) for fp, key in store.public_keys().items()}
-    trust_set = _trust(keeper, pre)
     if trusted is not None:
         trust_set = _pin(trust_set, trusted, listed)
         for fp in sorted(set(map(check_fingerprint, trusted)) - set(trust_set.keys)):
             pre.problems.append(f"pinned key {fp} is not among the keys this log lists")
     # Integrity is checked with every key at hand (our own copy wins); trust apart.
     keys = {**listed, **trust_set.keys}
+    anchors = [read_anchor(path) for path in since]  # an unreadable file: exit before work
     entries = store.log_entries()
     stored_counts = store.all_counts()
     reports = {c.id: c.report for c in store.comparisons()}
@@ -147,11 +180,17 @@ def verify_jobs(
         verifiable.append(
             VerifiableEntry(entry.envelope, entry.signer, document=document, job_key=key)
         )
-    notes = [cp.note for cp in store.checkpoints()]
+    stored = store.checkpoints()
+    notes = [cp.note for cp in stored]
     origin = store.get_meta("origin")
     report = verify_log(verifiable, notes, keys, origin=origin)
     report.problems[:0] = pre.problems
     report.warnings[:0] = pre.warnings
+    tree = check_log_state(store, entries, stored, report)
+    latest = latest_checkpoint(notes[-1:], keys)
+    found = _witness(witness, report)
+    for anchor in ([found] if found is not None else []) + anchors:
+        check_extends(anchor, tree, latest, list(keys.values()), origin, report)
     if integrity_only:
         _finish(report, True, "the archive")
     else:
@@ -170,13 +209,99 @@ def verify_jobs(
         report.checked = len(wanted)
     if not entries and ids is None:
         report.warnings.append("the log is empty: no done job to verify")
+    if witness is not None and report.ok and notes:
+        _advance_witness(witness, notes[-1], found is None, report)
     return report
 
 
-def export_bundle(keeper: Keeper, ids: Sequence[str], path: Path, *, force: bool = False) -> int:
+def require_ok(report: VerifyReport, what: str) -> None:
+    """VerificationError (exit 1) unless the report is clean: commands that hand data on
+    (bundle, export) never hand on what does not verify."""
+    if not report.ok:
+        found = [*report.problems, *report.trust_problems]
+        raise VerificationError(
+            f"{what}: the archive does not verify ({len(found)} problem(s)): "
+            + "; ".join(found[:3])
+            + ("; …" if len(found) > 3 else "")
+            + " (see jobkeeper verify --all)"
+        )
+
+
+def _witness(path: Path | None, report: VerifyReport) -> Anchor | None:
+    if path is None:
+        return None
+    try:
+        return read_witness(path)
+    except VerificationError as exc:
+        report.problems.append(str(exc))
+        return None
+
+
+def _advance_witness(path: Path, note: str, first: bool, report: VerifyReport) -> None:
+    """After a clean verify, the witness moves up to the archive's latest checkpoint (a
+    keep made before witnesses gets its first one, and is told)."""
+    try:
+        write_witness(path, note)
+    except (OSError, ProvenanceError) as exc:
+        if first:
+            report.warnings.append(f"no witness could be written at {path}: {exc}")
+        return
+    if first:
+        report.warnings.append(
+            f"this keep had no witness of its log: one is written now ({path}); from now on "
+            "verify proves the log extends it, but a rollback before today cannot be seen "
+            "here (only from a bundle or checkpoint held elsewhere: verify --since FILE)"
+        )
+
+
+def check_log_state(
+    store: Store,
+    entries: Sequence[StoredEntry],
+    checkpoints: Sequence[StoredCheckpoint],
+    report: VerifyReport,
+) -> MerkleTree:
+    """What the archive keeps beside the entries must be what they give: each stored
+    leaf hash, each checkpoint row's size and root, and the saved log state the next
+    append starts from. Returns the tree of the entries."""
+    leaves = []
+    for position, entry in enumerate(entries):
+        leaf = leaf_hash(entry.envelope)
+        leaves.append(leaf)
+        if entry.index != position:
+            report.problems.append(
+                f"log index {entry.index} stands at position {position}: an entry is missing"
+            )
+        if entry.leaf_hash != leaf:
+            report.problems.append(
+                f"log index {entry.index}: its stored leaf hash is not the hash of its envelope"
+            )
+    tree = MerkleTree(leaves)
+    for cp in checkpoints:
+        try:
+            said = parse_checkpoint(split_note(cp.note)[0])
+        except VerificationError:
+            continue  # the note itself is reported by the log check
+        if (said.size, said.root) != (cp.size, cp.root):
+            report.problems.append(
+                f"checkpoint row of size {cp.size}: its size or root column differs from "
+                "its signed note"
+            )
+    state = store.log_state()
+    if state is None:
+        if leaves:
+            report.problems.append("the saved log state is missing: the log has entries")
+    elif state != (len(leaves), log_state_of(leaves)):
+        report.problems.append(
+            f"the saved log state (size {state[0]}) is not the one the {len(leaves)} entries "
+            "give: the next entry would be appended to a wrong tree"
+        )
+    return tree
+
+
+def export_bundle(store: Store, ids: Sequence[str], path: Path, *, force: bool = False) -> int:
     """Write an audit bundle of the given done jobs to ``path`` (never over an existing
-    file unless ``force``); returns how many."""
-    store = keeper.store
+    file unless ``force``); returns how many. The caller verifies the archive first
+    (:func:`verify_archive`)."""
     entries = store.log_entries()
     checkpoints = store.checkpoints()
     if not checkpoints:
@@ -247,4 +372,11 @@ def _no_keep_hint(path: Path) -> Callable[[str], str]:
     )
 
 
-__all__ = ["check_signers", "export_bundle", "verify_bundle_file", "verify_jobs"]
+__all__ = [
+    "check_log_state",
+    "check_signers",
+    "export_bundle",
+    "require_ok",
+    "verify_archive",
+    "verify_bundle_file",
+]

@@ -101,6 +101,14 @@ def verify(
         bool,
         typer.Option("--integrity-only", help="Check everything but whether signers are trusted."),
     ] = False,
+    since: Annotated[
+        list[Path] | None,
+        typer.Option(
+            "--since",
+            metavar="FILE",
+            help="A bundle, witness or checkpoint kept elsewhere: prove the log extends it.",
+        ),
+    ] = None,
     keep: KeepOpt = None,
     store: StoreOpt = None,
     json_out: JsonOpt = False,
@@ -111,6 +119,8 @@ def verify(
 
     targets = targets or []
     if len(targets) == 1 and Path(targets[0]).is_file():
+        if since:
+            raise ConfigError("--since checks a keep's log; a bundle carries its own checkpoint")
         with activity(f"verifying {targets[0]}"):
             report = verify_bundle_file(
                 Path(targets[0]), trusted=key, trust_set=_keep_trust(keep),
@@ -118,14 +128,18 @@ def verify(
             )  # fmt: skip
         _print_report(report, json_out, "bundle entries")
         return
-    if not targets and not all_jobs:
-        raise ConfigError("give job ids, a bundle file, or --all")
+    if not targets and not all_jobs and not since:
+        raise ConfigError("give job ids, a bundle file, --all or --since FILE")
+    for path in since or []:
+        if not path.is_file():
+            raise ConfigError(f"--since {path}: no such file")
     keeper = open_keeper(keep, store, create=False)
     what = "log entries (jobs and comparisons)" if all_jobs else "jobs"
     with activity(f"verifying {what}"):
         report = keeper.verify(
-            None if all_jobs else targets, trusted=key, integrity_only=integrity_only
-        )
+            None if all_jobs or not targets else targets, trusted=key,
+            integrity_only=integrity_only, since=since or (),
+        )  # fmt: skip
     _print_report(report, json_out, what)
 
 

@@ -72,6 +72,10 @@ class Keeper(KeepProof):
             from jobkeeper.audit.trust import start_trust_file
 
             start_trust_file(keep)
+        if not location.startswith("postgres") and not Path(location).exists():
+            from jobkeeper.audit.witness import refuse_lost_archive
+
+            refuse_lost_archive(keep, location)
         the_store = open_store(location, create=create)
         keeper = cls(path=keep, store=the_store, config=config, keyring=keyring)
         if keyring.exists():

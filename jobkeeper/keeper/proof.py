@@ -73,16 +73,23 @@ class KeepProof(KeepRuns):
 
     def verify(
         self, ids: Sequence[str] | None = None, *, trusted: Iterable[str] | None = None,
-        integrity_only: bool = False,
+        integrity_only: bool = False, since: Sequence[str | os.PathLike[str]] = (),
     ) -> VerifyReport:  # fmt: skip
         """Verify the whole log and the named jobs (every done job when ``ids`` is None):
-        integrity, and that every signer is trusted here (``trusted``: only these key
+        integrity, that the log extends the keep's witness and each checkpoint or bundle in
+        ``since``, and that every signer is trusted here (``trusted``: only these key
         fingerprints; ``integrity_only``: skip the trust check)."""
-        from jobkeeper.audit.verification import verify_jobs
+        from jobkeeper.audit.verification import verify_archive
+        from jobkeeper.audit.witness import WITNESS_NAME
 
         wanted = None if ids is None else [self.job(i).id for i in ids]
-        # verification still takes the whole Keeper (it reads the store and the trust set)
-        return verify_jobs(self, wanted, trusted=trusted, integrity_only=integrity_only)  # type: ignore[arg-type]
+        trust_set, notices = self.trust.for_verify()
+        report = verify_archive(
+            self.store, trust_set, wanted, trusted=trusted, integrity_only=integrity_only,
+            witness=self.path / WITNESS_NAME, since=[Path(p) for p in since],
+        )  # fmt: skip
+        report.warnings[:0] = notices
+        return report
 
     @staticmethod
     def verify_bundle(
@@ -101,8 +108,9 @@ class KeepProof(KeepRuns):
     ) -> int:  # fmt: skip
         """Write the named done jobs, and those with ``label``, to one bundle file that a
         referee verifies offline; returns how many jobs it holds. Never over an existing
-        file unless ``force``, never inside the keep (see :mod:`jobkeeper.outputs`)."""
-        from jobkeeper.audit.verification import export_bundle
+        file unless ``force``, never inside the keep (see :mod:`jobkeeper.outputs`), never
+        from an archive that does not verify."""
+        from jobkeeper.audit.verification import export_bundle, require_ok
 
         if label is None and not ids:
             raise ConfigError("give job ids or a label")
@@ -112,7 +120,9 @@ class KeepProof(KeepRuns):
             chosen |= {job.id for job in self.jobs(label=label, state="done")}
         if not chosen:
             raise ConfigError(f"no done job with label {label!r}")
-        return export_bundle(self, sorted(chosen), Path(path), force=force)  # type: ignore[arg-type]
+        # Never a bundle of forgeries; whose signatures count is the referee's to judge.
+        require_ok(self.verify(sorted(chosen), integrity_only=True), "not bundled")
+        return export_bundle(self.store, sorted(chosen), Path(path), force=force)
 
     def rerun(
         self, job: Job | str, *, backend: str | None = None, seed: int | None = None,
@@ -170,8 +180,7 @@ class KeepProof(KeepRuns):
         analysis (see :mod:`jobkeeper.store.export`). The counts of done jobs are checked
         against their signed manifests first (VerificationError if any fails). Refuses to
         replace an existing file unless ``force``, and any path inside the keep."""
-        from jobkeeper.audit.verification import verify_jobs
-        from jobkeeper.exceptions import VerificationError
+        from jobkeeper.audit.verification import require_ok
         from jobkeeper.store.export import export_jobs
 
         guarded = self.guarded_paths()
@@ -179,11 +188,7 @@ class KeepProof(KeepRuns):
         records = self.store.list_jobs(label=label)
         done = [r.id for r in records if r.state == "done"]
         if done:
-            report = verify_jobs(self, done)  # type: ignore[arg-type]
-            if not report.ok:
-                raise VerificationError(
-                    "not exported: the archive does not verify: " + "; ".join(report.problems[:3])
-                )
+            require_ok(self.verify(done), "not exported")
         return export_jobs(
             self.store, records, Path(path), guarded=guarded, force=force, label=label,
             origin=self.store.get_meta("origin"),

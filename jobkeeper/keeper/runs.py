@@ -155,9 +155,10 @@ class KeepRuns(KeepCore):
 
     def sealer(self) -> Sealer:
         from jobkeeper.audit.sealing import Sealer
+        from jobkeeper.audit.witness import WITNESS_NAME
 
         origin = self.store.get_meta("origin") or "jobkeeper"
-        return Sealer(self.keyring.load_active(), origin=origin)
+        return Sealer(self.keyring.load_active(), origin=origin, witness=self.path / WITNESS_NAME)
 
     def worker(self, **settings: Unpack[WorkerSettings]) -> Worker:
         """A worker draining this keep (retry and poll policies default to the keep's

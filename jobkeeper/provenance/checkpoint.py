@@ -30,6 +30,11 @@ SIGNATURE_PREFIX = "\u2014 "  # em dash, space
 ED25519_TYPE = 0x01
 MAX_SIGNATURES = 100  # the spec lets verifiers cap the number of signature lines
 
+#: The extension line jobkeeper adds to each checkpoint: ``previous <size>``, the size of
+#: the checkpoint signed before it (0 for the first), so the chain of checkpoints has no
+#: silent gaps. Extension lines are free-form in C2SP tlog-checkpoint.
+PREVIOUS_SIZE = "previous"
+
 _KEY_NAME = re.compile(r"[^\s+]+")
 _DECIMAL = re.compile(r"0|[1-9][0-9]*")
 _B64 = re.compile(r"[A-Za-z0-9+/]+={0,2}")
@@ -59,6 +64,15 @@ class Checkpoint:
     size: int
     root: bytes
     extensions: tuple[str, ...] = field(default=())
+
+    @property
+    def previous_size(self) -> int | None:
+        """The size of the checkpoint before this one, when the note says it."""
+        for line in self.extensions:
+            name, _, value = line.partition(" ")
+            if name == PREVIOUS_SIZE and _DECIMAL.fullmatch(value):
+                return int(value)
+        return None
 
 
 def _check_origin(origin: str) -> None:

@@ -212,16 +212,36 @@ def _check_checkpoints(
         else:
             matched = max(matched, cp.size)
             root_matches = True
+        _check_link(label, cp, previous[1] if previous is not None else None, report)
         if previous is not None:
             _check_pair(tree, previous, (j, cp), report, previous_matched and root_matches)
         previous, previous_matched = (j, cp), root_matches
+    # Each append commits its checkpoint in the same transaction: an entry no checkpoint
+    # covers was added behind the log's back, or its checkpoint was deleted.
     if previous is None:
         if tree.size:
-            report.warnings.append("no valid signed checkpoint: the order of entries is unproven")
+            report.problems.append(
+                "no valid signed checkpoint: every checkpoint was removed or damaged, and "
+                "the order of the entries is unproven"
+            )
     elif previous[1].size < tree.size:
-        report.warnings.append(
-            f"entries {previous[1].size}..{tree.size - 1} are not yet covered by a signed "
-            "checkpoint"
+        report.problems.append(
+            f"entries {previous[1].size}..{tree.size - 1} are covered by no signed "
+            "checkpoint: a checkpoint was removed or entries were added"
+        )
+
+
+def _check_link(
+    label: str, cp: Checkpoint, before: Checkpoint | None, report: VerifyReport
+) -> None:
+    """A checkpoint that names the size of the one before it (``previous N``) must
+    follow exactly that one: otherwise a checkpoint between them was removed."""
+    said = cp.previous_size
+    had = 0 if before is None else before.size
+    if said is not None and said != had:
+        report.problems.append(
+            f"{label}: follows the checkpoint of size {said}, but the one before it "
+            f"{'is missing' if before is None else f'has size {had}'}: a checkpoint was removed"
         )
 
 

@@ -328,6 +328,11 @@ class Store(Protocol):
 
     def checkpoints(self) -> list[StoredCheckpoint]: ...
 
+    def log_state(self) -> tuple[int, bytes] | None:
+        """The log's saved state as the next append will read it: (size, compact range),
+        None for a log never appended to. ``verify`` recomputes it from the entries."""
+        ...
+
     def register_key(self, fingerprint: str, public_key_b64: str) -> None:
         """List a signing key's public half; the log names it as signer of its entries."""
         ...

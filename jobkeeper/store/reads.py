@@ -223,6 +223,10 @@ class StoreReads:
         rows = self._read(sql.CHECKPOINTS)
         return [StoredCheckpoint(int(s), bytes(r), n, c) for s, r, n, c in rows]
 
+    def log_state(self) -> tuple[int, bytes] | None:
+        rows = self._read(sql.READ_LOG_STATE)
+        return (int(rows[0][0]), bytes(rows[0][1])) if rows else None
+
     def comparisons(self, job_id: str | None = None) -> list[ComparisonRecord]:
         where, params = (sql.COMPARISONS_OF_JOB, (job_id, job_id)) if job_id else ("", ())
         rows = self._read(sql.COMPARISONS, params, where=where)

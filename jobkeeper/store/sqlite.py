@@ -107,6 +107,22 @@ def _in_list(column: str, values: Sequence[str]) -> tuple[str, list[Any]]:
     return f"{column} IN ({', '.join('?' for _ in values)})", list(values)
 
 
+def _refuse_emptied(path: Path) -> None:
+    """An archive file that exists but holds nothing (truncated to zero, or a crash in the
+    instant between creating it and writing its first page) is never started afresh: a
+    new archive over it would hide that everything it held is gone."""
+    try:
+        empty = path.is_file() and path.stat().st_size == 0
+    except OSError:
+        return  # opening it says what is wrong
+    if empty:
+        raise StoreUnavailable(
+            f"the archive at {path} is an empty file (0 bytes): what it held is gone; restore "
+            "it from a backup (jobkeeper will not start a new archive over it; move the file "
+            "away to start afresh)"
+        )
+
+
 class SqliteStore(StoreReads):
     """The archive in one SQLite file. Safe for several processes on one machine (not on a
     network file system); one connection per store object, used by one thread at a time."""
@@ -119,6 +135,7 @@ class SqliteStore(StoreReads):
         self._where = f"the archive at {self.path}"
         if not self.path.exists() and not create:
             raise StoreUnavailable(f"no archive at {self.path} (run 'jobkeeper init' first)")
+        _refuse_emptied(self.path)
         try:
             self.path.parent.mkdir(parents=True, exist_ok=True)
         except OSError as exc:

@@ -78,14 +78,15 @@ def bundle_digest(keeper: Keeper, found: Found) -> str:
     entries against the log's latest checkpoint, so the digest is that of the bundle as
     the log stands now: the same record drawn again after the log has grown names a newer
     bundle, which verifies the same entry."""
-    from jobkeeper.audit.verification import export_bundle
+    from jobkeeper.audit.verification import export_bundle, require_ok
 
     with tempfile.TemporaryDirectory(prefix="jobkeeper-figure-") as tmp:
         path = Path(tmp) / "bundle.json"
         if found.kind == "job":
             keeper.bundle(path, [found.id])
-        else:
-            export_bundle(keeper, [found.id], path)
+        else:  # as keeper.bundle does for a job: never a bundle of an unverified archive
+            require_ok(keeper.verify(integrity_only=True), "not drawn")
+            export_bundle(keeper.store, [found.id], path)
         return "sha256:" + hashlib.sha256(path.read_bytes()).hexdigest()
 
 

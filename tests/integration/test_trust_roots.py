@@ -17,7 +17,6 @@ import pytest
 
 from jobkeeper import Keeper
 from jobkeeper.audit.trust import TRUST_FILE
-from jobkeeper.audit.verification import verify_jobs
 from jobkeeper.cli import main
 from jobkeeper.exceptions import ConfigError, VerificationError
 from tests.integration.helpers import circuit_text
@@ -105,7 +104,7 @@ def test_the_trusted_list_lives_outside_the_archive_and_pins_the_key(
         conn.execute("DELETE FROM public_keys")
     conn.close()
     with Keeper.open(owner, create=False) as keeper:  # re-lists only the owner's own key
-        assert verify_jobs(keeper).ok
+        assert keeper.verify().ok
 
 
 def test_trust_add_takes_the_key_from_a_file_and_checks_it(
@@ -199,7 +198,7 @@ def test_rotation_keeps_old_entries_and_refuses_the_retired_key_after_its_index(
     new = rotated["fingerprint"]
     with Keeper.open(owner, create=False) as keeper:
         keeper.run(circuit_text(0.3), shots=32, seed=2)
-        report = verify_jobs(keeper)
+        report = keeper.verify()
         assert report.ok, report.problems  # two entries by the old key, one by the new
         assert {e.signer for e in keeper.store.log_entries()} == {old, new}
     # A worker still holding the old key signs after the rotation: the store accepts the
@@ -211,6 +210,10 @@ def test_rotation_keeps_old_entries_and_refuses_the_retired_key_after_its_index(
     code, out, _ = jk(capsys, "verify", "--all", "--keep", str(owner))
     assert code == 1
     assert f"log index 3: signed by retired key {old} after its retirement" in out
+    # Its checkpoint too (size 4 covers the new key's entry 2): flagged, unlike the old
+    # key's checkpoint of size 2, signed before the rotation.
+    assert f"checkpoint 2: size 4, signed by retired key {old} after its retirement" in out
+    assert "checkpoint 1:" not in out and "checkpoint 0:" not in out
     code, out, _ = jk(capsys, "trust", "list", "--keep", str(owner))
     assert f"{old}  this keep  [own, retired from log index 2" in out
 

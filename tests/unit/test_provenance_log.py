@@ -63,8 +63,12 @@ def test_clean_log_verifies() -> None:
     report = verify_log(ENTRIES, NOTES, KEYS, origin=ORIGIN)
     assert report.ok, report.problems
     assert report.checked == 12 and report.warnings == []
+    # Each append commits its checkpoint: entries no checkpoint covers are a finding.
     report = verify_log(ENTRIES + make_log(1, 100)[0][:0], NOTES[:2], KEYS)
-    assert report.ok and "8..11" in report.warnings[0]  # tail not yet checkpointed
+    assert report.problems == [
+        "entries 8..11 are covered by no signed checkpoint: a checkpoint was removed or "
+        "entries were added"
+    ]
 
 
 def test_entry_rewritten_and_resigned_with_the_right_key_is_caught() -> None:
@@ -188,5 +192,5 @@ def test_without_stored_counts_the_predicate_counts_are_checked() -> None:
     statement["predicate"]["counts"] = {"0": 2}
     env = envelope_bytes(sign_envelope(statement_bytes(statement), PAYLOAD_TYPE, KEY))
     report = verify_log([LogEntry(env, fingerprint(KEY))], [], KEYS)
-    assert len(report.problems) == 1 and "counts digest mismatch" in report.problems[0]
-    assert "no valid signed checkpoint" in report.warnings[0]
+    assert len(report.problems) == 2 and "counts digest mismatch" in report.problems[0]
+    assert "no valid signed checkpoint" in report.problems[1]
