@@ -125,6 +125,13 @@ class LeaseLost(StoreError):
     exit_code = 1
 
 
+class DamagedRecord(StoreError):
+    """A row of the archive does not hold what it must (unreadable JSON, a seed that is
+    no number): altered or damaged. A verification problem, not an unreachable store."""
+
+    exit_code = 1
+
+
 class BudgetExceeded(JobkeeperError):
     """The submission would exceed a spending cap."""
 

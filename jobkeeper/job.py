@@ -8,7 +8,7 @@ the command line and of the Python API takes its values from here.
 from __future__ import annotations
 
 import time
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
 
 from jobkeeper.exceptions import JobFailed
@@ -42,9 +42,14 @@ def wait_for(
 class Job:
     """A job in a keep. Attributes read the archive afresh after :meth:`refresh`."""
 
-    def __init__(self, store: Store, record: JobRecord) -> None:
+    def __init__(
+        self, store: Store, record: JobRecord, keys: Callable[[], Mapping[str, bytes]] | None = None
+    ) -> None:
         self._store = store
         self.record = record
+        # The keys trusted here: with them, every read of the result is checked against
+        # the signed manifest (jobkeeper.audit.reading); a Keeper always gives them.
+        self._keys = keys
 
     def __repr__(self) -> str:
         return f"<Job {self.id[:12]} {self.state} on {self.spec.backend}>"
@@ -76,7 +81,13 @@ class Job:
 
     @property
     def result(self) -> StoredResult | None:
-        return self._store.result(self.id)
+        """The archived result; checked against the signed manifest on every read (exit 1,
+        VerificationError, when it is not the signed one)."""
+        if self._keys is None:
+            return self._store.result(self.id)
+        from jobkeeper.audit.reading import signed_result
+
+        return signed_result(self._store, self.id, self._keys())
 
     @property
     def counts(self) -> dict[str, int]:

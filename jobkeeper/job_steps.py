@@ -184,12 +184,10 @@ class JobSteps:
 
     async def _archive(self, held: Held, backend: Backend, result: Result) -> None:
         claim = held.claim
-        # Most jobs succeed at the first try: only read their history when there is one.
-        attempts = (
-            await self._store(self.store.attempts, claim.job.id)
-            if claim.job.attempts or held.tried_in_call
-            else []
-        )
+        # Always read the history: tries a backend retried inside an earlier claim (a
+        # remote job's submission, polled to its end by a later claim; a worker that died
+        # mid-call) count no attempt, yet the manifest signs them and verify compares.
+        attempts = await self._store(self.store.attempts, claim.job.id)
         completion = self.sealer.seal(claim, result, backend.info, attempts)
         held.archiving = True
         if await self._group.archive(completion):

@@ -92,8 +92,13 @@ def job_details(keeper: Keeper, job: Job) -> dict[str, Any]:
         data["signed_envelope"] = json.loads(entry.envelope)
         data["log_index"] = entry.index
         data["signer"] = entry.signer
-        report = keeper.verify([record.id])
-        data["verification"] = {"ok": report.ok, "problems": list(report.problems)}
+    # The archive as a whole too (its log, its witness), whatever the job's state: a
+    # rolled-back archive shows its jobs as queued, and that must not pass unremarked.
+    report = keeper.verify([record.id])
+    problems = [*report.problems, *report.trust_problems]
+    data["verification"] = {"ok": report.ok, "problems": problems}
+    # What no signature covers: everything of a job not yet done, and always its labels.
+    data["unsigned"] = sorted(data) if record.state != "done" else list(UNSIGNED_OF_DONE)
     return data
 
 
@@ -137,7 +142,14 @@ def comparison_result(result: Mapping[str, Any]) -> dict[str, Any]:
     return out
 
 
+#: The fields of a done job that no manifest signs: annotations, bookkeeping, and the
+#: seed as asked for (the seed it ran with is signed).
+UNSIGNED_OF_DONE = ("labels", "source", "requested_seed", "attempts", "error", "cost",
+                    "remote_handle", "rerun_of", "comparisons")  # fmt: skip
+
+
 __all__ = [
+    "UNSIGNED_OF_DONE",
     "comparison_json",
     "comparison_result",
     "job_details",

@@ -22,6 +22,7 @@ from dataclasses import dataclass, field
 from functools import partial
 from typing import TYPE_CHECKING, Any
 
+from jobkeeper.audit.reading import signed_result
 from jobkeeper.backend import Task
 from jobkeeper.backends import ideal_simulator
 from jobkeeper.circuit import parse_qasm
@@ -83,8 +84,8 @@ def verified_manifest(store: Store, job: JobRecord, keys: Mapping[str, bytes]) -
         raise VerificationError(f"job {job.id[:12]}: its manifest does not verify: {exc}") from exc
 
 
-def _counts(store: Store, job: JobRecord) -> dict[str, int]:
-    result = store.result(job.id)
+def _counts(store: Store, job: JobRecord, keys: Mapping[str, bytes]) -> dict[str, int]:
+    result = signed_result(store, job.id, keys)  # refused unless they are the signed ones
     counts = None if result is None else result.counts
     if not counts:
         raise JobkeeperError(f"job {job.id[:12]} has no counts (an exact run?) to compare")
@@ -118,10 +119,11 @@ def _archive(
 
 
 def compare_jobs(
-    store: Store, sealer: Sealer, a: JobRecord, b: JobRecord, *, alpha: float = 0.01
-) -> Judgement:
+    store: Store, sealer: Sealer, a: JobRecord, b: JobRecord, keys: Mapping[str, bytes], *,
+    alpha: float = 0.01,
+) -> Judgement:  # fmt: skip
     """Are two jobs' counts consistent with one distribution?"""
-    comparison = compare_counts(_counts(store, a), _counts(store, b), alpha=alpha)
+    comparison = compare_counts(_counts(store, a, keys), _counts(store, b, keys), alpha=alpha)
     record = _archive(store, sealer, "pair", a, b, comparison, {"alpha": alpha})
     return Judgement(record, comparison)
 
@@ -141,7 +143,7 @@ def compare_ideal(
 ) -> Judgement:
     """Is a job's sample consistent with its circuit's exact noiseless distribution?"""
     ideal = ideal_distribution(store, a, keys)
-    comparison = compare_to_distribution(_counts(store, a), ideal, alpha=alpha)
+    comparison = compare_to_distribution(_counts(store, a, keys), ideal, alpha=alpha)
     record = _archive(store, sealer, "ideal", a, None, comparison, {"alpha": alpha})
     return Judgement(record, comparison)
 
@@ -184,14 +186,15 @@ def rerun_plan(
 
 
 def judge_rerun(
-    store: Store, sealer: Sealer, plan: RerunPlan, original: JobRecord, again: JobRecord, *,
-    deterministic_backend: bool, alpha: float = 0.01,
+    store: Store, sealer: Sealer, plan: RerunPlan, original: JobRecord, again: JobRecord,
+    keys: Mapping[str, bytes], *, deterministic_backend: bool, alpha: float = 0.01,
 ) -> Judgement:  # fmt: skip
     """Judge a rerun's counts against the original's, and archive the judgement."""
     if again.state != "done":
         raise JobkeeperError(f"the rerun (job {again.id[:12]}) ended {again.state}: {again.error}")
     deterministic = plan.same_setup and deterministic_backend
-    comparison = compare_counts(_counts(store, original), _counts(store, again), alpha=alpha,
+    comparison = compare_counts(_counts(store, original, keys), _counts(store, again, keys),
+                                alpha=alpha,
                                 deterministic=deterministic)  # fmt: skip
     seed = plan.options.seed
     extra = {"alpha": alpha, "backend": plan.options.backend,

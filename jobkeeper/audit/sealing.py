@@ -24,6 +24,7 @@ from cryptography.hazmat.primitives.asymmetric.ed25519 import Ed25519PrivateKey
 from jobkeeper._version import __version__
 from jobkeeper.audit.witness import write_witness
 from jobkeeper.backend import BackendInfo, Result
+from jobkeeper.hashing import sha256_tag
 from jobkeeper.provenance.checkpoint import PREVIOUS_SIZE, format_checkpoint, sign_note
 from jobkeeper.provenance.dsse import PAYLOAD_TYPE, envelope_bytes, sign_envelope
 from jobkeeper.provenance.keys import fingerprint
@@ -35,7 +36,7 @@ from jobkeeper.provenance.manifest import (
     statement_bytes,
 )
 from jobkeeper.provenance.merkle import leaf_hash, node_hash
-from jobkeeper.store import Attempt, Claim, Completion, LogAppender
+from jobkeeper.store import Attempt, Claim, Completion, LogAppender, metadata_text
 
 HASH_SIZE = 32
 T = TypeVar("T")
@@ -183,6 +184,9 @@ class Sealer:
                 }
                 for a in attempts
             ],
+            # The digest of the result's metadata as the archive keeps it (the metadata
+            # may hold what RFC 8785 cannot carry, such as a device's 64-bit integers).
+            "resultMetadata": sha256_tag(metadata_text(result.metadata).encode()),
             # As the backend gave them (a dict, or a CountTable that writes its own JSON).
             "counts": result.counts if result.counts is not None else {},
         }

@@ -17,6 +17,7 @@ from pathlib import Path
 from typing import TYPE_CHECKING
 
 from jobkeeper.audit import trust
+from jobkeeper.audit.mirror import check_mirrors
 from jobkeeper.audit.sealing import log_state_of
 from jobkeeper.audit.trust import TrustSet
 from jobkeeper.audit.witness import (
@@ -202,6 +203,7 @@ def verify_archive(
     wanted = (
         done_keys if ids is None else {job.id: job.job_key for job in store.get_many(list(ids))}
     )
+    check_mirrors(store, entries, None if ids is None else wanted, report)
     for job_id in wanted:
         if job_id in done_keys and job_id not in logged:
             report.problems.append(f"job {job_id[:12]} is done but has no log entry")
@@ -344,6 +346,8 @@ def verify_bundle_file(
     merged = replace(bundle, keys={**bundle.keys, **chosen.keys})
     # Every key at hand, so that the integrity pass never warns of self-asserted keys.
     report = verify_bundle(merged, list(merged.keys))
+    if not bundle.entries:
+        report.problems.append("the bundle holds no entries: it attests nothing")
     if integrity_only:
         _finish(report, True, "the bundle")
         return report

@@ -291,7 +291,9 @@ def jobs(
         return
     rows = [[r.id[:12], r.state, r.spec.backend, str(r.spec.shots), ", ".join(r.labels) or "-",
              r.spec.source_name or "-", when(r.created_at)] for r in records]  # fmt: skip
-    typer.echo(table(rows, ["ID", "STATE", "BACKEND", "SHOTS", "LABELS", "SOURCE", "CREATED"]))
+    # Labels and file names are annotations no manifest signs: the header says so.
+    headers = ["ID", "STATE", "BACKEND", "SHOTS", "LABELS (UNSIGNED)", "SOURCE", "CREATED"]
+    typer.echo(table(rows, headers))
 
 
 @app.command()
@@ -310,6 +312,8 @@ def show(
         echo_json(details.data)
     else:
         typer.echo(details.text)
+    if not details.data["verification"]["ok"]:
+        raise typer.Exit(1)  # what was shown does not match what is signed
 
 
 @app.command()

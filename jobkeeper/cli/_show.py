@@ -40,8 +40,8 @@ def _text(d: dict[str, Any]) -> str:
         f"  state      {d['state']}" + (f" ({d['error']})" if d.get("error") else ""),
         f"  backend    {d['backend']}",
         f"  shots      {d['shots']}   seed {d['seed']}{_seed_origin(d)}   repeat {d['repeat']}",
-        f"  labels     {', '.join(d['labels']) or '-'}",
-        f"  source     {d['source'] or '-'}  ({d['source_hash'] or 'no source hash'})",
+        f"  labels     {', '.join(d['labels']) or '-'}  (unsigned)",
+        f"  source     {d['source'] or '-'} (name unsigned)  ({d['source_hash'] or 'no source hash'})",
         f"  circuit    {d['circuit_hash']}",
         f"  job key    {d['job_key']}",
         f"  submitted  {d['created_at']}",
@@ -77,13 +77,18 @@ def _text(d: dict[str, Any]) -> str:
         extra = f", TVD {tvd:.4f}" if isinstance(tvd, float) else ""
         lines.append(f"  {c['kind']:<10} with {against}: {c['verdict']}{extra} "
                      f"(comparison {c['id'][:12]})")  # fmt: skip
-    if "verification" in d:
-        v = d["verification"]
+    v = d["verification"]
+    if "log_index" in d:
         status = "verified" if v["ok"] else "VERIFICATION FAILED"
         lines.append(
             f"  provenance {status}: log entry {d['log_index']}, signed by {d['signer'][:16]}…"
         )
-        lines += [f"    - {p}" for p in v["problems"]]
     elif d["state"] == "done":
         lines.append("  provenance MISSING: no log entry for this done job")
+    else:
+        lines.append(f"  provenance none yet: nothing about a {d['state']} job is signed "
+                     "(its record is signed when it is done)")  # fmt: skip
+        if not v["ok"]:
+            lines.append("  archive    VERIFICATION FAILED:")
+    lines += [f"    - {p}" for p in v["problems"]]
     return "\n".join(lines)

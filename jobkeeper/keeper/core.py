@@ -38,6 +38,13 @@ class KeepCore:
         database = None if "://" in location else Path(location)
         return guarded_paths(self.path, database)
 
+    def _trusted_keys(self) -> dict[str, bytes]:
+        """The keys whose signatures count here: every read of a result is checked
+        against its signed manifest with them (:mod:`jobkeeper.audit.reading`)."""
+        from jobkeeper.audit.trust import load_trust
+
+        return load_trust(self.path, self.keyring).keys
+
     def __enter__(self) -> Self:
         return self
 

@@ -137,7 +137,8 @@ class KeepProof(KeepRuns):
         again = self._run([plan.circuit_text], plan.options, rerun_of=original.id)[0].job
         deterministic = self.backend(plan.options.backend or "").info.deterministic
         return judge_rerun(self.store, self.sealer(), plan, original, again.record,
-                           deterministic_backend=deterministic, alpha=alpha)  # fmt: skip
+                           self._trusted_keys(), deterministic_backend=deterministic,
+                           alpha=alpha)  # fmt: skip
 
     def compare(
         self, a: Job | str, b: Job | str | None = None, *, ideal: bool = False,
@@ -151,10 +152,11 @@ class KeepProof(KeepRuns):
         if (b is None) != ideal:
             raise ConfigError("compare two jobs, or one job with its ideal distribution")
         first = self._job(a).record
+        keys = self._trusted_keys()
         if b is None:
-            keys = self.trust.load().keys
             return compare_ideal(self.store, self.sealer(), first, keys, alpha=alpha)
-        return compare_jobs(self.store, self.sealer(), first, self._job(b).record, alpha=alpha)
+        second = self._job(b).record
+        return compare_jobs(self.store, self.sealer(), first, second, keys, alpha=alpha)
 
     def comparisons(self, job: Job | str | None = None) -> list[ComparisonRecord]:
         """Archived reruns and comparisons, oldest first (those of one job, or all)."""

@@ -149,7 +149,10 @@ class KeepRuns(KeepCore):
             cost = sum(job.cost or 0.0 for job in new_jobs)
             self.config.budget.check(cost, options.labels, self.store.spent)
         results = self.store.enqueue(new_jobs)
-        return [Submitted(Job(self.store, record), not created) for record, created in results]
+        return [
+            Submitted(Job(self.store, record, self._trusted_keys), not created)
+            for record, created in results
+        ]
 
     # -- running --------------------------------------------------------------------------
 
@@ -225,18 +228,19 @@ class KeepRuns(KeepCore):
         """Block until every job has ended; ``progress(ended, total)`` is told as they do.
         TimeoutError after ``timeout`` seconds."""
         records = wait_for(self.store, ids, timeout=timeout, poll=poll, progress=progress)
-        return [Job(self.store, record) for record in records]
+        return [Job(self.store, record, self._trusted_keys) for record in records]
 
     # -- reading --------------------------------------------------------------------------
 
     def job(self, id_or_prefix: str) -> Job:
-        return Job(self.store, self.store.get(id_or_prefix))
+        return Job(self.store, self.store.get(id_or_prefix), self._trusted_keys)
 
     def jobs(
         self, *, label: str | None = None, state: str | None = None, limit: int | None = None
     ) -> list[Job]:
         return [
-            Job(self.store, r) for r in self.store.list_jobs(label=label, state=state, limit=limit)
+            Job(self.store, r, self._trusted_keys)
+            for r in self.store.list_jobs(label=label, state=state, limit=limit)
         ]
 
     def job_page(
@@ -263,4 +267,4 @@ class KeepRuns(KeepCore):
         record = self.store.get(id_or_prefix)
         if record.state in TERMINAL_STATES:
             raise JobkeeperError(f"job {record.id[:12]} has already ended ({record.state})")
-        return Job(self.store, self.store.request_cancel(record.id))
+        return Job(self.store, self.store.request_cancel(record.id), self._trusted_keys)

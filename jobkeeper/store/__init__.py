@@ -392,8 +392,13 @@ def result_row(item: Completion) -> tuple[str, str | None, str | None, str]:
         item.job_id,
         None if item.result_counts is None else counts_text(item.result_counts),
         None if item.result_probabilities is None else json.dumps(dict(item.result_probabilities)),
-        json.dumps(dict(item.metadata), sort_keys=True),
+        metadata_text(item.metadata),
     )
+
+
+def metadata_text(metadata: Mapping[str, Any]) -> str:
+    """How a store keeps a result's metadata; the manifest signs the digest of this text."""
+    return json.dumps(dict(metadata), sort_keys=True)
 
 
 def open_store(location: str | Path, *, create: bool = True) -> Store:
@@ -424,5 +429,6 @@ __all__ = [
     "StoredResult",
     "TryInCall",
     "counts_text",
+    "metadata_text",
     "open_store",
 ]

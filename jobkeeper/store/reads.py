@@ -6,10 +6,11 @@ PostgreSQL store translates the placeholders). Reads hold no transaction open.""
 from __future__ import annotations
 
 import json
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Iterator, Sequence
+from contextlib import contextmanager
 from typing import Any
 
-from jobkeeper.exceptions import AmbiguousJobId, JobNotFound
+from jobkeeper.exceptions import AmbiguousJobId, DamagedRecord, JobNotFound
 from jobkeeper.queue import JobState
 from jobkeeper.spec import JobSpec
 from jobkeeper.store import (
@@ -56,7 +57,21 @@ def claims_of(jobs: Sequence[JobRecord]) -> list[Claim]:
     ]  # fmt: skip
 
 
+@contextmanager
+def _readable(what: str) -> Iterator[None]:
+    """A row whose JSON or numbers cannot be read was altered or damaged: say which."""
+    try:
+        yield
+    except (ValueError, TypeError, KeyError, AttributeError) as exc:
+        raise DamagedRecord(f"{what} is damaged or altered: {exc}") from exc
+
+
 def record_of(row: Sequence[Any]) -> JobRecord:
+    with _readable(f"the archive's row of job {str(row[0])[:12]}"):
+        return _record_of(row)
+
+
+def _record_of(row: Sequence[Any]) -> JobRecord:
     (
         id_,
         key,
@@ -92,6 +107,18 @@ def record_of(row: Sequence[Any]) -> JobRecord:
         error=error, cancel_requested=bool(cancel), cost=cost,
         labels=tuple(sorted(json.loads(labels) or ())) if labels else (),
     )  # fmt: skip
+
+
+def _result_of(
+    job: str, counts: str | None, probabilities: str | None, metadata: str, created: float
+) -> StoredResult:
+    return StoredResult(
+        job_id=job,
+        counts=None if counts is None else json.loads(counts),
+        probabilities=None if probabilities is None else json.loads(probabilities),
+        metadata=json.loads(metadata),
+        created_at=created,
+    )
 
 
 def entry_of(row: Sequence[Any]) -> LogEntry:
@@ -196,13 +223,10 @@ class StoreReads:
         if not rows:
             return None
         job, counts, probabilities, metadata, created = rows[0]
-        return StoredResult(
-            job_id=job,
-            counts=None if counts is None else json.loads(counts),
-            probabilities=None if probabilities is None else json.loads(probabilities),
-            metadata=json.loads(metadata),
-            created_at=created,
-        )
+        with _readable(f"the archived result of job {job_id[:12]}"):
+            return _result_of(job, counts, probabilities, metadata, created)
+
+    # -- keys and the log -------------------------------------------------------------------
 
     def job_keys(self, state: str) -> dict[str, str]:
         rows = self._read(sql.JOB_KEYS_IN_STATE, (state,))

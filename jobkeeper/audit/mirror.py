@@ -1,0 +1,215 @@
+"""The archive's columns against the statements that sign them.
+
+A done job's facts live twice: in the signed manifest (the log entry's in-toto Statement)
+and in the columns every reader shows (``jobs``, ``attempts``, ``results``,
+``comparisons``). Editing a column leaves every signature valid, so ``verify`` compares
+each mirrored column with what the statement signs and reports each difference. What no
+statement signs (labels, the source file's name, the seed the user asked for before it
+was resolved, a queued job) is an annotation: readers mark it unsigned.
+
+Times: the submitted and started times are signed exactly (to the millisecond); the
+finished time is signed by the worker just before the archive records its own, so the
+archive's may lie up to :data:`FINISH_SLACK` seconds after the signed one (two clocks).
+"""
+
+from __future__ import annotations
+
+import base64
+import binascii
+import json
+from collections.abc import Iterable, Mapping, Sequence
+from typing import TYPE_CHECKING, Any
+
+from jobkeeper.audit.sealing import rfc3339
+from jobkeeper.exceptions import DamagedRecord, VerificationError
+from jobkeeper.hashing import sha256_tag
+from jobkeeper.provenance.dsse import strict_json_loads
+from jobkeeper.provenance.manifest import COMPARISON_PREDICATE_TYPE, PREDICATE_TYPE
+from jobkeeper.provenance.report import VerifyReport
+from jobkeeper.store import metadata_text
+
+if TYPE_CHECKING:
+    from jobkeeper.store import Attempt, ComparisonRecord, JobRecord, LogEntry, Store
+
+#: How long after the signed finishing time the archive may record the job as finished.
+FINISH_SLACK = 300.0
+#: What readers print beside a value no statement signs.
+UNSIGNED = "(unsigned)"
+
+
+def statement_of(envelope: bytes) -> dict[str, Any] | None:
+    """The Statement inside a stored envelope, unverified (the log check verifies the
+    signature; this only reads what it says). None when it cannot be read."""
+    try:
+        env = strict_json_loads(envelope, "envelope")
+        payload = base64.b64decode(env["payload"], validate=True)
+        statement = strict_json_loads(payload, "statement")
+    except (VerificationError, KeyError, TypeError, ValueError, binascii.Error):
+        return None
+    return statement if isinstance(statement, dict) else None
+
+
+def _time(seconds: float | None) -> str | None:
+    try:
+        return rfc3339(seconds)
+    except (OverflowError, OSError, ValueError, TypeError):
+        return f"unreadable time {seconds!r}"
+
+
+def _seconds(stamp: Any) -> float | None:
+    import datetime as dt
+
+    if not isinstance(stamp, str):
+        return None
+    try:
+        return dt.datetime.fromisoformat(stamp.replace("Z", "+00:00")).timestamp()
+    except ValueError:
+        return None
+
+
+def job_differences(
+    job: JobRecord, predicate: Mapping[str, Any], attempts: Sequence[Attempt],
+    metadata_text: str | None, probabilities: Mapping[str, float] | None,
+) -> list[str]:  # fmt: skip
+    """Each column of ``job`` (and its attempts and result) that differs from the signed
+    run predicate, as "what: archive says X, manifest signs Y"."""
+    spec = job.spec
+    circuit = predicate.get("circuit") or {}
+    parameters = predicate.get("parameters") or {}
+    backend = predicate.get("backend") or {}
+    times = predicate.get("timestamps") or {}
+    code = spec.code_version if spec.code_version is not None else {"absent": True}
+    pairs: list[tuple[str, Any, Any]] = [
+        ("backend", spec.backend, backend.get("name")),
+        ("shots", spec.shots, predicate.get("shots")),
+        ("seed", None if spec.seed is None else str(spec.seed), predicate.get("seed")),
+        ("repeat", spec.repeat, parameters.get("repeat")),
+        ("exact", spec.exact, parameters.get("exact")),
+        ("options", dict(spec.options), parameters.get("options")),
+        ("circuit", spec.circuit_text, circuit.get("canonicalText")),
+        ("circuit hash", spec.circuit_hash, circuit.get("hash")),
+        ("source hash", spec.source_hash, circuit.get("sourceHash")),
+        ("code version", dict(code), predicate.get("codeVersion")),
+        ("submitted", _time(job.created_at), times.get("submittedOn")),
+        ("started", _time(job.started_at), times.get("startedOn")),
+        ("attempts", [_attempt(a) for a in attempts], predicate.get("attempts", [])),
+    ]
+    if "probabilities" in parameters or probabilities is not None:
+        signed = parameters.get("probabilities")
+        pairs.append(("probabilities", None if probabilities is None else dict(probabilities),
+                      None if signed is None else dict(signed)))  # fmt: skip
+    if "resultMetadata" in predicate:
+        digest = None if metadata_text is None else sha256_tag(metadata_text.encode())
+        pairs.append(("result metadata (digest)", digest, predicate["resultMetadata"]))
+    found = [f"{what}: the archive says {_short(have)}, the manifest signs {_short(want)}"
+             for what, have, want in pairs if have != want]  # fmt: skip
+    finished = _seconds(times.get("finishedOn"))
+    at = job.finished_at
+    if finished is not None and (at is None or not finished - 1.0 <= at <= finished + FINISH_SLACK):
+        found.append(
+            f"finished: the archive says {_time(at)}, the manifest signs {times['finishedOn']} "
+            f"(the archive's may only be up to {FINISH_SLACK:.0f} s later)"
+        )
+    return found
+
+
+def _attempt(a: Attempt) -> dict[str, Any]:
+    # As the sealer writes them (jobkeeper.audit.sealing.Sealer.predicate).
+    return {
+        "number": a.number,
+        "startedOn": _time(a.at),
+        "outcome": "retried in the call" if a.in_call else "retried",
+        "errorClass": a.error_class,
+        "message": a.message,
+    }
+
+
+def _short(value: Any) -> str:
+    text = json.dumps(value, sort_keys=True, default=str)
+    return text if len(text) <= 60 else text[:57] + "…"
+
+
+def comparison_differences(record: ComparisonRecord, predicate: Mapping[str, Any]) -> list[str]:
+    """The comparison row's columns against its signed predicate and signed report."""
+    try:
+        report = json.loads(record.report)
+    except ValueError:
+        return []  # the report is the signed subject: its digest check reports it
+    pairs = [
+        ("kind", record.kind, predicate.get("kind")),
+        ("verdict", record.verdict, predicate.get("verdict")),
+        ("job A", record.job_a, report.get("jobA") if isinstance(report, dict) else None),
+        ("job B", record.job_b, report.get("jobB") if isinstance(report, dict) else None),
+    ]
+    return [f"{what}: the archive says {_short(have)}, the manifest signs {_short(want)}"
+            for what, have, want in pairs if have != want]  # fmt: skip
+
+
+def check_mirrors(
+    store: Store, entries: Iterable[LogEntry], wanted: Iterable[str] | None, report: VerifyReport
+) -> None:
+    """Compare every mirrored column of the wanted done jobs (all when None) and of every
+    comparison with its signed statement; one problem per difference."""
+    chosen = None if wanted is None else set(wanted)
+    comparisons = {c.id: c for c in store.comparisons()}
+    runs: dict[str, tuple[LogEntry, dict[str, Any]]] = {}
+    for entry in entries:
+        statement = statement_of(entry.envelope)
+        if statement is None:
+            continue  # unreadable: the log check reports it
+        kind = statement.get("predicateType")
+        predicate = statement.get("predicate")
+        if not isinstance(predicate, dict):
+            continue
+        if kind == COMPARISON_PREDICATE_TYPE and entry.job_id in comparisons:
+            for text in comparison_differences(comparisons[entry.job_id], predicate):
+                report.problems.append(f"comparison {entry.job_id[:12]}: {text}")
+        elif kind == PREDICATE_TYPE and (chosen is None or entry.job_id in chosen):
+            runs[entry.job_id] = (entry, predicate)
+    records = _records(store, list(runs), report)
+    unsigned_metadata = 0
+    for job_id, (_, predicate) in runs.items():
+        job = records.get(job_id)
+        if job is None or job.state != "done":
+            continue  # reported by the log check (an entry for a job that is not done)
+        try:
+            result = store.result(job_id)
+        except DamagedRecord as exc:
+            report.problems.append(str(exc))
+            continue
+        metadata = None if result is None else metadata_text(result.metadata)
+        probabilities = None if result is None else result.probabilities
+        attempts = store.attempts(job_id)  # always: an added row is a change too
+        for text in job_differences(job, predicate, attempts, metadata, probabilities):
+            report.problems.append(f"job {job_id[:12]}: {text}")
+        unsigned_metadata += "resultMetadata" not in predicate
+    if unsigned_metadata:
+        report.warnings.append(
+            f"{unsigned_metadata} job(s) were sealed before result metadata was signed: their "
+            "metadata is shown as unsigned"
+        )
+
+
+def _records(store: Store, ids: list[str], report: VerifyReport) -> dict[str, JobRecord]:
+    """The jobs' rows; a row that cannot be read is a problem, the others still count."""
+    try:
+        return {job.id: job for job in store.get_many(ids)} if ids else {}
+    except DamagedRecord:
+        pass
+    out = {}
+    for job_id in ids:
+        try:
+            out.update({job.id: job for job in store.get_many([job_id])})
+        except DamagedRecord as exc:
+            report.problems.append(str(exc))
+    return out
+
+
+__all__ = [
+    "FINISH_SLACK",
+    "UNSIGNED",
+    "check_mirrors",
+    "comparison_differences",
+    "job_differences",
+    "statement_of",
+]
