@@ -1,8 +1,10 @@
 """Sealing a finished job: manifest → DSSE envelope → log entry → signed checkpoint.
 
 The worker calls :meth:`Sealer.seal` outside any transaction (signing is the slow part)
-and hands :meth:`Sealer.appender` to the store, which calls it inside the finishing
-transaction to extend the Merkle log and sign the new checkpoint. The log's saved state
+and finishes through :meth:`Sealer.commit`, which hands :meth:`Sealer.appender` to the
+store (called inside the finishing transaction to extend the Merkle log and sign the new
+checkpoint) and, once the transaction has committed, writes that checkpoint to the keep's
+witness. The log's saved state
 is its compact range: the roots of the perfect subtrees that make up the tree (at most
 one per bit of the size), so an append costs O(log n) hashes however long the log is.
 """

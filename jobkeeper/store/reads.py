@@ -235,6 +235,20 @@ class StoreReads:
     def all_counts(self) -> dict[str, str | None]:
         return {job_id: counts for job_id, counts in self._read(sql.ALL_COUNTS)}
 
+    def all_result_texts(self) -> dict[str, tuple[str | None, str]]:
+        rows = self._read(sql.ALL_RESULT_TEXTS)
+        return {job_id: (probabilities, metadata) for job_id, probabilities, metadata in rows}
+
+    def all_attempts(self) -> dict[str, list[Attempt]]:
+        out: dict[str, list[Attempt]] = {}
+        for job, number, at, error_class, message, retry_at, in_call in self._read(
+            sql.ALL_ATTEMPTS
+        ):
+            out.setdefault(job, []).append(
+                Attempt(job, number, at, error_class, message, retry_at, bool(in_call))
+            )
+        return out
+
     def log_entry_for(self, job_id: str) -> LogEntry | None:
         rows = self._read(sql.LOG_ENTRY_FOR, (job_id,))
         return entry_of(rows[0]) if rows else None

@@ -352,6 +352,12 @@ SELECT job_id, counts, probabilities, metadata, created_at FROM results WHERE jo
 """
 JOB_KEYS_IN_STATE = "SELECT id, job_key FROM jobs WHERE state = ?"
 ALL_COUNTS = "SELECT job_id, counts FROM results"
+#: What verify compares with the signed statements, in one read each.
+ALL_RESULT_TEXTS = "SELECT job_id, probabilities, metadata FROM results"
+ALL_ATTEMPTS = """
+SELECT job_id, number, at, error_class, message, retry_at, in_call FROM attempts
+ORDER BY job_id, number
+"""
 LOG_ENTRY_COLUMNS = "idx, job_id, envelope, leaf_hash, signer, created_at"
 LOG_ENTRY_FOR = f"SELECT {LOG_ENTRY_COLUMNS} FROM log_entries WHERE job_id = ?"
 LOG_ENTRIES = f"SELECT {LOG_ENTRY_COLUMNS} FROM log_entries WHERE idx >= ? AND idx < ? ORDER BY idx"

@@ -182,7 +182,15 @@ def test_verify_since_a_bundle_held_elsewhere(
     code, out, _ = jk(capsys, "verify", "--all", "--since", str(bundle), "--keep", str(older))
     assert code == 1
     assert f"the checkpoint in {bundle} saw 7 log entries, but the log holds only 6" in out
-    # The witness itself, copied away, serves the same way; a missing file is a usage error.
+    # A checkpoint note kept as plain text, or the witness copied away, serve the same way.
+    with Keeper.open(keep, create=False) as keeper:
+        note = keeper.store.checkpoints()[-1].note
+    (tmp_path / "checkpoint.txt").write_text(note)
+    shutil.copy(keep / "witness.json", tmp_path / "witness-copy.json")
+    for held in ("checkpoint.txt", "witness-copy.json"):
+        code, out, _ = jk(capsys, "verify", "--since", str(tmp_path / held), "--keep", str(older))
+        assert code == 1 and "saw 7 log entries, but the log holds only 6" in out
+    # A missing file is a usage error.
     code, _, err = jk(capsys, "verify", "--since", str(tmp_path / "nope"), "--keep", str(keep))
     assert code == 2 and "no such file" in err
 
