@@ -11,7 +11,7 @@ from __future__ import annotations
 
 import math
 import os
-from collections.abc import Iterable, Mapping
+from collections.abc import Iterable, Mapping, Sequence
 from typing import Any, TypedDict
 
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator
@@ -48,6 +48,7 @@ class SubmitFields(TypedDict, total=False):
     over_budget: bool
     timeout: float | None
     code_dir: str | os.PathLike[str] | None
+    inputs: Sequence[str]
 
 
 class SubmitOptions(BaseModel):
@@ -71,6 +72,8 @@ class SubmitOptions(BaseModel):
     timeout: float | None = None
     #: where the user's code lives, for its git commit in the manifest (default: cwd)
     code_dir: str | None = None
+    #: ``NAME=VALUE`` values for the programs' ``input`` parameters (``--set``)
+    inputs: tuple[str, ...] = ()
 
     @field_validator("backend")
     @classmethod
@@ -123,6 +126,15 @@ class SubmitOptions(BaseModel):
             return positive_seconds(value)
         except ConfigError as exc:
             raise ValueError(str(exc)) from None
+
+    @field_validator("inputs", mode="before")
+    @classmethod
+    def _inputs(cls, value: Any) -> tuple[str, ...]:
+        # A lone string is one setting, not a sequence of its characters.
+        items = [value] if isinstance(value, str) else list(value or ())
+        if not all(isinstance(item, str) for item in items):
+            raise ValueError("inputs must be NAME=VALUE strings")
+        return tuple(items)
 
     @field_validator("code_dir", mode="before")
     @classmethod

@@ -52,6 +52,8 @@ def job_json(job: JobRecord) -> dict[str, Any]:
         "error": job.error,
         "cost": job.cost,
         "remote_handle": job.handle,
+        # Input name → number, for a circuit bound from a program with inputs.
+        "bindings": spec.bindings_json(),
     }
 
 
@@ -81,6 +83,11 @@ def job_details(keeper: Keeper, job: Job) -> dict[str, Any]:
         data["probabilities"] = None if result.probabilities is None else dict(result.probabilities)
         data["result_metadata"] = dict(result.metadata)
     data["rerun_of"] = spec.rerun_of
+    data["template_hash"] = spec.template_hash
+    data["sweeps"] = [
+        {"sweep": sweep_id, "point": index}
+        for sweep_id, index in keeper.store.sweeps_of([record.id]).get(record.id, [])
+    ]
     data["comparisons"] = [
         {"id": c.id, "kind": c.kind, "job_a": c.job_a, "job_b": c.job_b, "verdict": c.verdict,
          "result": comparison_result(json.loads(c.report).get("result", {}))}

@@ -19,6 +19,11 @@ given, so a resubmission without a seed finds the same job; as a string, because
 refuses integers above 2^53−1), repeat index, exact flag and backend options.
 ``key_version`` leaves room for later fields: a new field joins the key under a new
 version, so keys made before it keep their meaning.
+
+A job bound from a program with ``input`` parameters also keeps its :class:`Bindings`
+(each value's text as given and the number it means) and its template (the program's
+hash and text). Neither joins the key: the bound circuit's hash already says what runs,
+so a sweep point and the same operations written with literal values are one job.
 """
 
 from __future__ import annotations
@@ -29,6 +34,7 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from jobkeeper.hashing import digest_of
+from jobkeeper.sweeps.bindings import Bindings, Value
 
 KEY_VERSION = 1
 #: A seed must fit a signed 64-bit integer wherever a device stores it.
@@ -80,6 +86,11 @@ class JobSpec:
     code_version: Mapping[str, Any] | None = None
     #: the job this one re-executes (``rerun``): a rerun must run, not deduplicate.
     rerun_of: str | None = None
+    #: the values its program's inputs were bound with (None: a program without inputs)
+    bindings: Bindings | None = None
+    #: the program the circuit was bound from: ``sha256:`` of its text, and the text
+    template_hash: str | None = None
+    template_text: str | None = None
 
     @classmethod
     def new(
@@ -87,7 +98,8 @@ class JobSpec:
         seed: int | None = None, repeat: int = 0, exact: bool = False,
         options: Mapping[str, Any] | None = None, source_hash: str | None = None,
         source_name: str | None = None, code_version: Mapping[str, Any] | None = None,
-        rerun_of: str | None = None,
+        rerun_of: str | None = None, bindings: Bindings | None = None,
+        template_hash: str | None = None, template_text: str | None = None,
     ) -> JobSpec:  # fmt: skip
         """A job being submitted: ``seed`` is what the user asked for (or None), and the
         seed the job runs with is resolved here, once."""
@@ -95,8 +107,13 @@ class JobSpec:
             circuit_text=circuit_text, circuit_hash=circuit_hash, backend=backend, shots=shots,
             seed=resolve_seed(seed, repeat), requested_seed=seed, repeat=repeat, exact=exact,
             options=dict(options or {}), source_hash=source_hash, source_name=source_name,
-            code_version=code_version, rerun_of=rerun_of,
+            code_version=code_version, rerun_of=rerun_of, bindings=bindings,
+            template_hash=template_hash, template_text=template_text,
         )  # fmt: skip
+
+    def bindings_json(self) -> dict[str, float | int] | None:
+        """Input name → number, JSON-ready (None for a program without inputs)."""
+        return None if self.bindings is None else self.bindings.numbers()
 
     def key_document(self, *, backend_config_hash: str) -> dict[str, Any]:
         """The JSON object whose canonical form is hashed into the job key."""
@@ -121,7 +138,7 @@ class JobSpec:
 
     def document(self) -> dict[str, Any]:
         """The JSON document archived beside the columns (see :meth:`from_archive`)."""
-        return {
+        document: dict[str, Any] = {
             "circuit": self.circuit_text,
             "circuitHash": self.circuit_hash,
             "sourceHash": self.source_hash,
@@ -133,6 +150,11 @@ class JobSpec:
             # A JSON integer: Python's json and PostgreSQL read 63-bit integers exactly.
             "seed": self.seed,
         }
+        if self.bindings is not None:
+            # A list, in declaration order (the document is written with sorted keys).
+            document["bindings"] = bindings_document(self.bindings)
+            document["template"] = {"hash": self.template_hash, "text": self.template_text}
+        return document
 
     @classmethod
     def from_archive(
@@ -142,6 +164,7 @@ class JobSpec:
         """The spec of an archived job: its columns and its JSON document."""
         requested = None if requested_seed is None else int(requested_seed)
         seed = document.get("seed")
+        template = document.get("template") or {}
         return cls(
             circuit_text=str(document.get("circuit") or ""),
             circuit_hash=str(document.get("circuitHash") or ""),
@@ -156,7 +179,27 @@ class JobSpec:
             source_name=document.get("sourceName"),
             code_version=document.get("codeVersion"),
             rerun_of=document.get("rerunOf"),
+            bindings=bindings_of(document.get("bindings")),
+            template_hash=template.get("hash"),
+            template_text=template.get("text"),
         )
+
+
+def bindings_document(bindings: Bindings) -> list[dict[str, Any]]:
+    """Bindings as archived: ``[{"name", "text", "value"}, …]`` in declaration order."""
+    return [{"name": name, "text": value.text, "value": value.number}
+            for name, value in bindings.items()]  # fmt: skip
+
+
+def bindings_of(document: Any) -> Bindings | None:
+    """The Bindings of an archived list (:func:`bindings_document`); None when absent."""
+    if not isinstance(document, list):
+        return None
+    return Bindings(
+        (str(item["name"]), Value(str(item["text"]), item["value"]))
+        for item in document
+        if isinstance(item, dict)
+    )
 
 
 def job_key(spec: JobSpec, *, backend_config_hash: str) -> str:

@@ -92,6 +92,14 @@ def job_differences(
         ("started", _time(job.started_at), times.get("startedOn")),
         ("attempts", [_attempt(a) for a in attempts], predicate.get("attempts", [])),
     ]
+    if spec.bindings is not None or "bindings" in predicate or "template" in predicate:
+        template = predicate.get("template") or {}
+        pairs += [
+            ("bindings", None if spec.bindings is None else spec.bindings.texts(),
+             predicate.get("bindings")),
+            ("template hash", spec.template_hash, template.get("hash")),
+            ("template", spec.template_text, template.get("text")),
+        ]  # fmt: skip
     if "probabilities" in parameters or probabilities is not None:
         signed = parameters.get("probabilities")
         pairs.append(("probabilities", None if probabilities is None else dict(probabilities),

@@ -38,6 +38,7 @@ from jobkeeper.provenance.manifest import (
     statement_bytes,
 )
 from jobkeeper.provenance.merkle import leaf_hash, node_hash
+from jobkeeper.spec import JobSpec
 from jobkeeper.store import Attempt, Claim, Completion, LogAppender, metadata_text
 
 HASH_SIZE = 32
@@ -107,6 +108,18 @@ def log_state_of(leaves: Sequence[bytes]) -> bytes:
     return _pack(frontier)
 
 
+def inputs_predicate(spec: JobSpec) -> dict[str, Any]:
+    """What a run predicate signs of a circuit bound from a program with inputs: the
+    template (hash and text) and each input's value as its text (a number is read from
+    the text by the type the template declares; RFC 8785 could not carry every integer)."""
+    if spec.bindings is None:
+        return {}
+    return {
+        "template": {"hash": spec.template_hash, "text": spec.template_text},
+        "bindings": spec.bindings.texts(),
+    }
+
+
 class Sealer:
     """Signs manifests and checkpoints with one keep's active key. With a ``witness``
     path, :meth:`commit` records each committed checkpoint there (see
@@ -151,6 +164,7 @@ class Sealer:
             parameters["probabilities"] = dict(result.probabilities)
         calibration = result.metadata.get("calibration", info.calibration)
         return {
+            **inputs_predicate(spec),
             "jobKey": job.job_key,
             "circuit": {
                 "canonicalText": spec.circuit_text,

@@ -16,7 +16,7 @@ from typing import Annotated
 import typer
 
 from jobkeeper._version import __version__
-from jobkeeper.cli import _device, _jobs, _proof, _trust, _web  # noqa: F401  (they register commands)
+from jobkeeper.cli import _device, _jobs, _proof, _submit, _trust, _web  # noqa: F401  (they register commands)
 from jobkeeper.cli._app import KEEP_HELP, ROOT, STORE_HELP, app
 from jobkeeper.cli._entry import run_app
 from jobkeeper.exceptions import ConfigError

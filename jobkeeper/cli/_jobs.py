@@ -13,10 +13,6 @@ from jobkeeper.cli._app import (
     JsonOpt,
     KeepOpt,
     LabelOpt,
-    LabelsOpt,
-    OverBudgetOpt,
-    RepeatOpt,
-    SeedOpt,
     SetOpt,
     ShotsOpt,
     StoreOpt,
@@ -25,12 +21,11 @@ from jobkeeper.cli._app import (
     open_keeper,
     progress_wait,
 )
-from jobkeeper.cli._progress import activity
-from jobkeeper.cli._render import bar_chart, job_json, shots_warning, table, when
-from jobkeeper.exceptions import ConfigError, JobkeeperError, TransientBackendError
+from jobkeeper.cli._render import job_json, table, when
+from jobkeeper.exceptions import ConfigError, JobkeeperError
 
 if TYPE_CHECKING:
-    from jobkeeper.job import Job
+    pass
 
 
 @app.command()
@@ -92,131 +87,6 @@ def check(
 
 
 @app.command()
-def submit(
-    files: Annotated[list[Path], typer.Argument(metavar="FILE", help="OpenQASM 2.0 files.")],
-    backend: BackendOpt = None,
-    shots: ShotsOpt = None,
-    seed: SeedOpt = None,
-    label: LabelsOpt = None,
-    repeat: RepeatOpt = 0,
-    exact: Annotated[bool, typer.Option("--exact", help="Ask for exact probabilities.")] = False,
-    over_budget: OverBudgetOpt = False,
-    keep: KeepOpt = None,
-    store: StoreOpt = None,
-    json_out: JsonOpt = False,
-) -> None:
-    """Queue jobs; a worker runs them. Jobs already done or queued are not queued again."""
-    from jobkeeper.options import SubmitOptions
-
-    options = SubmitOptions.of(backend=backend, shots=shots, seed=seed, repeat=repeat,
-                               labels=label or (), exact=exact,
-                               over_budget=over_budget)  # fmt: skip
-    keeper = open_keeper(keep, store)
-    submitted = keeper.submit_many(files, options)
-    if json_out:
-        echo_json([
-            {"id": s.job.id, "job_key": s.job.record.job_key, "state": s.job.state,
-             "deduplicated": s.deduplicated}
-            for s in submitted
-        ])  # fmt: skip
-        return
-    for file, item in zip(files, submitted, strict=True):
-        job = item.job.record
-        if item.deduplicated and job.state == "done":
-            typer.echo(f"{file}: already done on {when(job.finished_at)} as job {job.id[:12]} "
-                       "(nothing queued)")  # fmt: skip
-        elif item.deduplicated:
-            typer.echo(f"{file}: the same job is already {job.state}: {job.id[:12]} (joined)")
-        else:
-            typer.echo(f"{file}: queued as job {job.id[:12]}")
-
-
-def _result_json(job: Job, deduplicated: bool) -> dict[str, Any]:
-    record = job.record
-    result = job.result
-    out: dict[str, Any] = {
-        "id": record.id,
-        "job_key": record.job_key,
-        "state": record.state,
-        "deduplicated": deduplicated,
-        "backend": job.spec.backend,
-        "shots": job.spec.shots,
-        "seed": job.spec.seed,
-        "circuit_hash": job.spec.circuit_hash,
-    }
-    if result is not None and result.probabilities is not None:
-        out["probabilities"] = dict(result.probabilities)
-    elif result is not None:
-        out["counts"] = dict(result.counts or {})
-    if record.state != "done":
-        out["error"] = record.error
-    return out
-
-
-@app.command()
-def run(
-    file: Annotated[Path, typer.Argument(metavar="FILE", help="OpenQASM 2.0 file.")],
-    backend: BackendOpt = None,
-    shots: ShotsOpt = None,
-    seed: SeedOpt = None,
-    label: LabelsOpt = None,
-    repeat: RepeatOpt = 0,
-    exact: Annotated[bool, typer.Option("--exact", help="Print exact probabilities.")] = False,
-    over_budget: OverBudgetOpt = False,
-    keep: KeepOpt = None,
-    store: StoreOpt = None,
-    json_out: JsonOpt = False,
-) -> None:
-    """Submit one job, run it here and now, and print its result."""
-    from jobkeeper.options import SubmitOptions
-
-    options = SubmitOptions.of(backend=backend, shots=shots, seed=seed, repeat=repeat,
-                               labels=label or (), exact=exact,
-                               over_budget=over_budget)  # fmt: skip
-    keeper = open_keeper(keep, store)
-    with activity(f"running {file.name} on {backend or 'the default backend'}"):
-        item = keeper.run_many([file], options)[0]
-    job = item.job
-    if json_out:
-        echo_json(_result_json(job, item.deduplicated))
-    else:
-        _print_result(job, item.deduplicated)
-    if job.state != "done":
-        raise typer.Exit(_exit_code_of_failure(job))
-
-
-def _exit_code_of_failure(job: Job) -> int:
-    """3 when the retry budget ran out on transient faults (the device could not be
-    reached or kept failing transiently: DESIGN §4's 'backend could not be reached'),
-    1 for any other failure."""
-    attempts = job.attempts if job.state == "failed" else []
-    unreachable = bool(attempts) and attempts[-1].error_class == TransientBackendError.__name__
-    return 3 if unreachable else 1
-
-
-def _print_result(job: Job, deduplicated: bool) -> None:
-    record = job.record
-    if deduplicated and record.state == "done":
-        typer.echo(f"already done on {when(record.finished_at)} as job {record.id[:12]}; "
-                   "showing the archived result")  # fmt: skip
-    if record.state != "done":
-        typer.echo(f"job {record.id[:12]} {record.state}: {record.error or ''}", err=True)
-        return
-    result = job.result
-    assert result is not None
-    spec = job.spec
-    typer.echo(f"job {record.id[:12]} on {spec.backend}, {spec.shots} shots, seed {spec.seed}")
-    if result.probabilities is not None:
-        typer.echo("exact probabilities:")
-        typer.echo(bar_chart(dict(result.probabilities), total=1.0))
-        return
-    typer.echo(bar_chart(dict(result.counts or {})))
-    warning = shots_warning(spec.shots)
-    if warning:
-        typer.echo(warning)
-
-
-@app.command()
 def worker(
     once: Annotated[bool, typer.Option("--once", help="Exit when the queue is drained.")] = False,
     slots: Annotated[
@@ -275,6 +145,9 @@ def jobs(
     label: LabelOpt = None,
     state: Annotated[str | None, typer.Option("--state", help="Only jobs in this state.")] = None,
     limit: Annotated[int | None, typer.Option("--limit", min=1, help="At most this many.")] = None,
+    sweep: Annotated[
+        str | None, typer.Option("--sweep", metavar="ID", help="Only the points of this sweep.")
+    ] = None,
     keep: KeepOpt = None,
     store: StoreOpt = None,
     json_out: JsonOpt = False,
@@ -285,7 +158,7 @@ def jobs(
     if state is not None and state not in set(JobState):
         raise ConfigError(f"unknown state {state!r}; states are: {', '.join(JobState)}")
     keeper = open_keeper(keep, store, create=False)
-    records = [j.record for j in keeper.jobs(label=label, state=state, limit=limit)]
+    records = [j.record for j in keeper.jobs(label=label, state=state, limit=limit, sweep=sweep)]
     if json_out:
         echo_json([job_json(r) for r in records])
         return
@@ -298,16 +171,26 @@ def jobs(
 
 @app.command()
 def show(
-    job_id: Annotated[str, typer.Argument(metavar="JOB", help="Job id or unambiguous prefix.")],
+    job_id: Annotated[
+        str, typer.Argument(metavar="ID", help="Job or sweep id, or an unambiguous prefix.")
+    ],
     keep: KeepOpt = None,
     store: StoreOpt = None,
     json_out: JsonOpt = False,
 ) -> None:
-    """Everything about one job: what ran, where, when, attempts, result, provenance."""
+    """Everything about one job: what ran, where, when, attempts, result, provenance (or a
+    sweep: its template, definition and points)."""
     from jobkeeper.cli._show import describe_job
 
     keeper = open_keeper(keep, store, create=False)
-    details = describe_job(keeper, keeper.job(job_id))
+    kind, full = keeper.resolve_id(job_id)
+    if kind == "sweep":
+        from jobkeeper.cli._sweeps import describe_sweep
+
+        data, text = describe_sweep(keeper.sweep_run(full))
+        echo_json(data) if json_out else typer.echo(text)
+        return
+    details = describe_job(keeper, keeper.job(full))
     if json_out:
         echo_json(details.data)
     else:
@@ -318,7 +201,9 @@ def show(
 
 @app.command()
 def wait(
-    job_ids: Annotated[list[str], typer.Argument(metavar="JOB", help="Job ids or prefixes.")],
+    job_ids: Annotated[
+        list[str], typer.Argument(metavar="ID", help="Job or sweep ids, or prefixes.")
+    ],
     timeout: Annotated[
         float | None, typer.Option("--timeout", help="Give up after seconds.")
     ] = None,
@@ -326,9 +211,13 @@ def wait(
     store: StoreOpt = None,
     json_out: JsonOpt = False,
 ) -> None:
-    """Wait until jobs end (a worker must be running). Exit 1 if any failed."""
+    """Wait until jobs (or a sweep's points) end (a worker must be running). Exit 1 if any
+    failed."""
     keeper = open_keeper(keep, store, create=False)
-    ids = [keeper.job(j).id for j in job_ids]
+    ids = []
+    for given in job_ids:
+        kind, full = keeper.resolve_id(given)
+        ids += [p.job_id for p in keeper.sweep_run(full).points] if kind == "sweep" else [full]
     try:
         records = [job.record for job in progress_wait(keeper, ids, timeout)]
     except TimeoutError as exc:
@@ -345,19 +234,28 @@ def wait(
 
 @app.command()
 def counts(
-    job_id: Annotated[str, typer.Argument(metavar="JOB", help="Job id or unambiguous prefix.")],
+    job_id: Annotated[
+        str, typer.Argument(metavar="ID", help="Job or sweep id, or an unambiguous prefix.")
+    ],
     fmt: Annotated[str, typer.Option("--format", help="json or csv.")] = "json",
     keep: KeepOpt = None,
     store: StoreOpt = None,
     json_out: JsonOpt = False,
 ) -> None:
-    """Print a done job's counts (or exact probabilities): JSON unless --format csv."""
+    """Print a done job's counts (or exact probabilities): JSON unless --format csv. For a
+    sweep, every done point's: in CSV one row per point and outcome."""
     if fmt not in ("json", "csv"):
         raise ConfigError(f"--format must be json or csv, not {fmt!r}")
     if json_out and fmt != "json":
         raise ConfigError("--json and --format csv exclude each other")
     keeper = open_keeper(keep, store, create=False)
-    job = keeper.job(job_id)
+    kind, full = keeper.resolve_id(job_id)
+    if kind == "sweep":
+        from jobkeeper.cli._sweeps import sweep_counts
+
+        typer.echo(sweep_counts(keeper.sweep_run(full), fmt), nl=False)
+        return
+    job = keeper.job(full)
     result = job.result
     if result is None:
         raise JobkeeperError(f"job {job.id[:12]} is {job.state}: it has no counts")

@@ -34,14 +34,14 @@ class Activity(Protocol):
 class Counting(Protocol):
     """Work of ``total`` parts: ``advance_to`` says how many have ended."""
 
-    def advance_to(self, done: int, *, note: str = "") -> None: ...
+    def advance_to(self, done: int, *, note: str = "", total: int | None = None) -> None: ...
 
 
 class _Silent:
     def say(self, text: str) -> None:
         pass
 
-    def advance_to(self, done: int, *, note: str = "") -> None:
+    def advance_to(self, done: int, *, note: str = "", total: int | None = None) -> None:
         pass
 
 
@@ -105,7 +105,10 @@ def counting(text: str, total: int) -> Iterator[Counting]:
         task = progress.add_task(text, total=total, note="")
 
         class _Drawn:
-            def advance_to(self, done: int, *, note: str = "") -> None:
+            def advance_to(self, done: int, *, note: str = "", total: int | None = None) -> None:
+                # A total learnt on the way (a sweep's points are counted once planned).
+                if total is not None:
+                    progress.update(task, total=total)
                 progress.update(task, completed=done, note=note)
 
         yield _Drawn()

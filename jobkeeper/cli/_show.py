@@ -34,6 +34,18 @@ def _seed_origin(d: dict[str, Any]) -> str:
     return ""
 
 
+def _inputs(d: dict[str, Any]) -> list[str]:
+    """The values a bound circuit's inputs took, its template, and the sweeps it is a
+    point of (a grouping: no statement signs which sweeps a job belongs to)."""
+    lines = []
+    if d.get("bindings") is not None:
+        values = ", ".join(f"{name}={value}" for name, value in d["bindings"].items())
+        lines.append(f"  inputs     {values}  (template {d['template_hash']})")
+    for item in d.get("sweeps", []):
+        lines.append(f"  sweep      {item['sweep']} point {item['point']}  (unsigned)")
+    return lines
+
+
 def _text(d: dict[str, Any]) -> str:
     lines = [
         f"job {d['id']}",
@@ -43,6 +55,7 @@ def _text(d: dict[str, Any]) -> str:
         f"  labels     {', '.join(d['labels']) or '-'}  (unsigned)",
         f"  source     {d['source'] or '-'} (name unsigned)  ({d['source_hash'] or 'no source hash'})",
         f"  circuit    {d['circuit_hash']}",
+        *_inputs(d),
         f"  job key    {d['job_key']}",
         f"  submitted  {d['created_at']}",
         f"  started    {d['started_at'] or '-'}",

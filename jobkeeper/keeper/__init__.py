@@ -8,6 +8,7 @@ through here, so a notebook can do it too::
 
 The class is built in layers, one module each: :mod:`~jobkeeper.keeper.core` (the keep's
 parts and backends), :mod:`~jobkeeper.keeper.runs` (submitting, running, reading jobs),
+:mod:`~jobkeeper.keeper.sweeps` (sweeps of a program's inputs),
 :mod:`~jobkeeper.keeper.proof` (keys, trust, verification, bundles, export, reruns,
 comparisons); this module opens a keep.
 """
@@ -31,13 +32,14 @@ from jobkeeper.config import (
 from jobkeeper.exceptions import ConfigError, StoreUnavailable
 from jobkeeper.keeper.proof import KeepProof
 from jobkeeper.keeper.runs import CircuitInput
+from jobkeeper.keeper.sweeps import KeepSweeps, SweepRun
 from jobkeeper.provenance.keys import KeyRing
 from jobkeeper.store import open_store
 
-__all__ = ["CircuitInput", "Keeper"]
+__all__ = ["CircuitInput", "Keeper", "SweepRun"]
 
 
-class Keeper(KeepProof):
+class Keeper(KeepSweeps, KeepProof):
     """One keep: its store, configuration, signing keys and backends."""
 
     @classmethod

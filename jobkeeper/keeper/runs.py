@@ -8,7 +8,6 @@ from __future__ import annotations
 
 import asyncio
 import os
-import uuid
 from collections.abc import Callable, Sequence
 from pathlib import Path
 from typing import TYPE_CHECKING, TypeAlias, Unpack
@@ -16,14 +15,15 @@ from typing import TYPE_CHECKING, TypeAlias, Unpack
 from jobkeeper.exceptions import ConfigError, JobkeeperError
 from jobkeeper.job import Job, Submitted, wait_for
 from jobkeeper.keeper.core import KeepCore
+from jobkeeper.keeper.target import JobTarget
 from jobkeeper.queue import TERMINAL_STATES
-from jobkeeper.store import JobFilter, NewJob, PageCursor
+from jobkeeper.store import JobFilter, JobRecord, NewJob, PageCursor
 
 # Signing, simulating and parsing load numpy, cryptography and the backends: imported
 # where they are used, so that opening a keep to read it (`jobkeeper jobs`) stays quick.
 if TYPE_CHECKING:
     from jobkeeper.audit.sealing import Sealer
-    from jobkeeper.circuit import Circuit
+    from jobkeeper.circuit import Circuit, Template
     from jobkeeper.options import SubmitFields, SubmitOptions
     from jobkeeper.preflight import PreflightReport
     from jobkeeper.queue import RetryPolicy
@@ -40,6 +40,16 @@ def _path_of(circuit: str | os.PathLike[str]) -> Path | None:
     ):
         return Path(circuit)
     return None
+
+
+def bind_template(template: Template, inputs: Sequence[str]) -> tuple[Circuit, Bindings]:
+    """The template's circuit with its inputs bound from ``NAME=VALUE`` items, and those
+    bindings (ConfigError naming an unknown name, a missing input or a bad value)."""
+    from jobkeeper.sweeps import bind_settings
+
+    where = f"{template.filename or '<input>'}: "
+    bindings = bind_settings(template.inputs, inputs, where=where)
+    return template.bind(bindings.numbers()), bindings
 
 
 def _options(options: SubmitOptions | None, fields: SubmitFields) -> SubmitOptions:
@@ -63,27 +73,28 @@ class KeepRuns(KeepCore):
         return parse_qasm(str(circuit)) if path is None else load_qasm(path)
 
     @staticmethod
+    def load_template(circuit: str | os.PathLike[str]) -> Template:
+        """A program (file or text) as a template with its ``input`` parameters."""
+        from jobkeeper.circuit import load_template, parse_template
+
+        path = _path_of(circuit)
+        return parse_template(str(circuit)) if path is None else load_template(path)
+
+    @staticmethod
     def load_bound(circuit: CircuitInput, inputs: Sequence[str] = ()) -> tuple[Circuit, Bindings]:
         """A program (file, text or Circuit) with its ``input`` parameters bound from
         ``NAME=VALUE`` items, typed by the program's declarations, and those bindings
         (ConfigError naming an unknown name, a missing input or a bad value)."""
-        from jobkeeper.circuit import Circuit, load_template, parse_template
-        from jobkeeper.sweeps import Bindings, bind_settings
+        from jobkeeper.circuit import Circuit
+        from jobkeeper.sweeps import Bindings
 
         if isinstance(circuit, Circuit):
             if inputs:
                 raise ConfigError("a Circuit object has no inputs to set")
             return circuit, Bindings()
-        path = _path_of(circuit)
-        template = parse_template(str(circuit)) if path is None else load_template(path)
-        where = f"{template.filename or '<input>'}: "
-        bindings = bind_settings(template.inputs, inputs, where=where)
-        return template.bind(bindings.numbers()), bindings
+        return bind_template(KeepRuns.load_template(circuit), inputs)
 
-    def check(
-        self, circuit: CircuitInput, *, inputs: Sequence[str] = (),
-        **fields: Unpack[SubmitFields],
-    ) -> PreflightReport:  # fmt: skip
+    def check(self, circuit: CircuitInput, **fields: Unpack[SubmitFields]) -> PreflightReport:
         """Before spending: does the circuit fit the backend, its metrics, the estimated
         cost, device time and chance of an error-free run (nothing is queued). ``inputs``
         (``NAME=VALUE`` items) bind a program's ``input`` parameters."""
@@ -93,7 +104,7 @@ class KeepRuns(KeepCore):
         name = options.backend or self.config.defaults.backend
         shots = options.shots or self.config.defaults.shots
         label = str(circuit) if isinstance(circuit, (str, os.PathLike)) else "<circuit>"
-        loaded, bindings = self.load_bound(circuit, inputs)
+        loaded, bindings = self.load_bound(circuit, options.inputs)
         return preflight(loaded, self.backend(name), name=name, shots=shots, source=label,
                          inputs=bindings)  # fmt: skip
 
@@ -113,42 +124,51 @@ class KeepRuns(KeepCore):
         self, circuits: Sequence[CircuitInput], options: SubmitOptions,
         rerun_of: str | None = None,
     ) -> list[Submitted]:  # fmt: skip
-        from jobkeeper.circuit import canonical_text
-        from jobkeeper.hashing import sha256_tag
+        target = self._target(options)
+        new_jobs: list[NewJob] = []
+        for item in circuits:
+            circuit, bindings, template = self._bound(item, options.inputs)
+            new_jobs.append(target.job(circuit, bindings, template, rerun_of))
+        return self._enqueue(new_jobs, options)
+
+    def _bound(
+        self, item: CircuitInput, inputs: Sequence[str]
+    ) -> tuple[Circuit, Bindings | None, Template | None]:
+        """A program's circuit with its inputs bound, the bindings and the template (the
+        last two None for a program without inputs)."""
+        from jobkeeper.circuit import Circuit
+
+        if isinstance(item, Circuit):
+            return self.load_bound(item, inputs)[0], None, None
+        template = self.load_template(item)
+        circuit, bindings = bind_template(template, inputs)
+        return (circuit, bindings, template) if bindings else (circuit, None, None)
+
+    def _target(self, options: SubmitOptions) -> JobTarget:
+        """Where and how a submission's jobs run: checked once for all of them."""
         from jobkeeper.provenance.manifest import git_code_version
-        from jobkeeper.spec import JobSpec, job_key
 
         name = options.backend or self.config.defaults.backend
         info = self.backend(name).info
         shots = options.shots or self.config.defaults.shots
         if shots > info.max_shots:
             raise ConfigError(f"backend {name} allows at most {info.max_shots} shots, got {shots}")
-        code_version = git_code_version(Path(options.code_dir or Path.cwd()))
-        cost = info.pricing.cost(shots) if info.pricing is not None else None
-        new_jobs: list[NewJob] = []
-        for item in circuits:
-            circuit = self.load_circuit(item)
-            text = canonical_text(circuit)
-            spec = JobSpec.new(
-                circuit_text=text, circuit_hash=sha256_tag(text.encode("utf-8")), backend=name,
-                shots=shots, seed=options.seed, repeat=options.repeat, exact=options.exact,
-                options=options.backend_options, source_hash=circuit.source_hash,
-                source_name=circuit.source_name, code_version=code_version, rerun_of=rerun_of,
-            )  # fmt: skip
-            new_jobs.append(
-                NewJob(
-                    id=uuid.uuid4().hex,
-                    spec=spec,
-                    labels=tuple(sorted(options.labels)),
-                    cost=cost,
-                    job_key=job_key(spec, backend_config_hash=info.config_hash),
-                    max_attempts=self.config.defaults.max_attempts,
-                )
-            )
+        return JobTarget(
+            name=name, info=info, shots=shots, options=options,
+            code_version=git_code_version(Path(options.code_dir or Path.cwd())),
+            max_attempts=self.config.defaults.max_attempts,
+        )  # fmt: skip
+
+    def _enqueue(self, new_jobs: Sequence[NewJob], options: SubmitOptions) -> list[Submitted]:
+        self._check_budget(new_jobs, options)
+        return self._submitted(self.store.enqueue(new_jobs))
+
+    def _check_budget(self, new_jobs: Sequence[NewJob], options: SubmitOptions) -> None:
         if not options.over_budget:
             cost = sum(job.cost or 0.0 for job in new_jobs)
             self.config.budget.check(cost, options.labels, self.store.spent)
-        results = self.store.enqueue(new_jobs)
+
+    def _submitted(self, results: Sequence[tuple[JobRecord, bool]]) -> list[Submitted]:
         return [
             Submitted(Job(self.store, record, self._trusted_keys), not created)
             for record, created in results
@@ -236,11 +256,14 @@ class KeepRuns(KeepCore):
         return Job(self.store, self.store.get(id_or_prefix), self._trusted_keys)
 
     def jobs(
-        self, *, label: str | None = None, state: str | None = None, limit: int | None = None
-    ) -> list[Job]:
+        self, *, label: str | None = None, state: str | None = None, limit: int | None = None,
+        sweep: str | None = None,
+    ) -> list[Job]:  # fmt: skip
+        """Jobs oldest first; ``sweep`` (an id or prefix) keeps its points' jobs only."""
+        sweep_id = None if sweep is None else self.store.get_sweep(sweep).id
         return [
             Job(self.store, r, self._trusted_keys)
-            for r in self.store.list_jobs(label=label, state=state, limit=limit)
+            for r in self.store.list_jobs(label=label, state=state, limit=limit, sweep=sweep_id)
         ]
 
     def job_page(

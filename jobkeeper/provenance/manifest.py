@@ -105,6 +105,13 @@ class Attempt(_Model):
     _ts = field_validator("started_on", "finished_on")(_check_timestamp)
 
 
+class TemplateRecord(_Model):
+    """The program a circuit was bound from: ``sha256:`` of its text, and the text."""
+
+    hash: str
+    text: str
+
+
 class RunPredicate(_Model):
     """The predicate of ``https://jobkeeper.dev/attestation/run/v1``."""
 
@@ -120,6 +127,9 @@ class RunPredicate(_Model):
     timestamps: Timestamps
     attempts: list[Attempt] = Field(default_factory=list)
     counts: dict[str, int]
+    #: for a circuit bound from a program with inputs: the program, and each value's text
+    template: TemplateRecord | None = None
+    bindings: dict[str, str] | None = None
 
     @field_validator("seed")
     @classmethod
@@ -129,8 +139,13 @@ class RunPredicate(_Model):
         return value
 
     def to_json(self) -> dict[str, Any]:
-        """The predicate as a JSON-ready dict with wire (camelCase) names."""
-        return self.model_dump(mode="json", by_alias=True)
+        """The predicate as a JSON-ready dict with wire (camelCase) names (``template``
+        and ``bindings`` only for a circuit bound from a program with inputs)."""
+        out = self.model_dump(mode="json", by_alias=True)
+        for name in ("template", "bindings"):
+            if out.get(name) is None:
+                out.pop(name, None)
+        return out
 
 
 # ---------------------------------------------------------------------------------------

@@ -26,10 +26,13 @@ import json
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, replace
 from pathlib import Path
-from typing import Any, Protocol
+from typing import TYPE_CHECKING, Any, Protocol
 
 from jobkeeper.queue import JobState
 from jobkeeper.spec import JobSpec
+
+if TYPE_CHECKING:
+    from jobkeeper.store.sweep_records import NewSweep, SweepPoint, SweepRecord
 
 
 @dataclass(frozen=True)
@@ -85,6 +88,8 @@ class JobFilter:
     backend: str | None = None
     since: float | None = None
     until: float | None = None
+    #: only the points of this sweep (its full id)
+    sweep: str | None = None
 
 
 #: Where a page of jobs (newest first) goes on from: the last row's (created_at, id).
@@ -208,6 +213,26 @@ class Store(Protocol):
         live job with the same key, False) when it already existed (deduplicated)."""
         ...
 
+    def enqueue_sweep(
+        self, sweep: NewSweep, jobs: Sequence[NewJob]
+    ) -> tuple[str, list[tuple[JobRecord, bool]]]:
+        """:meth:`enqueue` the points' jobs and record the sweep (unless a sweep with its
+        key is recorded) and its points, all in one transaction. Returns the id of the
+        sweep recorded under its key, and the jobs as ``enqueue`` returns them."""
+        ...
+
+    def get_sweep(self, id_or_prefix: str) -> SweepRecord:
+        """A sweep by id or unambiguous prefix (JobNotFound, AmbiguousJobId)."""
+        ...
+
+    def sweep_points(self, sweep_id: str) -> list[SweepPoint]:
+        """A sweep's points, in order."""
+        ...
+
+    def sweeps_of(self, job_ids: Sequence[str]) -> dict[str, list[tuple[str, int]]]:
+        """Job id → the (sweep id, point index) pairs it is a point of."""
+        ...
+
     def claim(
         self,
         owner: str,
@@ -293,8 +318,15 @@ class Store(Protocol):
     def get_many(self, ids: Sequence[str]) -> list[JobRecord]: ...
 
     def list_jobs(
-        self, *, label: str | None = None, state: str | None = None, limit: int | None = None
-    ) -> list[JobRecord]: ...
+        self,
+        *,
+        label: str | None = None,
+        state: str | None = None,
+        limit: int | None = None,
+        sweep: str | None = None,
+    ) -> list[JobRecord]:
+        """Jobs oldest first, of one label, state or sweep (its full id) when given."""
+        ...
 
     def page_jobs(
         self, where: JobFilter, *, after: PageCursor | None = None, limit: int = 50

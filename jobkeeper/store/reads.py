@@ -10,7 +10,7 @@ from collections.abc import Callable, Iterator, Sequence
 from contextlib import contextmanager
 from typing import Any
 
-from jobkeeper.exceptions import AmbiguousJobId, DamagedRecord, JobNotFound
+from jobkeeper.exceptions import DamagedRecord, JobNotFound
 from jobkeeper.queue import JobState
 from jobkeeper.spec import JobSpec
 from jobkeeper.store import (
@@ -25,6 +25,7 @@ from jobkeeper.store import (
     StoredResult,
     sql,
 )
+from jobkeeper.store.sweep_records import SweepReads, one_by_prefix
 
 #: How a store writes ``column`` matching one of ``values``: the SQL and its parameters.
 InList = Callable[[str, Sequence[str]], tuple[str, list[Any]]]
@@ -132,7 +133,7 @@ def _conditions(where: JobFilter) -> tuple[list[str], list[Any]]:
     for value, condition in (
         (where.label, sql.JOBS_WITH_LABEL), (where.state, sql.JOBS_IN_STATE),
         (where.backend, sql.JOBS_ON_BACKEND), (where.since, sql.JOBS_CREATED_FROM),
-        (where.until, sql.JOBS_CREATED_BEFORE),
+        (where.until, sql.JOBS_CREATED_BEFORE), (where.sweep, sql.JOBS_IN_SWEEP),
     ):  # fmt: skip
         if value is not None:
             conditions.append(condition)
@@ -140,7 +141,7 @@ def _conditions(where: JobFilter) -> tuple[list[str], list[Any]]:
     return conditions, params
 
 
-class StoreReads:
+class StoreReads(SweepReads):
     """Reading methods of a store; the store provides ``_read``."""
 
     #: What the job list's query of a label's jobs names as its index (SQLite only).
@@ -156,13 +157,7 @@ class StoreReads:
         if not text or any(ch not in "0123456789abcdef" for ch in text):
             raise JobNotFound(f"no job {id_or_prefix!r}: a job id is hexadecimal")
         rows = self._read(sql.JOB_BY_PREFIX, (text, text + "g"))
-        if not rows:
-            raise JobNotFound(f"no job matches {id_or_prefix!r}")
-        if len(rows) > 1 and rows[0][0] != text:
-            raise AmbiguousJobId(
-                f"{id_or_prefix!r} matches several jobs; give more characters of the id"
-            )
-        return record_of(rows[0])
+        return record_of(one_by_prefix(rows, text, id_or_prefix, "job"))
 
     def get_many(self, ids: Sequence[str]) -> list[JobRecord]:
         out: list[JobRecord] = []
@@ -176,9 +171,13 @@ class StoreReads:
         return out
 
     def list_jobs(
-        self, *, label: str | None = None, state: str | None = None, limit: int | None = None
-    ) -> list[JobRecord]:
+        self, *, label: str | None = None, state: str | None = None, limit: int | None = None,
+        sweep: str | None = None,
+    ) -> list[JobRecord]:  # fmt: skip
         where, params = [], []
+        if sweep is not None:
+            where.append(sql.JOBS_IN_SWEEP)
+            params.append(sweep)
         if label is not None:
             where.append(sql.JOBS_WITH_LABEL)
             params.append(label)

@@ -18,7 +18,7 @@ def _states(states: frozenset[JobState]) -> str:
     return "(" + ", ".join(f"'{state}'" for state in JobState if state in states) + ")"
 
 
-SCHEMA_VERSION = 4
+SCHEMA_VERSION = 5
 
 LIVE = _states(LIVE_STATES)
 KEYED = _states(KEYED_STATES)
@@ -164,6 +164,29 @@ MIGRATIONS: list[list[str]] = [
         "CREATE INDEX jobs_state_created ON jobs (state, created_at)",
         "CREATE INDEX jobs_listing ON jobs (id, created_at, state, backend)",
     ],
+    # 5: sweeps. A sweep is a record of its own (its template once, what defines it); each
+    # point is a job with the bindings it was made with. A point found again under its job
+    # key points at that job, so a job may be a point of several sweeps.
+    [
+        """CREATE TABLE sweeps (
+            id TEXT PRIMARY KEY,
+            sweep_key TEXT NOT NULL UNIQUE,
+            template_hash TEXT NOT NULL,
+            template_text TEXT NOT NULL,
+            definition TEXT NOT NULL,
+            labels TEXT NOT NULL,
+            size INTEGER NOT NULL,
+            created_at DOUBLE PRECISION NOT NULL
+        )""",
+        """CREATE TABLE sweep_points (
+            sweep_id TEXT NOT NULL REFERENCES sweeps (id),
+            idx INTEGER NOT NULL,
+            job_id TEXT NOT NULL REFERENCES jobs (id),
+            bindings TEXT NOT NULL,
+            PRIMARY KEY (sweep_id, idx)
+        )""",
+        "CREATE INDEX sweep_points_job ON sweep_points (job_id)",
+    ],
 ]
 
 INSERT_JOB = f"""
@@ -172,6 +195,20 @@ INSERT INTO jobs (id, job_key, state, backend, shots, seed, repeat, spec, create
 VALUES (?, ?, 'queued', ?, ?, ?, ?, ?, {{now}}, {{now}}, {{now}}, ?, ?)
 ON CONFLICT (job_key) WHERE state IN {KEYED} DO NOTHING
 RETURNING {JOB_COLUMNS}
+"""
+
+INSERT_SWEEP = """
+INSERT INTO sweeps (id, sweep_key, template_hash, template_text, definition, labels, size,
+                    created_at)
+VALUES (?, ?, ?, ?, ?, ?, ?, {now})
+ON CONFLICT (sweep_key) DO NOTHING
+"""
+SWEEP_ID_BY_KEY = "SELECT id FROM sweeps WHERE sweep_key = ?"
+# A point submitted again whose earlier job failed or was cancelled now points at the
+# job that replaced it.
+UPSERT_SWEEP_POINT = """
+INSERT INTO sweep_points (sweep_id, idx, job_id, bindings) VALUES (?, ?, ?, ?)
+ON CONFLICT (sweep_id, idx) DO UPDATE SET job_id = excluded.job_id
 """
 
 SELECT_LIVE_BY_KEY = f"SELECT {JOB_COLUMNS} FROM jobs WHERE job_key = ? AND state IN {KEYED}"
@@ -341,6 +378,7 @@ JOBS_CREATED_BEFORE = "created_at < ?"
 JOBS_BEFORE_CURSOR = "(created_at < ? OR (created_at = ? AND id < ?))"
 #: The ids of a page (read from indexes alone); the rows are then read by id.
 PAGE_JOB_IDS = "SELECT id FROM jobs {hint} {where} ORDER BY created_at DESC, id DESC LIMIT ?"
+JOBS_IN_SWEEP = "id IN (SELECT job_id FROM sweep_points WHERE sweep_id = ?)"
 COUNT_JOBS = "SELECT COUNT(*) FROM jobs {where}"
 COUNT_BY_STATE = "SELECT state, COUNT(*) FROM jobs GROUP BY state"
 ATTEMPTS_OF = """
@@ -358,6 +396,13 @@ ALL_ATTEMPTS = """
 SELECT job_id, number, at, error_class, message, retry_at, in_call FROM attempts
 ORDER BY job_id, number
 """
+SWEEP_COLUMNS = "id, sweep_key, template_hash, template_text, definition, labels, size, created_at"
+# Compared as text, whatever the database's collation (sweeps are few: no index needed).
+SWEEP_BY_PREFIX = (
+    f"SELECT {SWEEP_COLUMNS} FROM sweeps WHERE substr(id, 1, ?) = ? ORDER BY id LIMIT 2"
+)
+SWEEP_POINTS = "SELECT idx, job_id, bindings FROM sweep_points WHERE sweep_id = ? ORDER BY idx"
+SWEEPS_OF_JOBS = "SELECT job_id, sweep_id, idx FROM sweep_points WHERE job_id IN ({marks})"
 LOG_ENTRY_COLUMNS = "idx, job_id, envelope, leaf_hash, signer, created_at"
 LOG_ENTRY_FOR = f"SELECT {LOG_ENTRY_COLUMNS} FROM log_entries WHERE job_id = ?"
 LOG_ENTRIES = f"SELECT {LOG_ENTRY_COLUMNS} FROM log_entries WHERE idx >= ? AND idx < ? ORDER BY idx"

@@ -39,6 +39,7 @@ from jobkeeper.store import (
 )
 from jobkeeper.store.reads import StoreReads, claim_filter, claims_of, record_of
 from jobkeeper.store.sqlite_schema import check_migrated, sqlite_dialect
+from jobkeeper.store.sweep_records import NewSweep, point_rows, sweep_row
 
 T = TypeVar("T")
 NOW = sql.SQLITE_NOW
@@ -61,6 +62,7 @@ _INSERT_JOB = _q(sql.INSERT_JOB)
 _SELECT_LIVE_BY_KEY = _q(sql.SELECT_LIVE_BY_KEY)
 _ADD_LABEL = _q(sql.ADD_LABEL)
 _INSERT_TRY_IN_CALL = _q(sql.INSERT_TRY_IN_CALL)
+_INSERT_SWEEP = _q(sql.INSERT_SWEEP)
 
 
 def is_busy(exc: sqlite3.Error) -> bool:
@@ -211,18 +213,34 @@ class SqliteStore(StoreReads):
         return float(self._read(sql.CLOCK)[0][0])
 
     def enqueue(self, jobs: Sequence[NewJob]) -> list[tuple[JobRecord, bool]]:
-        out: list[tuple[JobRecord, bool]] = []
         with self._write() as conn:
-            for job in jobs:
-                row = conn.execute(_INSERT_JOB, job_row(job)).fetchone()
-                created = row is not None
-                if not created:  # a live or done job has the key: that job is the answer
-                    row = conn.execute(_SELECT_LIVE_BY_KEY, (job.job_key,)).fetchone()
-                record = record_of(row)
-                if job.labels:
-                    conn.executemany(_ADD_LABEL, [(record.id, label) for label in job.labels])
-                out.append((labelled(record, job.labels), created))
+            return self._enqueue(conn, jobs)
+
+    def _enqueue(
+        self, conn: sqlite3.Connection, jobs: Sequence[NewJob]
+    ) -> list[tuple[JobRecord, bool]]:
+        out: list[tuple[JobRecord, bool]] = []
+        for job in jobs:
+            row = conn.execute(_INSERT_JOB, job_row(job)).fetchone()
+            created = row is not None
+            if not created:  # a live or done job has the key: that job is the answer
+                row = conn.execute(_SELECT_LIVE_BY_KEY, (job.job_key,)).fetchone()
+            record = record_of(row)
+            if job.labels:
+                conn.executemany(_ADD_LABEL, [(record.id, label) for label in job.labels])
+            out.append((labelled(record, job.labels), created))
         return out
+
+    def enqueue_sweep(
+        self, sweep: NewSweep, jobs: Sequence[NewJob]
+    ) -> tuple[str, list[tuple[JobRecord, bool]]]:
+        with self._write() as conn:
+            out = self._enqueue(conn, jobs)
+            conn.execute(_INSERT_SWEEP, sweep_row(sweep))
+            sweep_id = str(conn.execute(sql.SWEEP_ID_BY_KEY, (sweep.sweep_key,)).fetchone()[0])
+            ids = [record.id for record, _ in out]
+            conn.executemany(sql.UPSERT_SWEEP_POINT, point_rows(sweep_id, sweep.points, ids))
+        return sweep_id, out
 
     def claim(
         self,

@@ -11,7 +11,7 @@ from __future__ import annotations
 import dataclasses
 import hashlib
 import uuid
-from collections.abc import Iterator, Sequence
+from collections.abc import Sequence
 
 import numpy as np
 import pytest
@@ -21,14 +21,6 @@ from jobkeeper.counts import CountTable
 from jobkeeper.exceptions import AmbiguousJobId, JobNotFound, LeaseLost
 from jobkeeper.spec import JobSpec
 from jobkeeper.store import Completion, NewJob, Store
-from tests.store_fixtures import make_store
-
-
-@pytest.fixture(params=["sqlite", "postgres"])
-def store(request: pytest.FixtureRequest, tmp_path) -> Iterator[Store]:
-    with make_store(request.param, tmp_path) as the_store:
-        yield the_store
-
 
 SPEC = JobSpec(circuit_text="x", circuit_hash="sha256:" + "0" * 64, backend="sim", shots=100,
                seed=12345)  # fmt: skip

@@ -27,6 +27,7 @@ from jobkeeper.store.postgres.dialect import dialect, each_row, translate
 from jobkeeper.store.postgres.migrations import migrate
 from jobkeeper.store.reads import StoreReads, claim_filter, claims_of
 from jobkeeper.store.reads import record_of as _record
+from jobkeeper.store.sweep_records import NewSweep, point_rows, sweep_row
 
 WAKE_CHANNEL = sql.PG_WAKE_CHANNEL
 
@@ -86,31 +87,46 @@ class PostgresStore(StoreReads):
     def enqueue(self, jobs: Sequence[NewJob]) -> list[tuple[JobRecord, bool]]:
         if not jobs:
             return []
-        rows = [job_row(job) for job in jobs]
+        return self._db.run(lambda conn: self._enqueue(conn, jobs), write=True)
 
-        def work(conn: Conn) -> list[tuple[JobRecord, bool]]:
-            out: list[tuple[JobRecord, bool]] = []
-            # Each INSERT … ON CONFLICT DO NOTHING returns its row, or none when a live
-            # job has the key.
-            inserted = each_row(conn, dialect(sql.INSERT_JOB), rows)
-            for job, row in zip(jobs, inserted, strict=True):
-                if row is not None:
-                    out.append((_record(row), True))
-                    continue
-                out.append((self._existing_or_insert(conn, job), False))
-            labels = [
-                (r.id, label) for (r, _), job in zip(out, jobs, strict=True) for label in job.labels
-            ]
-            if labels:
-                with conn.cursor() as cur:
-                    cur.executemany(dialect(sql.ADD_LABEL), labels)
-            if any(created for _, created in out):
-                conn.execute(dialect(sql.PG_NOTIFY), (WAKE_CHANNEL,))
-            return [
-                (labelled(r, job.labels), made) for (r, made), job in zip(out, jobs, strict=True)
-            ]
+    def enqueue_sweep(
+        self, sweep: NewSweep, jobs: Sequence[NewJob]
+    ) -> tuple[str, list[tuple[JobRecord, bool]]]:
+        def work(conn: Conn) -> tuple[str, list[tuple[JobRecord, bool]]]:
+            out = self._enqueue(conn, jobs)
+            conn.execute(dialect(sql.INSERT_SWEEP), sweep_row(sweep))
+            row = conn.execute(dialect(sql.SWEEP_ID_BY_KEY), (sweep.sweep_key,)).fetchone()
+            assert row is not None  # inserted above, or there already
+            sweep_id = str(row[0])
+            ids = [record.id for record, _ in out]
+            with conn.cursor() as cur:
+                cur.executemany(
+                    dialect(sql.UPSERT_SWEEP_POINT), point_rows(sweep_id, sweep.points, ids)
+                )
+            return sweep_id, out
 
         return self._db.run(work, write=True)
+
+    def _enqueue(self, conn: Conn, jobs: Sequence[NewJob]) -> list[tuple[JobRecord, bool]]:
+        rows = [job_row(job) for job in jobs]
+        out: list[tuple[JobRecord, bool]] = []
+        # Each INSERT … ON CONFLICT DO NOTHING returns its row, or none when a live
+        # job has the key.
+        inserted = each_row(conn, dialect(sql.INSERT_JOB), rows)
+        for job, row in zip(jobs, inserted, strict=True):
+            if row is not None:
+                out.append((_record(row), True))
+                continue
+            out.append((self._existing_or_insert(conn, job), False))
+        labels = [
+            (r.id, label) for (r, _), job in zip(out, jobs, strict=True) for label in job.labels
+        ]
+        if labels:
+            with conn.cursor() as cur:
+                cur.executemany(dialect(sql.ADD_LABEL), labels)
+        if any(created for _, created in out):
+            conn.execute(dialect(sql.PG_NOTIFY), (WAKE_CHANNEL,))
+        return [(labelled(r, job.labels), made) for (r, made), job in zip(out, jobs, strict=True)]
 
     def _existing_or_insert(self, conn: Conn, job: NewJob) -> JobRecord:
         existing = conn.execute(dialect(sql.SELECT_LIVE_BY_KEY), (job.job_key,)).fetchone()
