@@ -14,9 +14,7 @@ import pytest
 from jobkeeper.exceptions import StoreError, StoreUnavailable
 from jobkeeper.queue import JobState
 from jobkeeper.store import Store
-from tests.integration.test_store_contract import appender, completion, new_job, store
-
-__all__ = ["store"]
+from tests.integration.test_store_contract import appender, completion, new_job
 
 
 class Moves:

@@ -4,10 +4,10 @@ in the creation time broken by id, filters that combine, and counts that agree."
 from __future__ import annotations
 
 from jobkeeper.store import JobFilter, Store
-from tests.integration.test_store_contract import new_job, store  # noqa: F401  (fixture)
+from tests.integration.test_store_contract import new_job
 
 
-def test_pages_cover_every_job_once_newest_first(store: Store) -> None:  # noqa: F811
+def test_pages_cover_every_job_once_newest_first(store: Store) -> None:
     # Jobs enqueued in one transaction may share their creation time: the cursor's id
     # breaks the tie, so no job is skipped or shown twice.
     store.enqueue([new_job(labels=("a",)) for _ in range(5)])
@@ -25,7 +25,7 @@ def test_pages_cover_every_job_once_newest_first(store: Store) -> None:  # noqa:
     assert store.count_jobs(JobFilter()) == 8
 
 
-def test_filters_narrow_together(store: Store) -> None:  # noqa: F811
+def test_filters_narrow_together(store: Store) -> None:
     store.enqueue([new_job(labels=("a",)) for _ in range(2)])
     store.enqueue([new_job(labels=("a",), backend="other"), new_job(backend="other")])
     for where, expected in (
