@@ -17,17 +17,20 @@ dict otherwise; everything that reads counts takes either.
 from __future__ import annotations
 
 from collections.abc import Iterator, Mapping, Sequence
-from typing import Any, Protocol
+from dataclasses import dataclass
+from typing import Any, Protocol, TypeVar
 
 import numpy as np
 import numpy.typing as npt
 
 Rows = npt.NDArray[np.uint8]
 Ints = npt.NDArray[np.int64]
+_V = TypeVar("_V")
 
-#: the characters of a bit string (OpenQASM 2 counts: bits, and spaces between registers).
+#: the characters of a count key: bits, and the separator between registers (of either
+#: convention, see RegisterLayout).
 _ALPHABET = np.zeros(256, dtype=bool)
-_ALPHABET[[ord(" "), ord("0"), ord("1")]] = True
+_ALPHABET[[ord("|"), ord(" "), ord("0"), ord("1")]] = True
 #: RFC 8785 leaves integers beyond this to strings; no count comes near it.
 MAX_COUNT = 2**53 - 1
 
@@ -35,7 +38,7 @@ MAX_COUNT = 2**53 - 1
 class CountTable(Mapping[str, int]):
     """Counts of equal-length bit strings, kept as arrays.
 
-    ``rows`` holds one ASCII bit string per row (``'0'``, ``'1'`` and spaces), ``values``
+    ``rows`` holds one ASCII count key per row (``'0'``, ``'1'``, separators), ``values``
     the count of each. A string may appear in several rows (outcomes of different
     classical records that print the same): their counts add up.
     """
@@ -48,7 +51,7 @@ class CountTable(Mapping[str, int]):
         if rows.ndim != 2 or values.shape != (rows.shape[0],):
             raise ValueError("a count table needs one row of characters per count")
         if not _ALPHABET[rows].all():
-            raise ValueError("bit strings hold only '0', '1' and spaces")
+            raise ValueError("count keys hold only '0', '1' and separators")
         if len(values) and not (values.min() > 0 and values.max() <= MAX_COUNT):
             raise ValueError(f"counts must be whole numbers from 1 to {MAX_COUNT}")
         self._parts: list[tuple[Rows, Ints]] = [(rows, values)]
@@ -123,7 +126,10 @@ class CountTable(Mapping[str, int]):
 
 class Register(Protocol):
     """What a count key needs of a classical register (``jobkeeper.circuit.ir.Register``
-    has it): its size and the absolute index of its bit 0."""
+    has it): its name, size and the absolute index of its bit 0."""
+
+    @property
+    def name(self) -> str: ...
 
     @property
     def size(self) -> int: ...
@@ -133,19 +139,23 @@ class Register(Protocol):
 
 
 #: written between two registers in a count key.
-KEY_SEPARATOR = " "
+KEY_SEPARATOR = "|"
+#: what archives signed under the first run predicate wrote between registers (their
+#: keys put the last declared register first; see :class:`RegisterLayout`).
+FIRST_SEPARATOR = " "
 
 
 def key_columns(cregs: Sequence[Register]) -> list[int]:
     """The layout of a count key: for each character, left to right, the classical bit
     shown there (its absolute index), or -1 for the separator between registers.
 
-    The one statement of how count keys are written (the simulators' formatter and the
-    REST adapter's decoders both build on it): within a register the highest index is
-    leftmost; the last declared register is leftmost; KEY_SEPARATOR between registers.
+    The one statement of how count keys are written (the simulators' formatter, the REST
+    adapter's decoders and the loopback device all build on it): registers in declaration
+    order, the first declared leftmost, KEY_SEPARATOR between them; within a register its
+    value in binary, the highest index leftmost. A single register is its binary value.
     """
     columns: list[int] = []
-    for reg in reversed(cregs):
+    for reg in cregs:
         if columns:
             columns.append(-1)
         columns += [reg.offset + i for i in reversed(range(reg.size))]
@@ -156,6 +166,135 @@ def count_key(bits: Sequence[int], cregs: Sequence[Register]) -> str:
     """The count key of one shot from its classical values: ``bits[c]`` is the value
     (0 or 1) of classical bit ``c``."""
     return "".join(KEY_SEPARATOR if c < 0 else "01"[bits[c]] for c in key_columns(cregs))
+
+
+def clbit_values(key: str, cregs: Sequence[Register]) -> list[int]:
+    """The inverse of :func:`count_key`: ``values[c]`` is classical bit c of the key.
+    ValueError for a key that is not laid out for these registers."""
+    columns = key_columns(cregs)
+    if len(key) != len(columns):
+        raise ValueError(f"count key {key!r} has {len(key)} characters, not {len(columns)}")
+    values = [0] * sum(reg.size for reg in cregs)
+    for char, clbit in zip(key, columns, strict=True):
+        if (clbit < 0) != (char == KEY_SEPARATOR) or char not in "01" + KEY_SEPARATOR:
+            raise ValueError(f"count key {key!r} does not fit its registers")
+        if clbit >= 0:
+            values[clbit] = int(char)
+    return values
+
+
+def plain_key(key: str) -> str:
+    """A count key as one binary number of all the classical bits, c[0] rightmost (as
+    devices often write outcomes): the registers in reverse declaration order, as a
+    parsed circuit lays its registers out one after the other."""
+    return "".join(reversed(key.split(KEY_SEPARATOR)))
+
+
+@dataclass(frozen=True, slots=True)
+class RegisterLayout:
+    """How the count keys of one result are laid out: its classical registers' names and
+    widths in declaration order, and which convention wrote the keys.
+
+    ``first`` is True for results signed under the first run predicate, whose keys wrote
+    the last declared register leftmost with a space between registers (``"1 01"`` for
+    ``creg a[2]; creg b[1];`` with a=01, b=1); they keep that meaning. Every other result
+    is keyed as :func:`key_columns` says (``"01|1"``).
+    """
+
+    registers: tuple[tuple[str, int], ...]
+    first: bool = False
+
+    @classmethod
+    def of(cls, cregs: Sequence[Register], names: Sequence[str] = ()) -> RegisterLayout:
+        """The layout of a circuit's registers; ``names``, when given, are the names the
+        user declared (a canonical circuit's registers are called ``c0``, ``c1``, …)."""
+        if names and len(names) != len(cregs):
+            raise ValueError(f"{len(names)} register names for {len(cregs)} registers")
+        chosen = list(names) or [reg.name for reg in cregs]
+        return cls(tuple((name, reg.size) for name, reg in zip(chosen, cregs, strict=True)))
+
+    @classmethod
+    def from_json(cls, data: Any, *, first: bool = False) -> RegisterLayout:
+        """The layout a run predicate records (``[{"name": ..., "width": ...}, ...]``);
+        ValueError for anything else."""
+        if not isinstance(data, list):
+            raise ValueError("a register layout is a list of registers")
+        registers = []
+        for item in data:
+            if not isinstance(item, dict) or set(item) != {"name", "width"}:
+                raise ValueError("each register of a layout has a name and a width")
+            name, width = item["name"], item["width"]
+            if not isinstance(name, str) or not name or isinstance(width, bool):
+                raise ValueError("a register's name is a non-empty string")
+            if not isinstance(width, int) or width < 1:
+                raise ValueError(f"register {name!r} has width {width!r}, not a positive integer")
+            registers.append((name, width))
+        if len({name for name, _ in registers}) != len(registers):
+            raise ValueError("two registers of a layout have one name")
+        return cls(tuple(registers), first=first)
+
+    def to_json(self) -> list[dict[str, Any]]:
+        """As a run predicate records it: declaration order, first declared first."""
+        return [{"name": name, "width": width} for name, width in self.registers]
+
+    @property
+    def names(self) -> tuple[str, ...]:
+        return tuple(name for name, _ in self.registers)
+
+    @property
+    def separator(self) -> str:
+        return FIRST_SEPARATOR if self.first else KEY_SEPARATOR
+
+    def describe(self) -> dict[str, Any]:
+        """The layout as readers print it beside counts (snake_case JSON): the registers
+        in declaration order, the character between them, and where the first declared
+        register stands in a key."""
+        return {
+            "registers": self.to_json(),
+            "separator": self.separator,
+            "first_declared": "rightmost" if self.first else "leftmost",
+        }
+
+    def split(self, key: str) -> tuple[str, ...]:
+        """A count key's register values as bit strings, in declaration order.
+        ValueError for a key that does not fit the layout."""
+        if not self.registers:
+            if key:
+                raise ValueError(f"count key {key!r} does not fit a circuit with no register")
+            return ()
+        parts = key.split(self.separator) if len(self.registers) > 1 else [key]
+        if self.first:
+            parts.reverse()
+        if [len(p) for p in parts] != [w for _, w in self.registers] or any(
+            p.strip("01") for p in parts
+        ):
+            raise ValueError(f"count key {key!r} does not fit registers {self.registers}")
+        return tuple(parts)
+
+    def current_key(self, key: str) -> str:
+        """The key as :func:`key_columns` writes it (a first-predicate key rewritten)."""
+        if not self.first or len(self.registers) <= 1:
+            return key
+        return KEY_SEPARATOR.join(self.split(key))
+
+    def current_counts(self, counts: Mapping[str, _V]) -> dict[str, _V]:
+        """Counts (or probabilities) keyed as :func:`key_columns` writes keys: what
+        comparisons across results of either convention read."""
+        if not self.first or len(self.registers) <= 1:
+            return dict(counts)
+        return {self.current_key(key): value for key, value in counts.items()}
+
+    def columns(self, taken: Sequence[str] = ()) -> list[str]:
+        """One CSV column per register, ``reg_<name>``: the prefix keeps them apart from
+        ``outcome``, ``count`` and ``probability``; a name among ``taken`` (a program's
+        input names) gets the prefix again until it is not (``reg_reg_<name>``)."""
+        columns = []
+        for name in self.names:
+            column = f"reg_{name}"
+            while column in taken:
+                column = f"reg_{column}"
+            columns.append(column)
+        return columns
 
 
 def strings_of_rows(rows: Rows) -> list[str]:

@@ -11,6 +11,7 @@ import time
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
 
+from jobkeeper.counts import RegisterLayout
 from jobkeeper.exceptions import JobFailed
 from jobkeeper.queue import TERMINAL_STATES
 from jobkeeper.spec import JobSpec
@@ -90,8 +91,23 @@ class Job:
         return signed_result(self._store, self.id, self._keys())
 
     @property
+    def registers(self) -> RegisterLayout:
+        """How the job's count keys are laid out: its classical registers (names and
+        widths, in declaration order) and the key convention, as its manifest signs
+        them once it is done (checked like :attr:`result`)."""
+        from jobkeeper.provenance.manifest import circuit_layout
+
+        if self._keys is not None and self.state == "done":
+            from jobkeeper.audit.reading import signed_reading
+
+            layout = signed_reading(self._store, self.id, self._keys())[1]
+            if layout is not None:
+                return layout
+        return circuit_layout(self.spec.circuit_text, self.spec.register_names)
+
+    @property
     def counts(self) -> dict[str, int]:
-        """The counts of a done job (bit string → shots)."""
+        """The counts of a done job (count key → shots; see :attr:`registers`)."""
         result = self.result
         if result is None:
             raise JobFailed(f"job {self.id[:12]} is {self.refresh().state}: no counts yet")

@@ -79,6 +79,7 @@ def job_details(keeper: Keeper, job: Job) -> dict[str, Any]:
     ]
     result = job.result
     if result is not None:
+        data["count_keys"] = job.registers.describe()
         data["counts"] = None if result.counts is None else dict(result.counts)
         data["probabilities"] = None if result.probabilities is None else dict(result.probabilities)
         data["result_metadata"] = dict(result.metadata)

@@ -91,6 +91,11 @@ class JobSpec:
     #: the program the circuit was bound from: ``sha256:`` of its text, and the text
     template_hash: str | None = None
     template_text: str | None = None
+    #: the classical registers' names as the user declared them, in declaration order
+    #: (the canonical text calls them c0, c1, …): the register layout the manifest
+    #: records. Not part of the job key, as register names are not part of the circuit
+    #: hash: a job found again keeps the names it was first submitted with.
+    register_names: tuple[str, ...] = ()
 
     @classmethod
     def new(
@@ -100,6 +105,7 @@ class JobSpec:
         source_name: str | None = None, code_version: Mapping[str, Any] | None = None,
         rerun_of: str | None = None, bindings: Bindings | None = None,
         template_hash: str | None = None, template_text: str | None = None,
+        register_names: tuple[str, ...] = (),
     ) -> JobSpec:  # fmt: skip
         """A job being submitted: ``seed`` is what the user asked for (or None), and the
         seed the job runs with is resolved here, once."""
@@ -109,6 +115,7 @@ class JobSpec:
             options=dict(options or {}), source_hash=source_hash, source_name=source_name,
             code_version=code_version, rerun_of=rerun_of, bindings=bindings,
             template_hash=template_hash, template_text=template_text,
+            register_names=register_names,
         )  # fmt: skip
 
     def bindings_json(self) -> dict[str, float | int] | None:
@@ -149,6 +156,7 @@ class JobSpec:
             "rerunOf": self.rerun_of,
             # A JSON integer: Python's json and PostgreSQL read 63-bit integers exactly.
             "seed": self.seed,
+            "registerNames": list(self.register_names),
         }
         if self.bindings is not None:
             # A list, in declaration order (the document is written with sorted keys).
@@ -182,6 +190,7 @@ class JobSpec:
             bindings=bindings_of(document.get("bindings")),
             template_hash=template.get("hash"),
             template_text=template.get("text"),
+            register_names=tuple(str(n) for n in document.get("registerNames") or ()),
         )
 
 

@@ -1,6 +1,6 @@
 // Teleporting ry(1.0)|0> from q[0] to q[2] with classically controlled corrections.
-// (Invented example for jobkeeper's demo.) Bit r[0] of the result is the teleported
-// qubit: P(1) = sin^2(0.5) ≈ 0.2298.
+// (Invented example for jobkeeper's demo.) Bit r[0], the last part of each count key
+// (m0|m1|r), is the teleported qubit: P(1) = sin^2(0.5) ≈ 0.2298.
 OPENQASM 2.0;
 include "qelib1.inc";
 qreg q[3];

@@ -22,7 +22,7 @@ from dataclasses import dataclass, field
 from functools import partial
 from typing import TYPE_CHECKING, Any
 
-from jobkeeper.audit.reading import signed_result
+from jobkeeper.audit.reading import signed_reading
 from jobkeeper.backend import Task
 from jobkeeper.backends import ideal_simulator
 from jobkeeper.circuit import parse_qasm
@@ -85,11 +85,13 @@ def verified_manifest(store: Store, job: JobRecord, keys: Mapping[str, bytes]) -
 
 
 def _counts(store: Store, job: JobRecord, keys: Mapping[str, bytes]) -> dict[str, int]:
-    result = signed_result(store, job.id, keys)  # refused unless they are the signed ones
+    """The job's signed counts, keyed as today's keys are (a first-version job's keys
+    rewritten by its layout), so results of either version compare outcome by outcome."""
+    result, layout = signed_reading(store, job.id, keys)  # refused unless they are signed
     counts = None if result is None else result.counts
-    if not counts:
+    if not counts or layout is None:
         raise JobkeeperError(f"job {job.id[:12]} has no counts (an exact run?) to compare")
-    return dict(counts)
+    return layout.current_counts(counts)
 
 
 def _archive(

@@ -23,7 +23,12 @@ from typing import TYPE_CHECKING, Any
 from jobkeeper.audit.sealing import rfc3339
 from jobkeeper.exceptions import DamagedRecord
 from jobkeeper.hashing import sha256_tag
-from jobkeeper.provenance.manifest import COMPARISON_PREDICATE_TYPE, PREDICATE_TYPE
+from jobkeeper.provenance.manifest import (
+    COMPARISON_PREDICATE_TYPES,
+    RUN_PREDICATE_TYPE,
+    RUN_PREDICATE_TYPES,
+    circuit_layout,
+)
 from jobkeeper.provenance.report import VerifyReport
 
 if TYPE_CHECKING:
@@ -67,7 +72,8 @@ def _seconds(stamp: Any) -> float | None:
 
 def job_differences(
     job: JobRecord, predicate: Mapping[str, Any], attempts: Sequence[Attempt],
-    metadata_text: str | None, probabilities: Mapping[str, float] | None,
+    metadata_text: str | None, probabilities: Mapping[str, float] | None, *,
+    layout_signed: bool = True,
 ) -> list[str]:  # fmt: skip
     """Each column of ``job`` (and its attempts and result) that differs from the signed
     run predicate, as "what: archive says X, manifest signs Y"."""
@@ -104,6 +110,9 @@ def job_differences(
         signed = parameters.get("probabilities")
         pairs.append(("probabilities", None if probabilities is None else dict(probabilities),
                       None if signed is None else dict(signed)))  # fmt: skip
+    if layout_signed:  # run predicate v2: the register layout, names included
+        layout = circuit_layout(spec.circuit_text, spec.register_names).to_json()
+        pairs.append(("register layout", layout, predicate.get("registers")))
     if "resultMetadata" in predicate:
         digest = None if metadata_text is None else sha256_tag(metadata_text.encode())
         pairs.append(("result metadata (digest)", digest, predicate["resultMetadata"]))
@@ -167,16 +176,17 @@ def check_mirrors(
         predicate = statement.get("predicate")
         if not isinstance(predicate, dict):
             continue
-        if kind == COMPARISON_PREDICATE_TYPE and entry.job_id in comparisons:
+        if kind in COMPARISON_PREDICATE_TYPES and entry.job_id in comparisons:
             for text in comparison_differences(comparisons[entry.job_id], predicate):
                 report.problems.append(f"comparison {entry.job_id[:12]}: {text}")
-        elif kind == PREDICATE_TYPE and (chosen is None or entry.job_id in chosen):
-            runs[entry.job_id] = (entry, predicate)
+        elif kind in RUN_PREDICATE_TYPES and (chosen is None or entry.job_id in chosen):
+            runs[entry.job_id] = (entry, statement)
     records = _records(store, list(runs), report)
     texts = store.all_result_texts()
     every_attempt = store.all_attempts()  # all of them: an added row is a change too
     unsigned_metadata = 0
-    for job_id, (_, predicate) in runs.items():
+    for job_id, (_, statement) in runs.items():
+        predicate = statement["predicate"]
         job = records.get(job_id)
         if job is None or job.state != "done":
             continue  # reported by the log check (an entry for a job that is not done)
@@ -187,7 +197,10 @@ def check_mirrors(
             report.problems.append(f"job {job_id[:12]}: its stored probabilities are unreadable")
             continue
         attempts = every_attempt.get(job_id, [])
-        for text in job_differences(job, predicate, attempts, metadata, probabilities):
+        layout_signed = statement.get("predicateType") == RUN_PREDICATE_TYPE
+        for text in job_differences(
+            job, predicate, attempts, metadata, probabilities, layout_signed=layout_signed
+        ):
             report.problems.append(f"job {job_id[:12]}: {text}")
         unsigned_metadata += "resultMetadata" not in predicate
     if unsigned_metadata:

@@ -17,9 +17,10 @@ from typing import TYPE_CHECKING, Any
 
 from jobkeeper.exceptions import DamagedRecord, VerificationError
 from jobkeeper.provenance.dsse import verify_envelope
-from jobkeeper.provenance.manifest import check_subject, parse_statement
+from jobkeeper.provenance.manifest import check_subject, parse_statement, register_layout
 
 if TYPE_CHECKING:
+    from jobkeeper.counts import RegisterLayout
     from jobkeeper.store import JobRecord, Store, StoredResult
 
 
@@ -34,6 +35,14 @@ def signed_result(store: Store, job_id: str, keys: Mapping[str, bytes]) -> Store
     """The stored result of the job, checked against its signed manifest (``keys``: the
     keys trusted here). None for a job with no result yet (not done). VerificationError
     when the result is not the signed one, or a done job has no signed record."""
+    return signed_reading(store, job_id, keys)[0]
+
+
+def signed_reading(
+    store: Store, job_id: str, keys: Mapping[str, bytes]
+) -> tuple[StoredResult | None, RegisterLayout | None]:
+    """:func:`signed_result` and the register layout its manifest signs (how its count
+    keys are laid out; None with no result)."""
     [job] = store.get_many([job_id])  # afresh: the caller's record may predate its end
     try:
         result = store.result(job.id)
@@ -42,7 +51,7 @@ def signed_result(store: Store, job_id: str, keys: Mapping[str, bytes]) -> Store
     if job.state != "done":
         if result is not None:
             raise _refuse(job, f"the job is {job.state}, yet a result is archived for it")
-        return None
+        return None, None
     entry = store.log_entry_for(job.id)
     if result is None or entry is None:
         raise _refuse(job, "it is marked done, but its result or signed record is missing")
@@ -63,7 +72,11 @@ def signed_result(store: Store, job_id: str, keys: Mapping[str, bytes]) -> Store
     have = None if result.probabilities is None else dict(result.probabilities)
     if have != signed:
         raise _refuse(job, "its exact probabilities are not the signed ones")
-    return result
+    try:
+        layout = register_layout(statement)
+    except VerificationError as exc:
+        raise _refuse(job, str(exc)) from None
+    return result, layout
 
 
-__all__ = ["signed_result"]
+__all__ = ["signed_reading", "signed_result"]

@@ -35,6 +35,7 @@ from jobkeeper.provenance.manifest import (
     COMPARISON_PREDICATE_TYPE,
     STATEMENT_TYPE,
     build_statement,
+    circuit_layout,
     statement_bytes,
 )
 from jobkeeper.provenance.merkle import leaf_hash, node_hash
@@ -203,6 +204,9 @@ class Sealer:
             # The digest of the result's metadata as the archive keeps it (the metadata
             # may hold what RFC 8785 cannot carry, such as a device's 64-bit integers).
             "resultMetadata": sha256_tag(metadata_text(result.metadata).encode()),
+            # How the counts' keys are laid out (run predicate v2): the registers in
+            # declaration order, with the names the user gave them.
+            "registers": circuit_layout(spec.circuit_text, spec.register_names).to_json(),
             # As the backend gave them (a dict, or a CountTable that writes its own JSON).
             "counts": result.counts if result.counts is not None else {},
         }

@@ -21,7 +21,7 @@ from jobkeeper.cli._app import (
     open_keeper,
     progress_wait,
 )
-from jobkeeper.cli._render import job_json, table, when
+from jobkeeper.cli._render import counts_csv, job_json, table, when
 from jobkeeper.exceptions import ConfigError, JobkeeperError
 
 if TYPE_CHECKING:
@@ -242,7 +242,8 @@ def counts(
     store: StoreOpt = None,
     json_out: JsonOpt = False,
 ) -> None:
-    """Print a done job's counts (or exact probabilities): JSON unless --format csv. For a
+    """Print a done job's counts (or exact probabilities) with their key layout: JSON
+    unless --format csv (a column per register, reg_<name>, beside the key). For a
     sweep, every done point's: in CSV one row per point and outcome."""
     if fmt not in ("json", "csv"):
         raise ConfigError(f"--format must be json or csv, not {fmt!r}")
@@ -259,19 +260,14 @@ def counts(
     result = job.result
     if result is None:
         raise JobkeeperError(f"job {job.id[:12]} is {job.state}: it has no counts")
+    layout = job.registers
+    kind = "probabilities" if result.probabilities else "counts"
     values: dict[str, Any] = dict(result.probabilities or result.counts or {})
     if fmt == "json":
-        typer.echo(json.dumps(values, sort_keys=True))
+        echo_json({"count_keys": layout.describe(), kind: dict(sorted(values.items()))})
         return
-    import csv  # only this format needs it
-    import io
-
-    buffer = io.StringIO()
-    writer = csv.writer(buffer, lineterminator="\n")
-    writer.writerow(["outcome", "probability" if result.probabilities else "count"])
-    for key in sorted(values):
-        writer.writerow([key, values[key]])
-    typer.echo(buffer.getvalue(), nl=False)
+    column = "probability" if result.probabilities else "count"
+    typer.echo(counts_csv(values, layout, column), nl=False)
 
 
 @app.command()

@@ -3,10 +3,21 @@
 from __future__ import annotations
 
 from collections.abc import Mapping
+from typing import Any
 
+from jobkeeper.counts import RegisterLayout
 from jobkeeper.shapes import job_json, when, when_iso
 
-__all__ = ["bar_chart", "job_json", "shots_warning", "table", "when", "when_iso"]
+__all__ = [
+    "bar_chart",
+    "counts_csv",
+    "job_json",
+    "key_legend",
+    "shots_warning",
+    "table",
+    "when",
+    "when_iso",
+]
 
 BAR_WIDTH = 40
 SMALL_SHOTS = 100
@@ -50,3 +61,30 @@ def table(rows: list[list[str]], headers: list[str]) -> str:
     for row in rows:
         lines.append("  ".join(c.ljust(w) for c, w in zip(row, widths, strict=True)).rstrip())
     return "\n".join(lines)
+
+
+def counts_csv(values: dict[str, Any], layout: RegisterLayout, column: str) -> str:
+    """CSV of outcomes: the key, then one column per register (``reg_<name>``, its
+    value in binary), then the count or probability."""
+    import csv  # only this format needs it
+    import io
+
+    buffer = io.StringIO()
+    writer = csv.writer(buffer, lineterminator="\n")
+    writer.writerow(["outcome", *layout.columns(), column])
+    for key in sorted(values):
+        writer.writerow([key, *layout.split(key), values[key]])
+    return buffer.getvalue()
+
+
+def key_legend(count_keys: Mapping[str, Any]) -> str:
+    """One line naming the registers of a key with several, as they stand in it
+    (``a[2]|b[1]``), from a layout as ``RegisterLayout.describe`` gives it;
+    nothing for one register, whose key is its value."""
+    registers = count_keys.get("registers") or []
+    if len(registers) < 2:
+        return ""
+    parts = [f"{r['name']}[{r['width']}]" for r in registers]
+    if count_keys.get("first_declared") == "rightmost":
+        parts.reverse()
+    return str(count_keys.get("separator")).join(parts)

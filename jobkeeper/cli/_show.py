@@ -6,7 +6,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
-from jobkeeper.cli._render import bar_chart, shots_warning
+from jobkeeper.cli._render import bar_chart, key_legend, shots_warning
 from jobkeeper.shapes import job_details
 
 if TYPE_CHECKING:
@@ -72,6 +72,9 @@ def _text(d: dict[str, Any]) -> str:
         for a in d["attempt_history"]:
             how = "  (retried within the call)" if a["in_call"] else ""
             lines.append(f"    {a['number']}. {a['at']}  {a['error_class']}: {a['message']}{how}")
+    legend = key_legend(d.get("count_keys") or {})
+    if legend:
+        lines.append(f"  keys       {legend}")
     if d.get("probabilities") is not None:
         lines.append("  exact probabilities:")
         lines.append(bar_chart(d["probabilities"], total=1.0))

@@ -24,7 +24,7 @@ from jobkeeper.cli._app import (
     open_keeper,
 )
 from jobkeeper.cli._progress import activity, counting
-from jobkeeper.cli._render import bar_chart, job_json, shots_warning, when
+from jobkeeper.cli._render import bar_chart, job_json, key_legend, shots_warning, when
 from jobkeeper.exceptions import ConfigError, TransientBackendError
 
 if TYPE_CHECKING:
@@ -128,6 +128,8 @@ def _result_json(job: Job, deduplicated: bool) -> dict[str, Any]:
         "circuit_hash": job.spec.circuit_hash,
         "bindings": job.spec.bindings_json(),
     }
+    if result is not None:
+        out["count_keys"] = job.registers.describe()
     if result is not None and result.probabilities is not None:
         out["probabilities"] = dict(result.probabilities)
     elif result is not None:
@@ -193,6 +195,9 @@ def _print_result(job: Job, deduplicated: bool) -> None:
     typer.echo(f"job {record.id[:12]} on {spec.backend}, {spec.shots} shots, seed {spec.seed}")
     if spec.bindings is not None:
         typer.echo(f"inputs: {spec.bindings.describe()}")
+    legend = key_legend(job.registers.describe())
+    if legend:
+        typer.echo(f"count keys: {legend}")
     if result.probabilities is not None:
         typer.echo("exact probabilities:")
         typer.echo(bar_chart(dict(result.probabilities), total=1.0))

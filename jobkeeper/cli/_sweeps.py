@@ -59,6 +59,9 @@ def sweep_counts(run: SweepRun, fmt: str) -> str:
     """``counts SWEEP``: CSV with a row per point and outcome (the inputs as columns), or
     JSON, one object per done point with its bindings and counts."""
     rows = run.table(texts=fmt == "csv")
+    done = [job for job in run.jobs if job.state == "done"]
+    # every point is one template bound: one register layout for all of them
+    layout = done[0].registers if done else None
     if fmt == "json":
         by_point: dict[tuple[Any, ...], dict[str, Any]] = {}
         names = [item["name"] for item in run.points[0].bindings] if run.points else []
@@ -66,13 +69,17 @@ def sweep_counts(run: SweepRun, fmt: str) -> str:
             key = tuple(row[name] for name in names)
             value = row.get("count", row.get("probability"))
             point = by_point.setdefault(key, {"bindings": {n: row[n] for n in names}, "counts": {}})
+            if layout is not None:
+                point["count_keys"] = layout.describe()
             point["counts"][row["outcome"]] = value
         return json.dumps(list(by_point.values()), sort_keys=True) + "\n"
     buffer = io.StringIO()
     writer = csv.writer(buffer, lineterminator="\n")
     names = [item["name"] for item in run.points[0].bindings] if run.points else []
     column = "probability" if rows and "probability" in rows[0] else "count"
-    writer.writerow([*names, "outcome", column])
+    registers = [] if layout is None else layout.columns(taken=names)
+    writer.writerow([*names, "outcome", *registers, column])
     for row in rows:
-        writer.writerow([*(row[name] for name in names), row["outcome"], row[column]])
+        parts = [] if layout is None else layout.split(row["outcome"])
+        writer.writerow([*(row[name] for name in names), row["outcome"], *parts, row[column]])
     return buffer.getvalue()

@@ -191,7 +191,8 @@ class KeepProof(KeepRuns):
         done = [r.id for r in records if r.state == "done"]
         if done:
             require_ok(self.verify(done), "not exported")
+        layouts = {job_id: self.job(job_id).registers for job_id in done}
         return export_jobs(
             self.store, records, Path(path), guarded=guarded, force=force, label=label,
-            origin=self.store.get_meta("origin"),
+            origin=self.store.get_meta("origin"), layouts=layouts,
         )  # fmt: skip

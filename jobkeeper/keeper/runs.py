@@ -126,9 +126,12 @@ class KeepRuns(KeepCore):
     ) -> list[Submitted]:  # fmt: skip
         target = self._target(options)
         new_jobs: list[NewJob] = []
+        # A rerun runs the canonical text, whose registers are c0, c1, …: it keeps the
+        # names the original's user gave them.
+        names = None if rerun_of is None else self.store.get(rerun_of).spec.register_names
         for item in circuits:
             circuit, bindings, template = self._bound(item, options.inputs)
-            new_jobs.append(target.job(circuit, bindings, template, rerun_of))
+            new_jobs.append(target.job(circuit, bindings, template, rerun_of, names))
         return self._enqueue(new_jobs, options)
 
     def _bound(

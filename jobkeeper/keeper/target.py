@@ -32,8 +32,10 @@ class JobTarget:
     def job(
         self, circuit: Circuit, bindings: Bindings | None = None,
         template: Template | None = None, rerun_of: str | None = None,
+        register_names: tuple[str, ...] | None = None,
     ) -> NewJob:  # fmt: skip
-        """The job that runs ``circuit`` (bound from ``template`` with ``bindings``)."""
+        """The job that runs ``circuit`` (bound from ``template`` with ``bindings``);
+        its registers keep the names the circuit declares unless ``register_names``."""
         from jobkeeper.circuit import canonical_text
         from jobkeeper.hashing import sha256_tag
         from jobkeeper.spec import JobSpec, job_key
@@ -47,6 +49,10 @@ class JobTarget:
             source_name=circuit.source_name, code_version=self.code_version, rerun_of=rerun_of,
             bindings=bindings, template_hash=None if template is None else template.source_hash,
             template_text=None if template is None else template.text,
+            register_names=(
+                tuple(reg.name for reg in circuit.cregs) if register_names is None
+                else register_names
+            ),
         )  # fmt: skip
         pricing = self.info.pricing
         return NewJob(

@@ -35,6 +35,7 @@ from starlette.responses import JSONResponse, Response
 from starlette.routing import Route
 
 from jobkeeper.backends.rest.wire import parse_structured_string
+from jobkeeper.counts import plain_key
 from jobkeeper.loopback._device import LoopbackDevice, Rejection
 
 CLIENT_ID = "loopback-client"
@@ -123,7 +124,7 @@ async def _form(request: Request) -> dict[str, str]:
 def _samples(counts: dict[str, int], seed: int) -> list[str]:
     # every shot once, in an order of its own (seeded): a device's per-shot record
     shots = [
-        hex(int(key.replace(" ", ""), 2) if key.strip() else 0)
+        hex(int(plain_key(key), 2) if key else 0)
         for key, n in sorted(counts.items())
         for _ in range(n)
     ]

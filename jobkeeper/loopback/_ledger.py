@@ -25,6 +25,7 @@ from starlette.requests import Request
 from starlette.responses import JSONResponse, Response
 from starlette.routing import Route
 
+from jobkeeper.counts import plain_key
 from jobkeeper.loopback._device import LoopbackDevice, Rejection
 
 WORDS = {"queued": "filed", "running": "working", "complete": "settled",
@@ -32,9 +33,9 @@ WORDS = {"queued": "filed", "running": "working", "complete": "settled",
 
 
 def _shots(counts: dict[str, int], seed: int) -> list[list[int]]:
-    # each shot's classical bits, c[0] first (count keys write c[0] last)
+    # each shot's classical bits, c[0] first
     shots = [
-        [int(b) for b in reversed(key.replace(" ", ""))]
+        [int(b) for b in reversed(plain_key(key))]
         for key, n in sorted(counts.items())
         for _ in range(n)
     ]

@@ -58,7 +58,9 @@ from jobkeeper.provenance.keys import (
 )
 from jobkeeper.provenance.log import LogEntry, SealedRun, seal_run, verify_log
 from jobkeeper.provenance.manifest import (
+    COMPARISON_PREDICATE_TYPE,
     PREDICATE_TYPE,
+    RUN_PREDICATE_TYPE,
     STATEMENT_TYPE,
     RunPredicate,
     build_statement,
@@ -84,9 +86,11 @@ from jobkeeper.provenance.report import VerifyReport
 
 __all__ = [
     "BUNDLE_FORMAT",
+    "COMPARISON_PREDICATE_TYPE",
     "EMPTY_ROOT",
     "PAYLOAD_TYPE",
     "PREDICATE_TYPE",
+    "RUN_PREDICATE_TYPE",
     "STATEMENT_TYPE",
     "Bundle",
     "BundleEntry",

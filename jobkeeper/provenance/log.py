@@ -29,10 +29,11 @@ from jobkeeper.provenance.keys import fingerprint, load_public_key
 from jobkeeper.provenance.manifest import (
     COMPARISON_NAME,
     COUNTS_NAME,
-    PREDICATE_TYPE,
     PREDICATE_TYPES,
+    RUN_PREDICATE_TYPES,
     RunPredicate,
     build_statement,
+    check_layout,
     check_subject,
     check_subject_document,
     parse_statement,
@@ -122,7 +123,7 @@ def check_envelope(
         ok = False
     try:
         statement = parse_statement(verified.payload, predicate_types=PREDICATE_TYPES)
-        is_run = statement["predicateType"] == PREDICATE_TYPE
+        is_run = statement["predicateType"] in RUN_PREDICATE_TYPES
         if job_key is not None and (not is_run or statement["predicate"].get("jobKey") != job_key):
             raise VerificationError("it attests another job key than the archive's job has")
         if document is not None:
@@ -132,6 +133,9 @@ def check_envelope(
                 counts = statement["predicate"].get("counts")
             if counts is not None:
                 check_subject(statement, counts)
+        if is_run:
+            # the keys' layout fits the signed circuit (and the keys of the signed counts)
+            check_layout(statement, statement["predicate"].get("counts") or {})
     except VerificationError as exc:
         report.problems.append(f"{label}: {exc}")
         ok = False

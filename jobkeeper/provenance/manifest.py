@@ -11,29 +11,50 @@ import hashlib
 import os
 import re
 import subprocess
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 from typing import Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, field_validator
 from pydantic.alias_generators import to_camel
 
-from jobkeeper.counts import CountTable
+from jobkeeper.counts import CountTable, RegisterLayout
 from jobkeeper.exceptions import ProvenanceError, VerificationError
 from jobkeeper.hashing import canonical_json, sha256_tag
 from jobkeeper.provenance.dsse import strict_json_loads
 
 STATEMENT_TYPE = "https://in-toto.io/Statement/v1"
-# A namespace we control; in-toto asks only for a URI with the major version at its end.
-PREDICATE_TYPE = "https://jobkeeper.dev/attestation/run/v1"
+
+
+def predicate_type(kind: str, version: int) -> str:
+    """The predicate type URI of one kind of statement: a URN of the project's own
+    (``urn:jobkeeper:predicate:<kind>:v<N>``), so the identifier depends on no domain;
+    in-toto asks only for a URI with the major version at its end. Every kind of
+    statement (runs, comparisons, and later kinds) is named by this one pattern."""
+    return f"urn:jobkeeper:predicate:{kind}:v{version}"
+
+
+#: A run, version 2: the predicate records the register layout of the counts' keys
+#: (``registers``), which are written as :func:`jobkeeper.counts.key_columns` says.
+RUN_PREDICATE_TYPE = predicate_type("run", 2)
+PREDICATE_TYPE = RUN_PREDICATE_TYPE
+#: Runs signed before that: keys of several registers wrote the last declared register
+#: first, a space between registers. Still verified, with that meaning.
+FIRST_RUN_PREDICATE_TYPE = "https://jobkeeper.dev/attestation/run/v1"
+RUN_PREDICATE_TYPES = (RUN_PREDICATE_TYPE, FIRST_RUN_PREDICATE_TYPE)
 COUNTS_NAME = "counts.json"
 # Comparisons (reruns, backend against backend, against the ideal) are attested too: their
-# subject is the comparison report document (RFC 8785 canonical JSON).
-COMPARISON_PREDICATE_TYPE = "https://jobkeeper.dev/attestation/comparison/v1"
+# subject is the comparison report document (RFC 8785 canonical JSON). Version 2 compares
+# count keys in the register layout of today (first-version keys rewritten).
+COMPARISON_PREDICATE_TYPE = predicate_type("comparison", 2)
+FIRST_COMPARISON_PREDICATE_TYPE = "https://jobkeeper.dev/attestation/comparison/v1"
+COMPARISON_PREDICATE_TYPES = (COMPARISON_PREDICATE_TYPE, FIRST_COMPARISON_PREDICATE_TYPE)
 COMPARISON_NAME = "comparison.json"
-PREDICATE_TYPES = (PREDICATE_TYPE, COMPARISON_PREDICATE_TYPE)
+PREDICATE_TYPES = RUN_PREDICATE_TYPES + COMPARISON_PREDICATE_TYPES
 MAX_SAFE_INT = 2**53 - 1
 
 _HEX64 = re.compile(r"[0-9a-f]{64}")
+#: a classical register's line in canonical circuit text (jobkeeper.circuit.canonical)
+_CREG = re.compile(r"^creg c\d+\[(\d+)\];$", re.MULTILINE)
 _RFC3339_Z = re.compile(r"\d{4}-\d{2}-\d{2}T\d{2}:\d{2}:\d{2}(\.\d{1,9})?Z")
 
 
@@ -112,8 +133,14 @@ class TemplateRecord(_Model):
     text: str
 
 
+class RegisterRecord(_Model):
+    name: str
+    width: int = Field(ge=1)
+
+
 class RunPredicate(_Model):
-    """The predicate of ``https://jobkeeper.dev/attestation/run/v1``."""
+    """The predicate of ``urn:jobkeeper:predicate:run:v2`` (and, without ``registers``,
+    of the first version)."""
 
     job_key: str
     circuit: CircuitRecord
@@ -126,6 +153,8 @@ class RunPredicate(_Model):
     code_version: CodeVersion | CodeVersionAbsent
     timestamps: Timestamps
     attempts: list[Attempt] = Field(default_factory=list)
+    #: the classical registers in declaration order: how the counts' keys are laid out
+    registers: list[RegisterRecord] | None = None
     counts: dict[str, int]
     #: for a circuit bound from a program with inputs: the program, and each value's text
     template: TemplateRecord | None = None
@@ -192,7 +221,7 @@ def build_statement(
     return {
         "_type": STATEMENT_TYPE,
         "subject": [{"name": COUNTS_NAME, "digest": {"sha256": counts_digest(counts)}}],
-        "predicateType": PREDICATE_TYPE,
+        "predicateType": RUN_PREDICATE_TYPE,
         "predicate": pred,
     }
 
@@ -207,7 +236,7 @@ def statement_bytes(statement: Mapping[str, Any]) -> bytes:
 
 
 def parse_statement(
-    payload: bytes, *, predicate_types: tuple[str, ...] = (PREDICATE_TYPE,)
+    payload: bytes, *, predicate_types: tuple[str, ...] = RUN_PREDICATE_TYPES
 ) -> dict[str, Any]:
     """Parse and check verified payload bytes as a Statement; VerificationError names the field."""
     data = strict_json_loads(payload, "statement")
@@ -257,6 +286,54 @@ def check_subject(statement: Mapping[str, Any], counts: Mapping[str, int]) -> No
         raise VerificationError(
             f"counts digest mismatch: statement says sha256:{got}, counts give sha256:{want}"
         )
+
+
+def creg_widths(canonical: str) -> list[int]:
+    """The classical registers' widths, in declaration order, of canonical circuit text."""
+    return [int(width) for width in _CREG.findall(canonical)]
+
+
+def circuit_layout(canonical: str, names: Sequence[str] = ()) -> RegisterLayout:
+    """The register layout of a job's canonical circuit, with the names its user gave
+    the registers (the canonical names c0, c1, … where none are known)."""
+    widths = creg_widths(canonical)
+    if len(names) != len(widths):
+        names = [f"c{k}" for k in range(len(widths))]
+    return RegisterLayout(tuple(zip(names, widths, strict=True)))
+
+
+def register_layout(statement: Mapping[str, Any]) -> RegisterLayout:
+    """How the keys of a run statement's counts are laid out: the registers its predicate
+    records, or, for the first run predicate, the registers of its canonical circuit
+    (named as the canonical text names them) with that version's key convention.
+    VerificationError when the statement's layout is malformed."""
+    predicate = statement.get("predicate") or {}
+    if statement.get("predicateType") == FIRST_RUN_PREDICATE_TYPE:
+        text = str((predicate.get("circuit") or {}).get("canonicalText") or "")
+        return RegisterLayout(circuit_layout(text).registers, first=True)
+    try:
+        return RegisterLayout.from_json(predicate.get("registers"))
+    except ValueError as exc:
+        raise VerificationError(f"the statement's register layout is malformed: {exc}") from None
+
+
+def check_layout(statement: Mapping[str, Any], counts: Mapping[str, Any]) -> RegisterLayout:
+    """The statement's register layout, checked against its canonical circuit (widths in
+    order) and the keys of ``counts``; VerificationError names what does not fit."""
+    layout = register_layout(statement)
+    text = str((statement["predicate"].get("circuit") or {}).get("canonicalText") or "")
+    widths = creg_widths(text)
+    if [width for _, width in layout.registers] != widths:
+        raise VerificationError(
+            f"the register layout {layout.registers} does not fit the signed circuit's "
+            f"registers (widths {widths})"
+        )
+    for key in counts:
+        try:
+            layout.split(key)
+        except ValueError as exc:
+            raise VerificationError(str(exc)) from None
+    return layout
 
 
 # ---------------------------------------------------------------------------------------

@@ -129,7 +129,7 @@ def outcome_rows(
     mapping's order: every use of them is a sum that does not depend on it)."""
     if isinstance(counts, CountTable):
         rows, values = counts.arrays()
-        if rows.shape[1] != width or np.any(rows == ord(" ")):
+        if rows.shape[1] != width or np.any((rows != ord("0")) & (rows != ord("1"))):
             raise StatsInputError(f"{what}: count keys must be {width}-bit strings")
         return rows, values
     keys = list(counts)

@@ -7,8 +7,10 @@ Tables (one fact per row, one row per thing):
   array), bindings (a JSON object of the circuit's input values; empty until programs
   take inputs), circuit hash, source name, job key, exact (0/1), submitted and finished
   times (RFC 3339, UTC);
-- ``counts``: one row per job and outcome (``job_id``, ``outcome``, ``count``), for sampled
-  results; ``probabilities``: the same for exact runs (``probability``);
+- ``counts``: one row per job and outcome (``job_id``, ``outcome``, ``count``, and one
+  column per classical register, ``reg_<name>``, holding that register's value in binary),
+  for sampled results; ``probabilities``: the same for exact runs (``probability``); the
+  ``jobs`` table's ``count_keys`` says how each job's keys are laid out;
 - ``export``: one row saying what this file is: when and from which keep it was written,
   the label chosen, and that it is an unsigned copy (the signed record stays in the keep).
 
@@ -23,11 +25,12 @@ import contextlib
 import datetime as dt
 import json
 import sqlite3
-from collections.abc import Iterable, Iterator, Sequence
+from collections.abc import Iterable, Iterator, Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
+from jobkeeper.counts import RegisterLayout
 from jobkeeper.exceptions import StoreError
 from jobkeeper.outputs import atomic_output
 from jobkeeper.store import JobRecord, Store
@@ -54,7 +57,7 @@ def _when(seconds: float | None) -> str | None:
     return dt.datetime.fromtimestamp(seconds, tz=dt.UTC).isoformat(timespec="milliseconds")
 
 
-def job_row(record: JobRecord) -> dict[str, Any]:
+def job_row(record: JobRecord, layout: RegisterLayout | None = None) -> dict[str, Any]:
     spec = record.spec
     return {
         "id": record.id,
@@ -73,13 +76,14 @@ def job_row(record: JobRecord) -> dict[str, Any]:
         "exact": int(spec.exact),
         "submitted_at": _when(record.created_at),
         "finished_at": _when(record.finished_at),
+        "count_keys": None if layout is None else json.dumps(layout.describe()),
     }
 
 
 JOB_COLUMNS: dict[str, type] = {
     "id": str, "state": str, "backend": str, "shots": int, "seed": int, "repeat": int,
     "labels": str, "bindings": str, "circuit_hash": str, "source_name": str, "job_key": str,
-    "exact": int, "submitted_at": str, "finished_at": str,
+    "exact": int, "submitted_at": str, "finished_at": str, "count_keys": str,
 }  # fmt: skip
 
 
@@ -92,21 +96,28 @@ def export_jobs(
     force: bool = False,
     label: str | None = None,
     origin: str | None = None,
+    layouts: Mapping[str, RegisterLayout] | None = None,
 ) -> ExportSummary:
     """Write ``records`` and their results to the SQLite file ``path`` (see the module
-    docstring). Refuses what :func:`jobkeeper.outputs.check_output` refuses."""
+    docstring; ``layouts``: each done job's register layout, as its manifest signs it).
+    Refuses what :func:`jobkeeper.outputs.check_output` refuses."""
     import sqlite_utils
 
     found = {"counts": 0, "probabilities": 0}
+    layouts = layouts or {}
 
     def outcomes(kind: str) -> Iterator[dict[str, Any]]:
         for record in records:
             result = store.result(record.id)
             values = None if result is None else getattr(result, kind)
             column = "count" if kind == "counts" else "probability"
+            layout = layouts.get(record.id)
             for outcome, value in sorted((values or {}).items()):
                 found[kind] += 1
-                yield {"job_id": record.id, "outcome": outcome, column: value}
+                row = {"job_id": record.id, "outcome": outcome, column: value}
+                if layout is not None:
+                    row.update(zip(layout.columns(), layout.split(outcome), strict=True))
+                yield row
 
     try:
         with (
@@ -115,7 +126,7 @@ def export_jobs(
         ):
             db = sqlite_utils.Database(conn)
             db.table("jobs").create(JOB_COLUMNS, pk="id", not_null={"id", "state", "backend"})
-            db.table("jobs").insert_all(job_row(r) for r in records)
+            db.table("jobs").insert_all(job_row(r, layouts.get(r.id)) for r in records)
             for kind, column, kind_type in (
                 ("counts", "count", int),
                 ("probabilities", "probability", float),
@@ -125,7 +136,8 @@ def export_jobs(
                     pk=("job_id", "outcome"),
                     foreign_keys=[("job_id", "jobs", "id")],
                 )
-                db.table(kind).insert_all(outcomes(kind), batch_size=5000)
+                # alter: each register adds its reg_<name> column when first met
+                db.table(kind).insert_all(outcomes(kind), batch_size=5000, alter=True)
             db.table("export").insert(
                 {"written_at": _when(dt.datetime.now(tz=dt.UTC).timestamp()),
                  "keep": origin, "label": label, "jobs": len(records), "note": NOTE}

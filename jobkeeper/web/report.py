@@ -29,6 +29,7 @@ from jobkeeper.outputs import write_output
 from jobkeeper.provenance.bundle import Bundle, read_bundle
 from jobkeeper.provenance.checkpoint import parse_checkpoint, split_note
 from jobkeeper.provenance.dsse import b64decode_strict
+from jobkeeper.provenance.manifest import RUN_PREDICATE_TYPES
 from jobkeeper.web.app import stylesheet, templates
 from jobkeeper.web.figures import FigureSource, Histogram, histogram_figure, inline_svg
 from jobkeeper.web.views import manifest_fields, report_view
@@ -130,7 +131,7 @@ def _record(entry: Any, n: int, digest: str) -> dict[str, Any]:
         predicate = statement["predicate"]
     except (VerificationError, ValueError, KeyError, TypeError):
         return {**base, "kind": "unreadable", "fields": [], "figure": None, "counts": []}
-    kind = "job" if str(statement.get("predicateType", "")).endswith("/run/v1") else "comparison"
+    kind = "job" if statement.get("predicateType") in RUN_PREDICATE_TYPES else "comparison"
     fields = manifest_fields(statement)
     record: dict[str, Any] = {**base, "kind": kind, "fields": fields, "figure": None, "counts": []}
     if kind == "job" and isinstance(predicate.get("counts"), Mapping):

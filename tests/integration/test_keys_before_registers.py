@@ -69,3 +69,27 @@ def test_the_bundle_verifies_offline_in_another_keep(
     code, out, err = jk(capsys, *args, "--key", FINGERPRINT, "--json")
     assert code == 0, out + err
     assert json.loads(out)["ok"] is True
+
+
+def test_old_keys_keep_their_meaning_beside_new_ones(
+    keep: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    # The fixture's circuit (make_keep.py): a = 01 always, b a coin. Its old keys "0 01"
+    # and "1 01" are b, a; written today they are "01|0" and "01|1" (worked out by hand).
+    job_id = next(iter(THREE_REGISTER_JOBS))
+    with Keeper.open(keep, create=False) as keeper:
+        old = keeper.job(job_id)
+        layout = old.registers
+        assert layout.first and layout.registers == (("c0", 2), ("c1", 1))
+        assert layout.split("1 01") == ("01", "1")
+        rerun = keeper.rerun(job_id)  # the same deterministic setup: identical counts
+        assert rerun.record.verdict == "identical"
+        again = keeper.job(rerun.rerun_job or "")
+        assert set(again.counts) == {"01|0", "01|1"}
+        old_counts = THREE_REGISTER_JOBS[job_id]
+        assert again.counts == {"01|0": old_counts["0 01"], "01|1": old_counts["1 01"]}
+        assert keeper.compare(job_id, ideal=True).record.verdict == "consistent"
+        assert keeper.verify().ok
+    code, out, err = jk(capsys, "--keep", str(keep), "counts", job_id, "--format", "csv")
+    assert code == 0, err
+    assert out.splitlines() == ["outcome,reg_c0,reg_c1,count", "0 01,01,0,210", "1 01,01,1,190"]

@@ -238,8 +238,8 @@ def test_ensure_meta_sets_once(store: Store) -> None:
 def test_a_count_table_is_kept_as_the_same_canonical_document(store: Store) -> None:
     store.enqueue([new_job()])
     [claim] = store.claim("w", limit=1, lease_seconds=60)
-    rows = np.frombuffer(b"11 100 0", dtype=np.uint8).reshape(2, 4)
+    rows = np.frombuffer(b"11|100|0", dtype=np.uint8).reshape(2, 4)
     store.finish([completion(claim, CountTable(rows, np.array([7, 5])))], appender)
-    # RFC 8785 §3.2.3: members sorted by key ("00 0" before "11 1"), no whitespace.
-    assert store.all_counts() == {claim.job.id: '{"00 0":5,"11 1":7}'}
-    assert store.result(claim.job.id).counts == {"00 0": 5, "11 1": 7}
+    # RFC 8785 §3.2.3: members sorted by key ("00|0" before "11|1"), no whitespace.
+    assert store.all_counts() == {claim.job.id: '{"00|0":5,"11|1":7}'}
+    assert store.result(claim.job.id).counts == {"00|0": 5, "11|1": 7}

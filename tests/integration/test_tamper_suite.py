@@ -160,6 +160,8 @@ PER_JOB: dict[str, Callable[[sqlite3.Connection, str], None]] = {
     "spec code version": _spec(
         "codeVersion", {"commit": "0" * 40, "dirty": False, "diffHash": "sha256:" + "2" * 64}
     ),
+    "spec register names": _spec("registerNames", ["forged"]),
+    "spec register names dropped": _spec("registerNames", []),
     "spec unreadable": _sql("UPDATE jobs SET spec = '{' WHERE id = :job"),
     "count changed": _counts(_bump),
     "counts moved": _counts(_shift),
@@ -465,7 +467,7 @@ def test_forged_counts_are_refused_loudly_by_every_reader(
 # -- edits to a bundle ---------------------------------------------------------------------
 
 
-def _payload_edit(path: list[str], value: Any) -> Callable[[dict[str, Any]], None]:
+def _payload_edit(path: list[Any], value: Any) -> Callable[[dict[str, Any]], None]:
     def edit(statement: dict[str, Any]) -> None:
         node = statement
         for key in path[:-1]:
@@ -497,6 +499,12 @@ PAYLOAD = {
     "subject digest": lambda s: s["subject"][0]["digest"].update(sha256="5" * 64),
     "subject name": lambda s: s["subject"][0].update(name="other.json"),
     "predicate type": _payload_edit(["predicateType"], "https://example.invalid/v1"),
+    "predicate type of the first version": _payload_edit(
+        ["predicateType"], "https://jobkeeper.dev/attestation/run/v1"
+    ),
+    "register layout": _payload_edit(["predicate", "registers"], [{"name": "c", "width": 1}]),
+    "register renamed": _payload_edit(["predicate", "registers", 0, "name"], "forged"),
+    "register layout dropped": lambda s: s["predicate"].pop("registers"),
 }
 
 

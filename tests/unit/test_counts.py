@@ -60,20 +60,20 @@ def test_a_table_is_the_dict_its_rows_add_up_to(case) -> None:  # type: ignore[n
 
 
 def test_reading_and_pickling() -> None:
-    table = CountTable(rows_of(["01 1", "00 0", "11 1"]), np.array([5, 7, 1]))
-    assert table["00 0"] == 7 and "11 1" in table and "10 1" not in table
-    assert list(table) == ["00 0", "01 1", "11 1"]  # canonical order
+    table = CountTable(rows_of(["01|1", "00|0", "11|1"]), np.array([5, 7, 1]))
+    assert table["00|0"] == 7 and "11|1" in table and "10|1" not in table
+    assert list(table) == ["00|0", "01|1", "11|1"]  # canonical order
     assert table.shots == 13
     assert pickle.loads(pickle.dumps(table)) == table
     # RFC 8785 §3.2.3: members sorted by key (UTF-16 code units), no whitespace.
-    assert table.canonical_json() == b'{"00 0":7,"01 1":5,"11 1":1}'
+    assert table.canonical_json() == b'{"00|0":7,"01|1":5,"11|1":1}'
     assert CountTable(np.empty((0, 3), np.uint8), np.empty(0, np.int64)).canonical_json() == b"{}"
 
 
 @pytest.mark.parametrize(
     ("rows", "values", "words"),
     [
-        (rows_of(["0x"]), [1], "only '0', '1' and spaces"),
+        (rows_of(["0x"]), [1], "only '0', '1' and separators"),
         (rows_of(["01"]), [0], "from 1 to"),
         (rows_of(["01", "10"]), [1], "one row of characters per count"),
     ],

@@ -135,15 +135,16 @@ def reference(
 
 
 def distribution(circ: Circuit, records: dict[int, np.ndarray]) -> dict[str, float]:
-    """Bit strings (OpenQASM 2 order: last register leftmost, c[0] rightmost) → P."""
+    """Count keys (jobkeeper's: registers in declaration order joined by "|", each its
+    value in binary, highest index leftmost) → P."""
     out: dict[str, float] = {}
     for record, rho in records.items():
         parts = []
-        for reg in reversed(circ.cregs):
+        for reg in circ.cregs:
             parts.append(
                 "".join(str((record >> (reg.offset + i)) & 1) for i in reversed(range(reg.size)))
             )
-        key = " ".join(parts)
+        key = "|".join(parts)
         out[key] = out.get(key, 0.0) + float(np.trace(rho).real)
     return {k: v for k, v in out.items() if v > 1e-15}
 

@@ -34,6 +34,7 @@ from jobkeeper.provenance import (
 )
 
 ORIGIN = "jobkeeper.test/keep-bundle"
+TWO_BITS = {"canonicalText": 'OPENQASM 2.0;\ninclude "qelib1.inc";\nqreg q[2];\ncreg c0[2];\n'}
 # A fixed seed keeps hypothesis examples reproducible across runs.
 KEY = Ed25519PrivateKey.from_private_bytes(hashlib.sha256(b"bundle test key").digest())
 FP = fingerprint(KEY)
@@ -46,7 +47,9 @@ def _log(
     tree, stored = MerkleTree(), {}
     for i in range(n):
         counts = {"00": i, "11": 7}
-        sealed = seal_run(counts, {"jobKey": f"{tag}-{i}", "counts": counts}, key)
+        predicate = {"jobKey": f"{tag}-{i}", "counts": counts, "circuit": TWO_BITS,
+                     "registers": [{"name": "c", "width": 2}]}  # fmt: skip
+        sealed = seal_run(counts, predicate, key)
         stored[i] = sealed.envelope_bytes
         tree.append(sealed.leaf_hash)
     return tree, stored

@@ -32,14 +32,17 @@ from jobkeeper.provenance import (
 )
 
 ORIGIN = "jobkeeper.test/keep-log"
+ONE_BIT = {"canonicalText": 'OPENQASM 2.0;\ninclude "qelib1.inc";\nqreg q[1];\ncreg c0[1];\n'}
 # A fixed seed keeps hypothesis examples reproducible across runs.
 KEY = Ed25519PrivateKey.from_private_bytes(hashlib.sha256(b"log test key").digest())
 KEYS = {fingerprint(KEY): public_key_bytes(KEY)}
 
 
 def _predicate(i: int, counts: dict[str, int]) -> dict[str, object]:
-    # A minimal predicate; the full schema is exercised in test_provenance_manifest.
-    return {"jobKey": f"sha256:{i:064x}", "counts": counts}
+    # A minimal predicate (with the circuit and register layout that the counts' keys
+    # must fit); the full schema is exercised in test_provenance_manifest.
+    return {"jobKey": f"sha256:{i:064x}", "circuit": ONE_BIT, "counts": counts,
+            "registers": [{"name": "c", "width": 1}]}  # fmt: skip
 
 
 def make_log(

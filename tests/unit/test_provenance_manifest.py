@@ -35,7 +35,7 @@ def predicate(counts: dict[str, int] = COUNTS, **changes: Any) -> RunPredicate:
     data: dict[str, Any] = {
         "jobKey": "sha256:" + "ab" * 32,
         "circuit": {
-            "canonicalText": "OPENQASM 2.0;\nqreg q[2];\ncreg c[2];\nh q[0];\ncx q[0],q[1];\n",
+            "canonicalText": "OPENQASM 2.0;\nqreg q[2];\ncreg c0[2];\nh q[0];\ncx q[0],q[1];\n",
             "hash": "sha256:" + "cd" * 32,
             "sourceHash": "sha256:" + "ef" * 32,
         },
@@ -56,6 +56,7 @@ def predicate(counts: dict[str, int] = COUNTS, **changes: Any) -> RunPredicate:
             "finishedOn": "2026-12-01T10:00:02.5Z",
         },
         "attempts": [{"number": 1, "startedOn": "2026-12-01T10:00:01Z", "outcome": "done"}],
+        "registers": [{"name": "c", "width": 2}],
         "counts": counts,
     }
     data.update(changes)
@@ -65,7 +66,8 @@ def predicate(counts: dict[str, int] = COUNTS, **changes: Any) -> RunPredicate:
 def test_statement_shape_and_subject_digest() -> None:
     st = build_statement(COUNTS, predicate())
     assert st["_type"] == STATEMENT_TYPE == "https://in-toto.io/Statement/v1"
-    assert st["predicateType"] == PREDICATE_TYPE and PREDICATE_TYPE.endswith("/v1")
+    # in-toto predicate type: any URI with the major version at its end; ours is a URN
+    assert st["predicateType"] == PREDICATE_TYPE == "urn:jobkeeper:predicate:run:v2"
     # Subject digest = SHA-256 of the RFC 8785 canonical counts (in-toto digest_set.md).
     assert counts_document(COUNTS) == b'{"00":493,"11":531}'
     want = hashlib.sha256(b'{"00":493,"11":531}').hexdigest()

@@ -68,7 +68,7 @@ def test_measured_inverse_qft_undoes_the_uniform_superposition(name: str) -> Non
     # (Griffiths & Niu 1996; Nielsen & Chuang section 5.1): H^n|0> is the QFT of |0>,
     # so every measurement reads 0.
     probs = exact(load_qasm(example(name)))
-    key = "0000" if name == "inverseqft1.qasm" else "0 0 0 0"
+    key = "0000" if name == "inverseqft1.qasm" else "0|0|0|0"
     assert probs == pytest.approx({key: 1.0}, abs=TOL)
 
 
@@ -83,10 +83,10 @@ def test_teleport_delivers_the_prepared_state() -> None:
     # N&C section 1.3.7: after the corrections q[2] holds U(0.3,0.2,0.1)|0>, which reads 1
     # with probability sin²(0.15); the two sent bits are uniform.
     probs = exact(load_qasm(example("teleport.qasm")))
-    p1 = sum(p for key, p in probs.items() if key.startswith("1"))
+    p1 = sum(p for key, p in probs.items() if key.endswith("1"))  # q[2]'s, declared last
     assert p1 == pytest.approx(0.14943813247359922**2, abs=TOL)  # sin(0.15)
-    for sent in ("0 0", "0 1", "1 0", "1 1"):
-        assert sum(p for k, p in probs.items() if k.endswith(sent)) == pytest.approx(0.25)
+    for sent in ("0|0", "0|1", "1|0", "1|1"):  # the first two registers, joined by "|"
+        assert sum(p for k, p in probs.items() if k.startswith(sent)) == pytest.approx(0.25)
 
 
 @pytest.mark.parametrize(

@@ -64,6 +64,7 @@ def test_samples_aggregate_into_counts() -> None:
 def test_several_registers_are_split_by_the_layout() -> None:
     # a = c[0..1], b = c[2]; shot: a = 01 (c0 = 1, c1 = 0), b = 1 (c2 = 1): integer 5
     key = count_key([1, 0, 1], TWO)
+    assert key == "01|1"  # DESIGN (count keys): a first, "|", then b; worked out by hand
     assert shot_key(5, "integers", "c0_right", TWO) == key
     assert shot_key("0x5", "hex", "c0_right", TWO) == key
     assert shot_key("101", "bitstrings", "c0_right", TWO) == key

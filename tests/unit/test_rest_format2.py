@@ -114,8 +114,8 @@ def test_token_exchange_location_handle_form_body_and_pages() -> None:
     device = Device([5, 5, 0, 3, 5, 0, 3])
     handle, polled = asyncio.run(_run(device, 7))
     assert handle == "shots=7;registers=2,1;job=r-7"
-    # keys: b (last declared) leftmost, then a with its highest bit leftmost
-    assert polled.state == "done" and polled.result.counts == {"1 01": 3, "0 00": 2, "0 11": 2}
+    # keys (DESIGN): a (first declared) leftmost, its highest bit leftmost, "|", then b
+    assert polled.state == "done" and polled.result.counts == {"01|1": 3, "00|0": 2, "11|0": 2}
     token, submit = device.requests[0], device.requests[1]
     # RFC 6749 §4.4.2: form-encoded grant_type=client_credentials; §2.3.1: HTTP Basic
     # with the id and secret form-urlencoded first ("client:one" -> "client%3Aone")
@@ -153,7 +153,7 @@ def test_the_whole_location_path_can_be_the_handle() -> None:
     )
     device = Device([1])
     handle, polled = asyncio.run(_run(device, 1, spec))
-    assert handle.endswith(";job=/api/runs/r-7") and polled.result.counts == {"0 01": 1}
+    assert handle.endswith(";job=/api/runs/r-7") and polled.result.counts == {"01|0": 1}
 
 
 def test_a_location_on_another_origin_is_refused() -> None:
@@ -175,7 +175,7 @@ def test_repeats_take_the_existing_job(answer: str) -> None:
     device = Device([3])
     device.submit_answer = reply
     handle, polled = asyncio.run(_run(device, 1, spec))
-    assert handle.endswith(";job=r-7") and polled.result.counts == {"0 11": 1}
+    assert handle.endswith(";job=r-7") and polled.result.counts == {"11|0": 1}
     assert sum(1 for r in device.requests if r.url.path == "/api/runs") == 1
 
 
@@ -198,7 +198,7 @@ def test_numbered_pages_and_counts_by_hex_with_c0_left() -> None:
 
     device = Numbered([])
     _, polled = asyncio.run(_run(device, 6, spec))
-    assert polled.result.counts == {"0 01": 3, "1 00": 3}
+    assert polled.result.counts == {"01|0": 3, "00|1": 3}
     assert [r.url.params.get("page") for r in device.requests if r.url.path.endswith("shots")] == [
         None, "2",
     ]  # fmt: skip

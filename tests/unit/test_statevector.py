@@ -157,12 +157,12 @@ def test_counts_fit_the_exact_distribution() -> None:
     assert set(result.counts) <= set(keys)
 
 
-def test_bit_strings_follow_openqasm_order() -> None:
-    # OpenQASM 2.0 spec convention: c[0] rightmost; the last declared register leftmost,
-    # one space between registers.
+def test_count_keys_follow_the_register_layout() -> None:
+    # DESIGN (count keys): registers in declaration order, the first declared leftmost,
+    # joined by "|"; each register's value in binary, highest index leftmost.
     ops = [op("x", 0), op("x", 2), measure(0, 0), measure(1, 1), measure(2, 2)]
-    circ = circuit(3, ops, [2, 1])  # c0 = bits 0,1; c1 = bit 2
-    assert StatevectorBackend().execute(Task(circ, 5, seed=1)).counts == {"1 01": 5}
+    circ = circuit(3, ops, [2, 1])  # c0 = bits 0,1 (value 01); c1 = bit 2 (value 1)
+    assert StatevectorBackend().execute(Task(circ, 5, seed=1)).counts == {"01|1": 5}
     # Bits written out of qubit order, one qubit left unmeasured.
     ops = [op("x", 0), op("h", 1), measure(2, 0), measure(0, 1)]
     result = StatevectorBackend().execute(Task(circuit(3, ops, [2]), 5, seed=1, exact=True))
@@ -173,8 +173,8 @@ def test_bit_strings_follow_openqasm_order() -> None:
 def test_a_circuit_without_measurement_reads_all_zeros() -> None:
     circ = circuit(2, [op("h", 0), op("cx", 0, 1)], [2, 1])
     result = StatevectorBackend().execute(Task(circ, 7, seed=3, exact=True))
-    assert result.counts == {"0 00": 7}
-    assert result.probabilities == pytest.approx({"0 00": 1.0}, abs=1e-12)
+    assert result.counts == {"00|0": 7}
+    assert result.probabilities == pytest.approx({"00|0": 1.0}, abs=1e-12)
     assert result.metadata["measured"] is False and "note" in result.metadata
 
 

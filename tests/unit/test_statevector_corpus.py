@@ -55,5 +55,5 @@ def test_corpus_teleport_delivers_the_prepared_state(corpus_dir: Path) -> None:
     circuit = load_qasm(corpus_dir / "openqasm/examples/teleport.qasm")
     result = StatevectorBackend().execute(Task(circuit, 0, seed=1, exact=True))
     assert result.probabilities is not None
-    p1 = sum(p for key, p in result.probabilities.items() if key.split(" ")[0] == "1")
+    p1 = sum(p for key, p in result.probabilities.items() if key.split("|")[-1] == "1")
     assert p1 == pytest.approx(math.sin(0.15) ** 2, abs=1e-12)

@@ -186,9 +186,11 @@ def density_reference(
     for record, rho in evolve(circ, records, step).items():
         prob = float(np.real(np.trace(rho)))
         if prob > 1e-15:
-            key = " ".join(
+            # jobkeeper's count keys (DESIGN: registers in declaration order, "|"
+            # between them, each register's value in binary)
+            key = "|".join(
                 "".join(str((record >> (reg.offset + i)) & 1) for i in reversed(range(reg.size)))
-                for reg in reversed(circ.cregs)
+                for reg in circ.cregs
             )
             out[key] = out.get(key, 0.0) + prob
     return out

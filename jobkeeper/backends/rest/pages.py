@@ -122,8 +122,8 @@ async def gather_outcome(
 
 
 def _order(profile: DeviceProfile) -> BitOrder:
-    # "ours" is c[0] rightmost; its spaces between registers are laid out again by the
-    # one count-key function
+    # samples and other encodings never use "ours" (the profile refuses it); read as
+    # c[0] rightmost, the registers laid out by the one count-key function
     order = profile.results.bit_order
     return "c0_right" if order == "ours" else order
 

@@ -12,7 +12,8 @@ from jobkeeper.backends.rest.wire import PointerError, resolve_pointer
 from jobkeeper.exceptions import PermanentBackendError
 
 #: a bit string as jobkeeper writes them: registers of 0/1 separated by single spaces.
-BITSTRING = re.compile(r"[01]+( [01]+)*")
+#: a count key as jobkeeper writes it (``bit_order = "ours"``): see jobkeeper.counts
+BITSTRING = re.compile(r"[01]+(\|[01]+)*")
 
 _MISSING = object()
 

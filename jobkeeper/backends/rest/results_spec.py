@@ -43,8 +43,9 @@ class ResultsSpec(_Model):
     profile has no result request. ``counts`` (an object of outcome → count) or, in
     format 2, ``samples`` (a list, one outcome per shot, aggregated by jobkeeper).
 
-    ``bit_order = "ours"``: bit strings as jobkeeper writes them (c[0] rightmost,
-    registers separated by one space, the last declared leftmost). Format 2 adds
+    ``bit_order = "ours"``: count keys as jobkeeper writes them (registers in
+    declaration order, the first declared leftmost, joined by ``|``; each register's
+    value in binary, its highest index leftmost). Format 2 adds
     ``c0_right`` and ``c0_left`` (which end of an outcome is c[0]) with an ``encoding``:
     ``bitstrings``, ``integers`` (decimal), ``hex`` (``"0x3"``) or, for samples only,
     ``bit_arrays`` ([0, 1, 1]); the width is the circuit's classical bits, and several

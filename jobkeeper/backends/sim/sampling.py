@@ -87,7 +87,7 @@ _SEPARATOR = ord(KEY_SEPARATOR)
 
 
 class BitFormatter:
-    """Turns outcome indices into OpenQASM 2 bit strings, vectorised.
+    """Turns outcome indices into count keys, vectorised.
 
     An outcome index has bit j = the final measurement into the j-th smallest of
     ``final_clbits``; the other classical bits come from the record (an int, clbit c =
@@ -100,18 +100,20 @@ class BitFormatter:
         self._num_final = len(final)
         # display column → clbit (-1 for the separator), as every count key is laid out
         self._clbits: list[int] = key_columns(cregs)
-        # Final bits appear left to right in descending clbit order, i.e. as the outcome
-        # index written most significant bit first: copy them in runs of columns.
+        # Final bit j of an outcome index is the j-th smallest final clbit: its digit,
+        # the index written most significant bit first, is num_final - 1 - j. Columns
+        # whose digits follow one another are copied as one run (within a register the
+        # digits descend with the clbits, so a register's final bits are one run).
+        rank = {clbit: j for j, clbit in enumerate(sorted(final))}
         self._runs: list[tuple[int, int, int]] = []  # (first column, first digit, length)
-        digit = 0
         for column, clbit in enumerate(self._clbits):
             if clbit in final:
+                digit = self._num_final - 1 - rank[clbit]
                 last = self._runs[-1] if self._runs else None
-                if last is not None and last[0] + last[2] == column:
+                if last is not None and last[0] + last[2] == column and last[1] + last[2] == digit:
                     self._runs[-1] = (last[0], last[1], last[2] + 1)
                 else:
                     self._runs.append((column, digit, 1))
-                digit += 1
         self._fixed = [i for i, c in enumerate(self._clbits) if c not in final]
         # column → bit of the outcome index shown there (the runs, digit 0 leftmost).
         self._digit_of = {
@@ -122,7 +124,7 @@ class BitFormatter:
 
     @property
     def width(self) -> int:
-        """Characters in a bit string (bits and the spaces between registers)."""
+        """Characters in a count key (bits and the separators between registers)."""
         return len(self._clbits)
 
     def format(self, record: int, outcomes: Ints) -> list[str]:
