@@ -10,12 +10,15 @@ from __future__ import annotations
 import time
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
-from jobkeeper.counts import RegisterLayout
 from jobkeeper.exceptions import JobFailed
 from jobkeeper.queue import TERMINAL_STATES
 from jobkeeper.spec import JobSpec
 from jobkeeper.store import Attempt, ComparisonRecord, JobRecord, LogEntry, Store, StoredResult
+
+if TYPE_CHECKING:
+    from jobkeeper.counts import RegisterLayout
 
 
 def wait_for(

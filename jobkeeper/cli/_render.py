@@ -3,10 +3,12 @@
 from __future__ import annotations
 
 from collections.abc import Mapping
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
-from jobkeeper.counts import RegisterLayout
 from jobkeeper.shapes import job_json, when, when_iso
+
+if TYPE_CHECKING:  # numpy stays unloaded for --help
+    from jobkeeper.counts import RegisterLayout
 
 __all__ = [
     "bar_chart",

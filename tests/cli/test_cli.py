@@ -77,9 +77,10 @@ def test_jobs_show_counts_cancel_json_shapes(capsys, keep) -> None:
     assert shown["signed_envelope"]["payloadType"] == "application/vnd.in-toto+json"
     assert shown["verification"]["ok"] is True
     code, out, _ = jk(capsys, "counts", job["id"][:8], "--keep", keep)
-    assert sum(json.loads(out).values()) == 1024
+    assert sum(json.loads(out)["counts"].values()) == 1024
+    assert json.loads(out)["count_keys"]["registers"] == [{"name": "c", "width": 2}]
     code, out, _ = jk(capsys, "counts", job["id"][:8], "--keep", keep, "--format", "csv")
-    assert out.splitlines()[0] == "outcome,count"
+    assert out.splitlines()[0] == "outcome,reg_c,count"
     code, _, err = jk(capsys, "cancel", job["id"][:8], "--keep", keep)
     assert code == 2 and "already ended" in err
 

@@ -136,10 +136,12 @@ def test_sweep_commands(capsys, tmp_path: Path, scan: Path) -> None:
     assert code == 0 and shown["points"] == 4 and shown["states"] == {"done": 4}
     code, out, _ = jk(capsys, "counts", sweep, "--format", "csv", *keep)
     rows = list(csv.reader(io.StringIO(out)))
-    assert code == 0 and rows[0] == ["theta", "phi", "outcome", "count"]
+    # a column per classical register (reg_<name>) beside the key
+    assert code == 0 and rows[0] == ["theta", "phi", "outcome", "reg_c", "count"]
+    assert all(row[2] == row[3] for row in rows[1:])  # one register: its value is the key
     # Each point's counts sum to its shots; the inputs keep the text they were given.
     per_point: dict[tuple[str, str], int] = {}
-    for theta, phi, _, count in rows[1:]:
+    for theta, phi, _, _, count in rows[1:]:
         per_point[(theta, phi)] = per_point.get((theta, phi), 0) + int(count)
     assert per_point == {(t, p): 30 for t in ("0", "1") for p in ("0", "0.5")}
     code, out, _ = jk(capsys, "counts", sweep, *keep)
