@@ -7,6 +7,7 @@ import subprocess
 import sys
 import time
 from pathlib import Path
+from typing import Any
 
 REPO = Path(__file__).resolve().parents[2]
 
@@ -62,3 +63,14 @@ def wait_for(predicate, timeout: float, interval: float = 0.05) -> bool:
             return True
         time.sleep(interval)
     return bool(predicate())
+
+
+def jk(capsys: Any, *args: str) -> tuple[int, str, str]:
+    """The command line in this process (``jobkeeper.cli.main``): exit code, stdout and
+    stderr of ``args`` alone (``capsys``: pytest's capture fixture)."""
+    from jobkeeper.cli import main
+
+    capsys.readouterr()
+    code = main(list(args))
+    out, err = capsys.readouterr()
+    return code, out, err

@@ -13,7 +13,7 @@ from pathlib import Path
 import pytest
 
 from jobkeeper import Keeper
-from jobkeeper.cli import main
+from tests.integration.helpers import jk
 
 DATA = Path(__file__).parent / "data" / "keys-before-registers"
 FINGERPRINT = "d4b95edc80e6086b25c612fd5d040a1c2f26dabe6ce78f699031e86c6c998fb8"
@@ -23,13 +23,6 @@ THREE_REGISTER_JOBS = {
     "fc7215d53edc4e64bf62273815712407": {"0 01": 191, "1 01": 209},
 }
 BELL_JOB = ("a102115d71cb4452a1d0c5945002da82", {"00": 104, "11": 96})
-
-
-def jk(capsys: pytest.CaptureFixture[str], *args: str) -> tuple[int, str, str]:
-    capsys.readouterr()
-    code = main(list(args))
-    out, err = capsys.readouterr()
-    return code, out, err
 
 
 @pytest.fixture

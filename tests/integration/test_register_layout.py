@@ -24,8 +24,8 @@ from pathlib import Path
 import pytest
 
 from jobkeeper import Keeper
-from jobkeeper.cli import main
 from jobkeeper.loopback.testing import running_device
+from tests.integration.helpers import jk
 from tests.integration.test_rest_worker import rest_keep
 
 PROGRAM = """OPENQASM 2.0;
@@ -46,13 +46,6 @@ KEYS = {"01|1|00", "01|1|10"}  # by hand, see the module docstring
 LAYOUT = [{"name": "a", "width": 2}, {"name": "flag", "width": 1}, {"name": "b", "width": 2}]
 CSV_HEADER = ["outcome", "reg_a", "reg_flag", "reg_b", "count"]
 CSV_SPLIT = {"01|1|00": ["01", "1", "00"], "01|1|10": ["01", "1", "10"]}
-
-
-def jk(capsys: pytest.CaptureFixture[str], *args: str) -> tuple[int, str, str]:
-    capsys.readouterr()
-    code = main(list(args))
-    out, err = capsys.readouterr()
-    return code, out, err
 
 
 @pytest.fixture(scope="module")

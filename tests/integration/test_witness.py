@@ -17,15 +17,7 @@ from pathlib import Path
 import pytest
 
 from jobkeeper import Keeper
-from jobkeeper.cli import main
-from tests.integration.helpers import circuit_text
-
-
-def jk(capsys: pytest.CaptureFixture[str], *args: str) -> tuple[int, str, str]:
-    capsys.readouterr()
-    code = main(list(args))
-    out, err = capsys.readouterr()
-    return code, out, err
+from tests.integration.helpers import circuit_text, jk
 
 
 @pytest.fixture(scope="module")
