@@ -33,7 +33,7 @@ def test_the_backend_gives_a_table_equal_to_the_dict_it_would_have_made(
     plain = StatevectorBackend().execute(Task(circuit, 20_000, seed=3)).counts
     assert isinstance(plain, dict)
     assert table.to_dict() == plain and sum(plain.values()) == 20_000
-    assert all(len(key) == 14 and key[7] == " " for key in plain)  # "b a": 7 bits, space, 6
+    assert all(len(key) == 14 and key[6] == "|" for key in plain)  # "a|b": 6 bits, "|", 7
 
 
 @pytest.mark.slow
