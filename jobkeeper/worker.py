@@ -30,9 +30,10 @@ from typing import Literal, TypedDict, TypeVar
 from jobkeeper._execution import LocalRunner, run_coroutine
 from jobkeeper.audit.sealing import Sealer
 from jobkeeper.backend import Backend
+from jobkeeper.batch_steps import BatchSteps
 from jobkeeper.exceptions import JobkeeperError, StoreUnavailable
 from jobkeeper.group_commit import GroupCommit
-from jobkeeper.job_steps import Held, JobSteps, WorkerStats
+from jobkeeper.job_steps import Held, WorkerStats
 from jobkeeper.queue import (
     DEFAULT_LEASE,
     DEFAULT_POLL,
@@ -77,9 +78,10 @@ class WorkerSettings(TypedDict, total=False):
     idle_sleep: float
     grace: float
     store_patience: float
+    batches: bool
 
 
-class Worker(JobSteps):
+class Worker(BatchSteps):
     """Drains the queue of one store. Keyword-only; the caller passes every part in."""
 
     def __init__(
@@ -99,6 +101,7 @@ class Worker(JobSteps):
         idle_sleep: float = 0.5,
         grace: float = 30.0,
         store_patience: float = 300.0,
+        batches: bool = True,
     ) -> None:
         if slots < 1 or in_flight < 1:
             raise ValueError("slots and in_flight must be at least 1")
@@ -116,6 +119,9 @@ class Worker(JobSteps):
         self.idle_sleep = idle_sleep
         self.grace = grace
         self.store_patience = store_patience
+        #: claim due sweep points in batches (jobkeeper.batch_steps)
+        self.batches = batches
+        self._batches: set[asyncio.Task[None]] = set()
         self.owner = f"{uuid.uuid4().hex[:12]}"
         self.stats = WorkerStats()
         self._held: dict[str, Held] = {}
@@ -210,6 +216,10 @@ class Worker(JobSteps):
             # Claim in batches: a claim is a transaction, and one per freed slot would
             # cost more than the small jobs it hands out.
             return 0
+        if self.batches:
+            batched = await self._claim_batch(free)
+            if batched:
+                return batched
         claims = await self._store(
             self.store.claim,
             self.owner,
@@ -249,6 +259,7 @@ class Worker(JobSteps):
 
     async def _shutdown(self) -> None:
         pending = [h.task for h in self._held.values() if h.task is not None]
+        pending += list(self._batches)
         if pending:
             _, still = await asyncio.wait(pending, timeout=self.grace)
             for task in still:

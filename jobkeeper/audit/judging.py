@@ -29,8 +29,8 @@ from jobkeeper.circuit import parse_qasm
 from jobkeeper.exceptions import ConfigError, JobkeeperError, VerificationError
 from jobkeeper.hashing import canonical_json
 from jobkeeper.options import SubmitOptions
+from jobkeeper.provenance.batch import job_statement
 from jobkeeper.provenance.dsse import verify_envelope
-from jobkeeper.provenance.manifest import parse_statement
 from jobkeeper.stats import Comparison, compare_counts, compare_to_distribution
 from jobkeeper.store import ComparisonRecord
 
@@ -79,9 +79,30 @@ def verified_manifest(store: Store, job: JobRecord, keys: Mapping[str, bytes]) -
         raise JobkeeperError(f"job {job.id[:12]} is {job.state}: it has no signed manifest")
     try:
         payload = verify_envelope(json.loads(entry.envelope), keys)
-        return parse_statement(payload)
+        return with_circuit_text(job_statement(payload, job.job_key))
     except (VerificationError, ValueError) as exc:
         raise VerificationError(f"job {job.id[:12]}: its manifest does not verify: {exc}") from exc
+
+
+def with_circuit_text(statement: dict[str, Any]) -> dict[str, Any]:
+    """A batch point's statement with its circuit's canonical text, which the batch does
+    not repeat per point: the signed template bound with the signed bindings gives it, and
+    it must have the signed circuit hash."""
+    predicate = statement["predicate"]
+    circuit = predicate.get("circuit") or {}
+    if "canonicalText" in circuit or not isinstance(predicate.get("template"), dict):
+        return statement
+    from jobkeeper.circuit import Template, canonical_text
+    from jobkeeper.hashing import sha256_tag
+    from jobkeeper.sweeps.bindings import bind_settings
+
+    template = Template(str(predicate["template"].get("text", "")))
+    given = [f"{name}={text}" for name, text in (predicate.get("bindings") or {}).items()]
+    text = canonical_text(template.bind(bind_settings(template.inputs, given).numbers()))
+    if sha256_tag(text.encode("utf-8")) != circuit.get("hash"):
+        raise VerificationError("the signed template and bindings do not give the signed circuit")
+    predicate["circuit"] = {**circuit, "canonicalText": text}
+    return statement
 
 
 def _counts(store: Store, job: JobRecord, keys: Mapping[str, bytes]) -> dict[str, int]:

@@ -21,8 +21,9 @@ from collections.abc import Iterable, Mapping, Sequence
 from typing import TYPE_CHECKING, Any
 
 from jobkeeper.audit.sealing import rfc3339
-from jobkeeper.exceptions import DamagedRecord
+from jobkeeper.exceptions import DamagedRecord, VerificationError
 from jobkeeper.hashing import sha256_tag
+from jobkeeper.provenance.batch import BATCH_PREDICATE_TYPE, point_statement
 from jobkeeper.provenance.manifest import (
     COMPARISON_PREDICATE_TYPES,
     RUN_PREDICATE_TYPE,
@@ -90,7 +91,14 @@ def job_differences(
         ("repeat", spec.repeat, parameters.get("repeat")),
         ("exact", spec.exact, parameters.get("exact")),
         ("options", dict(spec.options), parameters.get("options")),
-        ("circuit", spec.circuit_text, circuit.get("canonicalText")),
+        # A batch point's circuit is signed by its hash alone (the template gives the text).
+        (
+            "circuit",
+            spec.circuit_text
+            if "canonicalText" in circuit
+            else sha256_tag(spec.circuit_text.encode("utf-8")),
+            circuit.get("canonicalText", circuit.get("hash")),
+        ),
         ("circuit hash", spec.circuit_hash, circuit.get("hash")),
         ("source hash", spec.source_hash, circuit.get("sourceHash")),
         ("code version", dict(code), predicate.get("codeVersion")),
@@ -167,7 +175,9 @@ def check_mirrors(
     comparison with its signed statement; one problem per difference."""
     chosen = None if wanted is None else set(wanted)
     comparisons = {c.id: c for c in store.comparisons()}
-    runs: dict[str, tuple[LogEntry, dict[str, Any]]] = {}
+    runs: dict[str, tuple[LogEntry, dict[str, Any]]] = {}  # job id → its run statement
+    members = store.batch_members()
+    batches: dict[str, tuple[LogEntry, dict[str, Any]]] = {}  # point → its batch's
     for entry in entries:
         statement = statement_of(entry.envelope)
         if statement is None:
@@ -176,12 +186,27 @@ def check_mirrors(
         predicate = statement.get("predicate")
         if not isinstance(predicate, dict):
             continue
+        if kind == BATCH_PREDICATE_TYPE:
+            for job_id in members.get(entry.job_id, ()):
+                if chosen is None or job_id in chosen:
+                    batches[job_id] = (entry, statement)
+            continue
         if kind in COMPARISON_PREDICATE_TYPES and entry.job_id in comparisons:
             for text in comparison_differences(comparisons[entry.job_id], predicate):
                 report.problems.append(f"comparison {entry.job_id[:12]}: {text}")
         elif kind in RUN_PREDICATE_TYPES and (chosen is None or entry.job_id in chosen):
             runs[entry.job_id] = (entry, statement)
-    records = _records(store, list(runs), report)
+    records = _records(store, [*runs, *batches], report)
+    for job_id, (batch_entry, batch) in batches.items():
+        job = records.get(job_id)
+        if job is None:
+            continue
+        try:
+            runs[job_id] = (batch_entry, point_statement(batch, job.job_key))
+        except VerificationError:
+            report.problems.append(
+                f"job {job_id[:12]}: its batch's statement does not attest its job key"
+            )
     texts = store.all_result_texts()
     every_attempt = store.all_attempts()  # all of them: an added row is a change too
     unsigned_metadata = 0

@@ -16,8 +16,9 @@ from collections.abc import Mapping
 from typing import TYPE_CHECKING, Any
 
 from jobkeeper.exceptions import DamagedRecord, VerificationError
+from jobkeeper.provenance.batch import job_statement
 from jobkeeper.provenance.dsse import verify_envelope
-from jobkeeper.provenance.manifest import check_subject, parse_statement, register_layout
+from jobkeeper.provenance.manifest import check_subject, register_layout
 
 if TYPE_CHECKING:
     from jobkeeper.counts import RegisterLayout
@@ -57,7 +58,7 @@ def signed_reading(
         raise _refuse(job, "it is marked done, but its result or signed record is missing")
     try:
         payload = verify_envelope(json.loads(entry.envelope), keys)
-        statement = parse_statement(payload)
+        statement = job_statement(payload, job.job_key)
     except (VerificationError, ValueError) as exc:
         why = f"its signed record does not verify with the keys trusted here ({exc})"
         raise _refuse(job, why) from exc

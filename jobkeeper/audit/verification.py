@@ -164,8 +164,13 @@ def verify_archive(
     stored_counts = store.all_counts()
     reports = {c.id: c.report for c in store.comparisons()}
     done_keys = store.job_keys("done")
+    members = store.batch_members()
     verifiable = []
     for entry in entries:
+        if entry.job_id in members:
+            points = _batch_documents(entry, members[entry.job_id], done_keys, stored_counts, pre)
+            verifiable.append(VerifiableEntry(entry.envelope, entry.signer, points=points))
+            continue
         # The stored subject document, byte for byte: a change that leaves the numbers
         # equal (spacing, member order) is still a change to the archive.
         if entry.job_id in reports:
@@ -199,7 +204,7 @@ def verify_archive(
             report, [(e.index, [e.signer]) for e in entries], notes, keys, trust_set,
             origin=origin, hint=trust.trust_command,
         )  # fmt: skip
-    logged = {entry.job_id for entry in entries}
+    logged = _covered(entries, members, report)
     wanted = (
         done_keys if ids is None else {job.id: job.job_key for job in store.get_many(list(ids))}
     )
@@ -214,6 +219,45 @@ def verify_archive(
     if witness is not None and report.ok and notes:
         _advance_witness(witness, notes[-1], found is None, report)
     return report
+
+
+def _batch_documents(
+    entry: StoredEntry, jobs: Sequence[str], done_keys: Mapping[str, str],
+    stored_counts: Mapping[str, str | None], report: VerifyReport,
+) -> dict[str, bytes]:  # fmt: skip
+    """Each point of a batch entry: its job key → its stored counts document."""
+    points: dict[str, bytes] = {}
+    for job_id in jobs:
+        key = done_keys.get(job_id)
+        if key is None:
+            report.problems.append(f"entry {entry.index}: its point job {job_id[:12]} is not done")
+        elif stored_counts.get(job_id) is None:
+            report.problems.append(
+                f"entry {entry.index}: its point job {job_id[:12]} has no stored counts"
+            )
+        else:
+            points[key] = str(stored_counts[job_id]).encode()
+    return points
+
+
+def _covered(
+    entries: Sequence[StoredEntry], members: Mapping[str, Sequence[str]], report: VerifyReport
+) -> set[str]:
+    """The jobs the log's entries sign (their own entry, or their batch's); a job signed
+    by two statements is a problem: every job has exactly one."""
+    seen: dict[str, int] = {}
+    for entry in entries:
+        for job_id in members.get(entry.job_id, (entry.job_id,)):
+            if job_id in seen:
+                report.problems.append(
+                    f"job {job_id[:12]} is signed by two log entries ({seen[job_id]} and "
+                    f"{entry.index}): each job has exactly one signed statement"
+                )
+            seen[job_id] = entry.index
+    logged = {entry.job_id for entry in entries}
+    for batch_id in sorted(set(members) - logged):
+        report.problems.append(f"batch {batch_id[:12]} lists points but has no log entry")
+    return set(seen)
 
 
 def require_ok(report: VerifyReport, what: str) -> None:
@@ -310,8 +354,33 @@ def export_bundle(store: Store, ids: Sequence[str], path: Path, *, force: bool =
         raise JobkeeperError("the log has no checkpoint yet: no done job to bundle")
     tree = MerkleTree(entry.leaf_hash for entry in entries)
     wanted = set(ids)
-    chosen = {e.index: e.envelope for e in entries if e.job_id in wanted}
-    missing = wanted - {e.job_id for e in entries if e.job_id in wanted}
+    batch_of = {job: batch for batch, jobs in store.batch_members().items() for job in jobs}
+    by_subject = {e.job_id: e for e in entries}
+    chosen: dict[int, bytes] = {}
+    records: dict[int, str] = {}
+    documents: dict[int, dict[str, str]] = {}
+    stored_counts: dict[str, str | None] | None = None
+    missing = []
+    for job_id in sorted(wanted):
+        if job_id in by_subject:
+            entry = by_subject[job_id]
+            records[entry.index] = job_id
+        elif batch_of.get(job_id) in by_subject:
+            # A batch point: the batch's envelope, and this point's counts document only.
+            entry = by_subject[batch_of[job_id]]
+            [job] = store.get_many([job_id])
+            if stored_counts is None:
+                stored_counts = store.all_counts()  # the documents exactly as stored
+            counts = stored_counts.get(job_id)
+            if counts is None:
+                missing.append(job_id)
+                continue
+            documents.setdefault(entry.index, {})[job.job_key] = counts
+            records[entry.index] = job_id if entry.index not in records else "several points"
+        else:
+            missing.append(job_id)
+            continue
+        chosen[entry.index] = entry.envelope
     if missing:
         raise JobkeeperError(
             f"{len(missing)} job(s) have no log entry (not done): "
@@ -319,8 +388,7 @@ def export_bundle(store: Store, ids: Sequence[str], path: Path, *, force: bool =
         )
     keys = {fp: base64.b64decode(key) for fp, key in store.public_keys().items()}
     latest = checkpoints[-1]
-    records = {e.index: e.job_id for e in entries if e.job_id in wanted}
-    bundle = make_bundle(tree, chosen, keys, latest.note, records)
+    bundle = make_bundle(tree, chosen, keys, latest.note, records, documents)
     write_bundle(path, bundle, force=force)
     return len(chosen)
 

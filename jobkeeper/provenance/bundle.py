@@ -11,7 +11,9 @@ Format ``jobkeeper-audit-bundle/v1`` (UTF-8 JSON object; members in this order):
                   "envelope": DSSE envelope object,
                   "inclusionProof": [standard base64 32-byte hashes, leaf to root],
                   "record": the keep's id of the job or comparison (optional; a name
-                            for readers, not signed: the signed identity is the job key)}]
+                            for readers, not signed: the signed identity is the job key),
+                  "documents": {job key: counts document} (a batch's entry only: the
+                            points asked for, each checked against its subject)}]
 
 The leaf of an entry is SHA-256(0x00 ‖ RFC 8785 canonical JSON of its envelope); each
 inclusion proof leads from that leaf to the checkpoint's root at the checkpoint's size.
@@ -71,6 +73,11 @@ README = [
     "an inclusion proof to that root, so an entry cannot be altered, dropped from the",
     "log or replayed without detection.",
     "",
+    "An entry of predicateType urn:jobkeeper:predicate:batch:v1 signs a batch of sweep",
+    "points at once: one subject per point, named by its job key, with the SHA-256 of",
+    "its counts document; 'documents' carries the counts documents of the points the",
+    "bundle was made for.",
+    "",
     "Keys inside this file prove nothing on their own: obtain the keep's key",
     "fingerprint from its owner by another channel and check it. To verify, with",
     "jobkeeper installed (Python):",
@@ -86,6 +93,8 @@ class BundleEntry:
     envelope: dict[str, Any]
     inclusion_proof: tuple[bytes, ...]
     record: str | None = None
+    #: a batch's entry: job key → counts document (RFC 8785 JSON text) of the points given
+    documents: dict[str, str] | None = None
 
 
 @dataclass(frozen=True)
@@ -109,6 +118,7 @@ class Bundle:
                     "envelope": copy.deepcopy(e.envelope),  # callers may edit the result
                     "inclusionProof": [b64(h).decode("ascii") for h in e.inclusion_proof],
                     **({} if e.record is None else {"record": e.record}),
+                    **({} if e.documents is None else {"documents": dict(e.documents)}),
                 }
                 for e in self.entries
             ],
@@ -144,9 +154,15 @@ class Bundle:
                 raise VerificationError(f"bundle entry {i}: needs 'envelope' and 'inclusionProof'")
             hashes = tuple(b64decode_strict(h, f"bundle entry {i} proof") for h in proof)
             record = item.get("record")
+            documents = item.get("documents")
+            if documents is not None and not (
+                isinstance(documents, dict) and all(isinstance(v, str) for v in documents.values())
+            ):
+                raise VerificationError(f"bundle entry {i}: documents must map names to text")
             entries.append(
-                BundleEntry(index, envelope, hashes, record if isinstance(record, str) else None)
-            )
+                BundleEntry(index, envelope, hashes, record if isinstance(record, str) else None,
+                            None if documents is None else {str(k): v for k, v in documents.items()})
+            )  # fmt: skip
         origin = data.get("origin", "")
         return cls(keys, note, tuple(entries), origin if isinstance(origin, str) else "")
 
@@ -157,12 +173,14 @@ def make_bundle(
     keys: Mapping[str, bytes],
     checkpoint: str,
     records: Mapping[int, str] | None = None,
+    documents: Mapping[int, Mapping[str, str]] | None = None,
 ) -> Bundle:
     """Bundle the envelopes at the given log indexes with proofs to ``checkpoint``.
 
     ``tree`` is the log's tree (at least as large as the checkpoint); ``envelopes`` maps
     log index → stored envelope (bytes or object); ``records`` names the keep's record id
-    of each index (unsigned, for readers). ProvenanceError if an envelope is not
+    of each index (unsigned, for readers); ``documents`` the counts documents of a
+    batch entry's points (job key → text). ProvenanceError if an envelope is not
     the one in the tree at its index, or the checkpoint cannot be read.
     """
     try:
@@ -188,7 +206,9 @@ def make_bundle(
         if leaf_hash(envelope_bytes(obj)) != tree.levels[0][index]:
             raise ProvenanceError(f"envelope given for index {index} is not the logged one")
         proof = tuple(tree.inclusion_proof(index, cp.size))
-        entries.append(BundleEntry(index, obj, proof, (records or {}).get(index)))
+        docs = (documents or {}).get(index)
+        entries.append(BundleEntry(index, obj, proof, (records or {}).get(index),
+                                   None if docs is None else dict(docs)))  # fmt: skip
     return Bundle(dict(keys), checkpoint, tuple(entries), cp.origin)
 
 
@@ -248,7 +268,10 @@ def verify_bundle(
         if entry.index in seen:
             report.problems.append(f"{label}: log index appears twice in the bundle")
         seen.add(entry.index)
-        check_envelope(entry.envelope, table, label, report)
+        points = None if entry.documents is None else {
+            key: text.encode("utf-8") for key, text in entry.documents.items()
+        }  # fmt: skip
+        check_envelope(entry.envelope, table, label, report, points=points, every_point=False)
         if cp is None:
             continue
         try:

@@ -16,6 +16,7 @@ from typing import Any
 from cryptography.hazmat.primitives.asymmetric.ed25519 import Ed25519PrivateKey
 
 from jobkeeper.exceptions import ProvenanceError, VerificationError
+from jobkeeper.provenance.batch import BATCH_PREDICATE_TYPE, check_batch_documents
 from jobkeeper.provenance.checkpoint import Checkpoint, verify_checkpoint
 from jobkeeper.provenance.dsse import (
     PAYLOAD_TYPE,
@@ -78,6 +79,9 @@ class LogEntry:
     document: bytes | None = None
     # The job key the archive's row holds for this entry's job, when it is a run.
     job_key: str | None = None
+    # A batch's entry: each point's stored counts document by its job key (every point
+    # the archive lists with the batch).
+    points: Mapping[str, bytes] | None = None
 
 
 def check_public_keys(keys: Mapping[str, bytes], report: VerifyReport) -> dict[str, bytes]:
@@ -105,10 +109,15 @@ def check_envelope(
     counts: Mapping[str, int] | None = None,
     document: bytes | None = None,
     job_key: str | None = None,
+    points: Mapping[str, bytes] | None = None,
+    every_point: bool = True,
 ) -> bool:
     """Signature, statement shape and subject digest of one envelope; problems appended.
     ``document`` is the stored subject document (counts or comparison report), checked
-    byte for byte; without it, ``counts`` (or the predicate's own counts) are checked."""
+    byte for byte; without it, ``counts`` (or the predicate's own counts) are checked.
+    A batch's envelope is checked against ``points`` (job key → counts document): with
+    ``every_point``, they must be exactly the points it attests (an archive), else any of
+    them (a bundle carries the points it was asked for)."""
     try:
         verified = verify_envelope_detailed(envelope, keys)
     except VerificationError as exc:
@@ -122,7 +131,14 @@ def check_envelope(
         )
         ok = False
     try:
-        statement = parse_statement(verified.payload, predicate_types=PREDICATE_TYPES)
+        statement = parse_statement(
+            verified.payload, predicate_types=(*PREDICATE_TYPES, BATCH_PREDICATE_TYPE)
+        )
+        if statement["predicateType"] == BATCH_PREDICATE_TYPE:
+            if job_key is not None or document is not None:
+                raise VerificationError("a batch's statement stands where one job's should")
+            check_batch_documents(statement, points or {}, every=every_point)
+            return ok
         is_run = statement["predicateType"] in RUN_PREDICATE_TYPES
         if job_key is not None and (not is_run or statement["predicate"].get("jobKey") != job_key):
             raise VerificationError("it attests another job key than the archive's job has")
@@ -178,6 +194,7 @@ def verify_log(
             counts=entry.counts,
             document=entry.document,
             job_key=entry.job_key,
+            points=entry.points,
         )
         report.checked += 1
     _check_checkpoints(tree, checkpoints, list(good_keys.values()), origin, report)

@@ -187,6 +187,10 @@ class ComparisonRecord:
     created_at: float = 0.0
 
 
+class BatchIncomplete(Exception):
+    """Inside a store: a batch lost a point's lease, so its transaction is rolled back."""
+
+
 class LogAppender(Protocol):
     """Provenance hook the store calls inside a finishing transaction: given the log's saved
     state (None for an empty log), its size and the new envelopes, it returns the leaf
@@ -286,6 +290,30 @@ class Store(Protocol):
         lost is skipped (False) and archives nothing."""
         ...
 
+    def claim_batch(
+        self,
+        owner: str,
+        *,
+        limit: int,
+        lease_seconds: float,
+        backends: Sequence[str] | None = None,
+        ids: Sequence[str] | None = None,
+    ) -> list[Claim]:
+        """Claim up to ``limit`` due queued points of one sweep (that of the point due
+        first) in one short transaction (``FOR UPDATE SKIP LOCKED`` on PostgreSQL), to
+        run as a batch; none when no sweep point is due. Filters as :meth:`claim`."""
+        ...
+
+    def finish_batch(
+        self, batch_id: str, completions: Sequence[Completion], envelope: bytes, signer: str,
+        appender: LogAppender,
+    ) -> list[bool]:  # fmt: skip
+        """Archive a batch's results, list its points and append its one envelope to the
+        log (subject id ``batch_id``), in one transaction: all or nothing. Each point is
+        fenced on its token; when any lease was lost nothing is written and the flags say
+        which points are still held (the caller seals those again as a smaller batch)."""
+        ...
+
     def record_comparison(
         self, comparison: ComparisonRecord, envelope: bytes, signer: str, appender: LogAppender
     ) -> None:
@@ -363,7 +391,13 @@ class Store(Protocol):
         """Every job's attempts, in order, by job id, in one read."""
         ...
 
-    def log_entry_for(self, job_id: str) -> LogEntry | None: ...
+    def log_entry_for(self, job_id: str) -> LogEntry | None:
+        """The log entry that signs a job: its own, or its batch's."""
+        ...
+
+    def batch_members(self) -> dict[str, list[str]]:
+        """Batch id → the ids of the jobs its one log entry signs."""
+        ...
 
     def log_entries(self, start: int = 0, end: int | None = None) -> list[LogEntry]: ...
 
@@ -456,6 +490,7 @@ def open_store(location: str | Path, *, create: bool = True) -> Store:
 
 __all__ = [
     "Attempt",
+    "BatchIncomplete",
     "Claim",
     "ComparisonRecord",
     "Completion",

@@ -249,8 +249,15 @@ class StoreReads(SweepReads):
         return out
 
     def log_entry_for(self, job_id: str) -> LogEntry | None:
-        rows = self._read(sql.LOG_ENTRY_FOR, (job_id,))
+        rows = self._read(sql.LOG_ENTRY_FOR, (job_id, job_id))
         return entry_of(rows[0]) if rows else None
+
+    def batch_members(self) -> dict[str, list[str]]:
+        rows = self._read(sql.BATCH_MEMBERS)
+        out: dict[str, list[str]] = {}
+        for job_id, batch_id in rows:
+            out.setdefault(batch_id, []).append(job_id)
+        return out
 
     def log_entries(self, start: int = 0, end: int | None = None) -> list[LogEntry]:
         rows = self._read(sql.LOG_ENTRIES, (start, end if end is not None else 2**62))

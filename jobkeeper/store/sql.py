@@ -18,7 +18,7 @@ def _states(states: frozenset[JobState]) -> str:
     return "(" + ", ".join(f"'{state}'" for state in JobState if state in states) + ")"
 
 
-SCHEMA_VERSION = 5
+SCHEMA_VERSION = 6
 
 LIVE = _states(LIVE_STATES)
 KEYED = _states(KEYED_STATES)
@@ -187,6 +187,15 @@ MIGRATIONS: list[list[str]] = [
         )""",
         "CREATE INDEX sweep_points_job ON sweep_points (job_id)",
     ],
+    # 6: batches. A batch of sweep points is sealed by one statement and logged as one
+    # entry (its subject id is the batch's id, bt-…); each point's job is listed with it.
+    [
+        """CREATE TABLE batch_points (
+            job_id TEXT PRIMARY KEY REFERENCES jobs (id),
+            batch_id TEXT NOT NULL
+        )""",
+        "CREATE INDEX batch_points_batch ON batch_points (batch_id)",
+    ],
 ]
 
 INSERT_JOB = f"""
@@ -224,6 +233,28 @@ WHERE id IN (
 )
 RETURNING {JOB_COLUMNS}
 """
+
+# A batch: due queued points of one sweep (the sweep of the point due first), claimed at
+# once. Jobs whose cancellation was asked are left to the ordinary claim.
+BATCH_SWEEP = """
+SELECT sp.sweep_id FROM jobs JOIN sweep_points sp ON sp.job_id = jobs.id
+WHERE jobs.state = 'queued' AND jobs.handle IS NULL AND jobs.cancel_requested = 0
+  AND jobs.not_before <= {now} {backend_filter}
+ORDER BY jobs.not_before LIMIT 1
+"""
+CLAIM_BATCH = f"""
+UPDATE jobs SET state = 'running', lease_owner = ?, lease_token = lease_token + 1,
+       lease_expires = {{now}} + ?, updated_at = {{now}},
+       started_at = COALESCE(started_at, {{now}})
+WHERE id IN (
+    SELECT jobs.id FROM jobs JOIN sweep_points sp ON sp.job_id = jobs.id
+    WHERE sp.sweep_id = ? AND jobs.state = 'queued' AND jobs.handle IS NULL
+      AND jobs.cancel_requested = 0 AND jobs.not_before <= {{now}} {{backend_filter}}
+    ORDER BY jobs.not_before, sp.idx LIMIT ? {{lock}}
+)
+RETURNING {JOB_COLUMNS}
+"""
+INSERT_BATCH_POINT = "INSERT INTO batch_points (job_id, batch_id) VALUES (?, ?)"
 
 RENEW = """
 UPDATE jobs SET lease_expires = {now} + ?
@@ -404,7 +435,13 @@ SWEEP_BY_PREFIX = (
 SWEEP_POINTS = "SELECT idx, job_id, bindings FROM sweep_points WHERE sweep_id = ? ORDER BY idx"
 SWEEPS_OF_JOBS = "SELECT job_id, sweep_id, idx FROM sweep_points WHERE job_id IN ({marks})"
 LOG_ENTRY_COLUMNS = "idx, job_id, envelope, leaf_hash, signer, created_at"
-LOG_ENTRY_FOR = f"SELECT {LOG_ENTRY_COLUMNS} FROM log_entries WHERE job_id = ?"
+# A job's own entry, or its batch's (a job has one of the two: verify checks it).
+LOG_ENTRY_FOR = (
+    f"SELECT {LOG_ENTRY_COLUMNS} FROM log_entries WHERE job_id = ? UNION ALL "
+    f"SELECT {LOG_ENTRY_COLUMNS} FROM log_entries "
+    "WHERE job_id = (SELECT batch_id FROM batch_points WHERE job_id = ?)"
+)
+BATCH_MEMBERS = "SELECT job_id, batch_id FROM batch_points"
 LOG_ENTRIES = f"SELECT {LOG_ENTRY_COLUMNS} FROM log_entries WHERE idx >= ? AND idx < ? ORDER BY idx"
 CHECKPOINTS = "SELECT size, root, note, created_at FROM checkpoints ORDER BY size"
 COMPARISONS = f"SELECT {COMPARISON_COLUMNS} FROM comparisons {{where}} ORDER BY created_at"

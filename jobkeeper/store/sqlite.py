@@ -12,6 +12,7 @@ retry ourselves with small random sleeps, so waiting writers get their turn at r
 
 from __future__ import annotations
 
+import contextlib
 import random
 import sqlite3
 import threading
@@ -25,6 +26,7 @@ from typing import Any, TypeVar
 from jobkeeper.exceptions import ConfigError, LeaseLost, StoreError, StoreUnavailable
 from jobkeeper.queue import JobState
 from jobkeeper.store import (
+    BatchIncomplete,
     Claim,
     ComparisonRecord,
     Completion,
@@ -263,6 +265,29 @@ class SqliteStore(StoreReads):
             rows = conn.execute(statement, params).fetchall()
         return claims_of([record_of(row) for row in rows])
 
+    def claim_batch(
+        self,
+        owner: str,
+        *,
+        limit: int,
+        lease_seconds: float,
+        backends: Sequence[str] | None = None,
+        ids: Sequence[str] | None = None,
+    ) -> list[Claim]:
+        limited = claim_filter(backends, ids, _in_list) if limit > 0 else None
+        if limited is None:
+            return []
+        condition, filter_params = limited
+        with self._write(durable=False) as conn:
+            row = conn.execute(_q(sql.BATCH_SWEEP, backend_filter=condition), filter_params)
+            found = row.fetchone()
+            if found is None:
+                return []
+            params = [owner, lease_seconds, found[0], *filter_params, limit]
+            rows = conn.execute(_q(sql.CLAIM_BATCH, backend_filter=condition, lock=""), params)
+            claimed = rows.fetchall()
+        return claims_of([record_of(row) for row in claimed])
+
     def renew(
         self, owner: str, leases: Sequence[tuple[str, int]], lease_seconds: float
     ) -> set[str]:
@@ -332,6 +357,23 @@ class SqliteStore(StoreReads):
                     conn, [(c.job_id, c.envelope, c.signer) for c in accepted], appender
                 )
         return done
+
+    def finish_batch(
+        self, batch_id: str, completions: Sequence[Completion], envelope: bytes, signer: str,
+        appender: LogAppender,
+    ) -> list[bool]:  # fmt: skip
+        rows = [result_row(item) for item in completions]
+        held: list[bool] = []
+        # BatchIncomplete rolls the transaction back: ``held`` says why.
+        with contextlib.suppress(BatchIncomplete), self._write() as conn:
+            held = [conn.execute(_FINISH, (c.job_id, c.token)).rowcount == 1
+                        for c in completions]  # fmt: skip
+            if not all(held):
+                raise BatchIncomplete  # rolls the transaction back
+            conn.executemany(_INSERT_RESULT, rows)
+            conn.executemany(sql.INSERT_BATCH_POINT, [(c.job_id, batch_id) for c in completions])
+            self._append_log(conn, [(batch_id, envelope, signer)], appender)
+        return held
 
     def record_comparison(
         self, comparison: ComparisonRecord, envelope: bytes, signer: str, appender: LogAppender

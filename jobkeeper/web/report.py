@@ -26,6 +26,7 @@ from markupsafe import Markup
 from jobkeeper._version import __version__
 from jobkeeper.exceptions import ProvenanceError, VerificationError
 from jobkeeper.outputs import write_output
+from jobkeeper.provenance.batch import BATCH_PREDICATE_TYPE, point_statement
 from jobkeeper.provenance.bundle import Bundle, read_bundle
 from jobkeeper.provenance.checkpoint import parse_checkpoint, split_note
 from jobkeeper.provenance.dsse import b64decode_strict
@@ -128,6 +129,12 @@ def _record(entry: Any, n: int, digest: str) -> dict[str, Any]:
                             "anchor": f"entry-{n}"}  # fmt: skip
     try:
         statement = json.loads(b64decode_strict(envelope.get("payload", ""), "payload"))
+        if statement.get("predicateType") == BATCH_PREDICATE_TYPE and entry.documents:
+            # A batch's entry: shown as the point it was bundled for (its counts are the
+            # document the verification above checked against the point's subject).
+            key, document = sorted(entry.documents.items())[0]
+            statement = point_statement(statement, key)
+            statement["predicate"]["counts"] = json.loads(document)
         predicate = statement["predicate"]
     except (VerificationError, ValueError, KeyError, TypeError):
         return {**base, "kind": "unreadable", "fields": [], "figure": None, "counts": []}

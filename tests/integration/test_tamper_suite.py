@@ -678,3 +678,130 @@ def test_a_bundle_rolled_back_to_an_older_checkpoint_fails(
     data = json.loads(made.bundle.read_text())
     data["checkpoint"] = older
     _bundle_fails(made, tmp_path, capsys, data, cli=True)
+
+
+# -- batches: edits to points sealed by one batch statement ---------------------------------
+
+BATCH_SCAN = """OPENQASM 3.0;
+include "stdgates.inc";
+input float[64] theta;
+qubit[2] q;
+bit[2] c;
+h q[0];
+rx(theta) q[1];
+cx q[0], q[1];
+c = measure q;
+"""
+
+
+@dataclass(frozen=True)
+class Batch:
+    keep: Path
+    points: list[str]  # the batch's point jobs, in sweep order
+    single: str  # a job sealed alone in the same keep
+
+
+@pytest.fixture(scope="module")
+def batch(tmp_path_factory: pytest.TempPathFactory) -> Batch:
+    """A keep whose sweep of four points (an invented angle scan) was sealed as one
+    batch by the real worker, beside one job sealed alone."""
+    root = tmp_path_factory.mktemp("tamper-batch")
+    program = root / "scan.qasm"
+    program.write_text(BATCH_SCAN)
+    with Keeper.open(root / "keep") as keeper:
+        single = keeper.run(circuit_text(0.7), shots=32, seed=4).id
+        run = keeper.submit_sweep(program, axes=["theta=0:1.5:4"], shots=64, seed=8)
+        keeper.work(once=True, local_executor="thread", idle_sleep=0.05)
+        points = [p.job_id for p in run.points]
+        assert len(keeper.store.log_entries()) == 2 and keeper.verify().ok
+    return Batch(root / "keep", points, single)
+
+
+def _point_spec(change: Callable[[dict[str, Any]], None]) -> Callable[..., None]:
+    def edit(conn: sqlite3.Connection, job: str) -> None:
+        (text,) = conn.execute("SELECT spec FROM jobs WHERE id = ?", (job,)).fetchone()
+        doc = json.loads(text)
+        change(doc)
+        conn.execute("UPDATE jobs SET spec = ? WHERE id = ?", (json.dumps(doc), job))
+
+    return edit
+
+
+BATCH_EDITS: dict[str, Callable[..., None]] = {
+    "point count changed": _counts(_bump),
+    "point counts moved": _counts(_shift),
+    "point counts respaced": _sql(
+        "UPDATE results SET counts = replace(counts, ':', ': ') WHERE job_id = :job"
+    ),
+    "point result deleted": _sql("DELETE FROM results WHERE job_id = :job"),
+    "point shots": _sql("UPDATE jobs SET shots = shots + 1 WHERE id = :job"),
+    "point job key": _sql(
+        "UPDATE jobs SET job_key = 'sha256:' || hex(randomblob(32)) WHERE id = :job"
+    ),
+    "point state queued": _sql("UPDATE jobs SET state = 'queued' WHERE id = :job"),
+    "point started time": _sql("UPDATE jobs SET started_at = started_at + 1 WHERE id = :job"),
+    "point seed": _point_spec(lambda d: d.update(seed=int(d["seed"]) + 1)),
+    "point binding": _point_spec(lambda d: d["bindings"][0].update(text="0.25")),
+    "point template": _point_spec(lambda d: d["template"].update(text=BATCH_SCAN + "\n")),
+    "point circuit": _point_spec(lambda d: d.update(circuit=d["circuit"].replace("h ", "x "))),
+    "point metadata": _sql(
+        "UPDATE results SET metadata = json_set(metadata, '$.method', 'forged') WHERE job_id = :job"
+    ),
+    "point left out of its batch": _sql("DELETE FROM batch_points WHERE job_id = :job"),
+    "point moved to another batch": _sql(
+        "UPDATE batch_points SET batch_id = 'bt-forged' WHERE job_id = :job"
+    ),
+    "batch entry deleted": _sql(
+        "DELETE FROM log_entries WHERE job_id = "
+        "(SELECT batch_id FROM batch_points WHERE job_id = :job)"
+    ),
+    "batch envelope byte": _sql(
+        'UPDATE log_entries SET envelope = CAST(replace(CAST(envelope AS TEXT), \'"sig":"\', '
+        '\'"sig":"A\') AS BLOB) WHERE job_id = '
+        "(SELECT batch_id FROM batch_points WHERE job_id = :job)"
+    ),
+}
+
+
+def _batch_cases() -> list[tuple[str, str, Any]]:
+    cases = [(f"point{n}: {name}", str(n), edit)
+             for n in (0, 3) for name, edit in BATCH_EDITS.items()]  # fmt: skip
+    cases += [
+        (
+            "a lone job added to the batch",
+            "single",
+            _sql(
+                "INSERT INTO batch_points (job_id, batch_id) SELECT :job, batch_id "
+                "FROM batch_points LIMIT 1"
+            ),
+        ),
+        ("batch list emptied", "-", _sql("DELETE FROM batch_points")),
+    ]
+    return cases
+
+
+BATCH_CASES = _batch_cases()
+
+
+@pytest.mark.parametrize(
+    ("which", "edit"), [c[1:] for c in BATCH_CASES], ids=[c[0] for c in BATCH_CASES]
+)
+def test_an_edit_to_a_batch_is_detected(
+    batch: Batch, tmp_path: Path, capsys: pytest.CaptureFixture[str], which: str, edit: Any
+) -> None:
+    keep = tmp_path / "keep"
+    shutil.copytree(batch.keep, keep)
+    job = batch.single if which == "single" else batch.points[int(which) if which != "-" else 0]
+    with Keeper.open(keep, create=False) as genuine:
+        signed = genuine.job(job).counts
+    conn = sqlite3.connect(keep / "archive.db")
+    with conn:
+        edit(conn, job)
+    conn.close()
+    code, out, err = _run(capsys, "verify", "--all", "--keep", str(keep))
+    assert code == 1 and "PROBLEM" in out, (out, err)
+    with Keeper.open(keep, create=False) as keeper:
+        got: list[Any] = []
+        code = _exit(lambda: got.append(keeper.job(job).result))
+        # A read refuses forged counts, or gives the signed ones (or none: not done).
+        assert code == 1 or got[0] is None or dict(got[0].counts or {}) == signed, got

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import contextlib
 from collections.abc import Sequence
 from typing import Any
 
@@ -10,6 +11,7 @@ import psycopg
 from jobkeeper.exceptions import LeaseLost
 from jobkeeper.queue import JobState
 from jobkeeper.store import (
+    BatchIncomplete,
     Claim,
     ComparisonRecord,
     Completion,
@@ -176,6 +178,39 @@ class PostgresStore(StoreReads):
 
         return claims_of([_record(row) for row in self._db.run(work, write=True)])
 
+    def claim_batch(
+        self,
+        owner: str,
+        *,
+        limit: int,
+        lease_seconds: float,
+        backends: Sequence[str] | None = None,
+        ids: Sequence[str] | None = None,
+    ) -> list[Claim]:
+        limited = (
+            claim_filter(
+                backends, ids, lambda column, values: (f"jobs.{column} = ANY(?)", [list(values)])
+            )
+            if limit > 0
+            else None
+        )
+        if limited is None:
+            return []
+        condition, filter_params = limited
+        pick = translate(sql.BATCH_SWEEP, backend_filter=condition).encode()
+        claim = translate(
+            sql.CLAIM_BATCH, backend_filter=condition, lock="FOR UPDATE OF jobs SKIP LOCKED"
+        ).encode()
+
+        def work(conn: Conn) -> list[Any]:
+            found = conn.execute(pick, filter_params).fetchone()
+            if found is None:
+                return []
+            params = [owner, float(lease_seconds), found[0], *filter_params, int(limit)]
+            return conn.execute(claim, params).fetchall()
+
+        return claims_of([_record(row) for row in self._db.run(work, write=True)])
+
     def renew(
         self, owner: str, leases: Sequence[tuple[str, int]], lease_seconds: float
     ) -> set[str]:
@@ -265,6 +300,32 @@ class PostgresStore(StoreReads):
             return done
 
         return self._db.run(work, write=True)
+
+    def finish_batch(
+        self, batch_id: str, completions: Sequence[Completion], envelope: bytes, signer: str,
+        appender: LogAppender,
+    ) -> list[bool]:  # fmt: skip
+        rows = [result_row(item) for item in completions]  # before the transaction
+        held: list[bool] = []
+
+        def work(conn: Conn) -> None:
+            nonlocal held
+            finished = each_row(
+                conn, dialect(sql.PG_FINISH), [(c.job_id, c.token) for c in completions]
+            )
+            held = [row is not None for row in finished]
+            if not all(held):
+                raise BatchIncomplete  # rolls the transaction back
+            with conn.cursor() as cur:
+                cur.executemany(dialect(sql.INSERT_RESULT), rows)
+                cur.executemany(
+                    dialect(sql.INSERT_BATCH_POINT), [(c.job_id, batch_id) for c in completions]
+                )
+            self._append_log(conn, [(batch_id, envelope, signer)], appender)
+
+        with contextlib.suppress(BatchIncomplete):  # rolled back: ``held`` says why
+            self._db.run(work, write=True)
+        return held
 
     def record_comparison(
         self, comparison: ComparisonRecord, envelope: bytes, signer: str, appender: LogAppender
