@@ -25,14 +25,15 @@ from typing import Any
 from jobkeeper.exceptions import VerificationError
 from jobkeeper.provenance.manifest import (
     COUNTS_NAME,
-    PREDICATE_TYPE,
+    RUN_PREDICATE_TYPE,
     RUN_PREDICATE_TYPES,
     STATEMENT_TYPE,
     parse_statement,
+    predicate_type,
 )
 
-#: The predicate type of a batch statement: a URN of our own, the major version last.
-BATCH_PREDICATE_TYPE = "urn:jobkeeper:predicate:batch:v1"
+#: The predicate type of a batch statement: ``urn:jobkeeper:predicate:batch:v1``.
+BATCH_PREDICATE_TYPE = predicate_type("batch", 1)
 #: Fields of a batch predicate every point shares (the rest is in ``points``).
 SHARED = ("template", "backend", "software", "registers")
 
@@ -88,7 +89,7 @@ def point_statement(statement: Mapping[str, Any], job_key: str) -> dict[str, Any
     return {
         "_type": STATEMENT_TYPE,
         "subject": [{"name": COUNTS_NAME, "digest": {"sha256": digest}}],
-        "predicateType": PREDICATE_TYPE,
+        "predicateType": RUN_PREDICATE_TYPE,
         "predicate": {**shared, **point},
         "batch": True,
     }
