@@ -36,6 +36,10 @@ log = logging.getLogger("jobkeeper.worker")
 
 #: Most points one batch claims: one statement and one transaction carry them all.
 BATCH_POINTS = 512
+#: After a look for due sweep points found none, seconds before the next look: the look
+#: reads the queued jobs, so a queue of plain jobs must not pay it at every claim
+#: (points submitted meanwhile are claimed the ordinary way until then).
+BATCH_RECHECK = 1.0
 
 
 class BatchSteps(JobSteps):
@@ -45,16 +49,19 @@ class BatchSteps(JobSteps):
     backends: list[str] | None
     ids: list[str] | None
     _batches: set[asyncio.Task[None]]
+    _next_batch_look: float = 0.0
 
     async def _claim_batch(self, free: int) -> int:
         """Claim a batch of one sweep's due points (at most ``free``); how many."""
-        if free < 2:
+        now = asyncio.get_running_loop().time()
+        if free < 2 or now < self._next_batch_look:
             return 0
         claims = await self._store(
             self.store.claim_batch, self.owner, limit=min(free, BATCH_POINTS),
             lease_seconds=self.lease.lease, backends=self.backends, ids=self.ids,
         )  # fmt: skip
         if not claims:
+            self._next_batch_look = now + BATCH_RECHECK
             return 0
         batch: list[Held] = []
         for claim in claims:

@@ -278,12 +278,13 @@ class SqliteStore(StoreReads):
         if limited is None:
             return []
         condition, filter_params = limited
+        # Looked up outside the write lock: a keep without due sweep points (most claims)
+        # pays one indexed read, not a write transaction.
+        found = self._read(sql.BATCH_SWEEP, filter_params, backend_filter=condition)
+        if not found:
+            return []
         with self._write(durable=False) as conn:
-            row = conn.execute(_q(sql.BATCH_SWEEP, backend_filter=condition), filter_params)
-            found = row.fetchone()
-            if found is None:
-                return []
-            params = [owner, lease_seconds, found[0], *filter_params, limit]
+            params = [owner, lease_seconds, found[0][0], *filter_params, limit]
             rows = conn.execute(_q(sql.CLAIM_BATCH, backend_filter=condition, lock=""), params)
             claimed = rows.fetchall()
         return claims_of([record_of(row) for row in claimed])
