@@ -35,38 +35,68 @@ def round_param(value: float) -> float:
 
 
 def format_param(value: float) -> str:
-    text = f"{round_param(value):.{SIGNIFICANT_DIGITS}g}"
+    return format_rounded(round_param(value))
+
+
+def format_rounded(value: float) -> str:
+    """The canonical writing of a parameter already rounded by :func:`round_param`
+    (rounding again would change nothing: twelve digits of a twelve-digit number)."""
+    text = f"{value:.{SIGNIFICANT_DIGITS}g}"
     mantissa, e, exponent = text.partition("e")
     if "." not in mantissa:
         mantissa += ".0"
     return mantissa + e + exponent
 
 
+class CanonicalWriter:
+    """The canonical text of circuits with one circuit's registers and opaque gates: the
+    header lines once, then one line per operation. A template's bound points share
+    their registers, so a sweep writes the header once and only the lines whose
+    parameters change per point (:mod:`jobkeeper.circuit.qasm3.compiled`)."""
+
+    __slots__ = ("_bit_names", "_circuit", "_register_of", "_signatures", "header")
+
+    def __init__(self, circuit: Circuit):
+        lines = ["OPENQASM 2.0;", 'include "qelib1.inc";']
+        signatures = {name: (0, 1) for name in circuit.opaque}
+        for op in circuit.operations:
+            if op.name in signatures:
+                signatures[op.name] = (len(op.params), len(op.qubits))
+        for name, n_params, n_qubits in circuit.opaque_signatures:
+            signatures[name] = (n_params, n_qubits)
+        for name in sorted(signatures):
+            n_params, n_qubits = signatures[name]
+            params = f"({','.join(f'p{i}' for i in range(n_params))})" if n_params else ""
+            lines.append(f"opaque {name}{params} {','.join(f'a{i}' for i in range(n_qubits))};")
+        if circuit.num_qubits:
+            lines.append(f"qreg q[{circuit.num_qubits}];")
+        bit_names: dict[int, str] = {}
+        register_of: dict[tuple[int, ...], str] = {}
+        for k, reg in enumerate(circuit.cregs):
+            lines.append(f"creg c{k}[{reg.size}];")
+            bits = tuple(range(reg.offset, reg.offset + reg.size))
+            register_of[bits] = f"c{k}"
+            for j, bit in enumerate(bits):
+                bit_names[bit] = f"c{k}[{j}]"
+        self._circuit = circuit
+        self._bit_names = bit_names
+        self._register_of = register_of
+        self._signatures = signatures
+        #: the lines before the operations.
+        self.header = tuple(lines)
+
+    def line(self, op: Operation) -> str:
+        """The canonical line of one operation of the circuit."""
+        return _operation_line(
+            self._circuit, op, self._bit_names, self._register_of, self._signatures
+        )
+
+
 def canonical_text(circuit: Circuit) -> str:
     """The canonical OpenQASM 2.0 text of ``circuit`` (see the module docstring)."""
-    lines = ["OPENQASM 2.0;", 'include "qelib1.inc";']
-    signatures = {name: (0, 1) for name in circuit.opaque}
-    for op in circuit.operations:
-        if op.name in signatures:
-            signatures[op.name] = (len(op.params), len(op.qubits))
-    for name, n_params, n_qubits in circuit.opaque_signatures:
-        signatures[name] = (n_params, n_qubits)
-    for name in sorted(signatures):
-        n_params, n_qubits = signatures[name]
-        params = f"({','.join(f'p{i}' for i in range(n_params))})" if n_params else ""
-        lines.append(f"opaque {name}{params} {','.join(f'a{i}' for i in range(n_qubits))};")
-    if circuit.num_qubits:
-        lines.append(f"qreg q[{circuit.num_qubits}];")
-    bit_names: dict[int, str] = {}
-    register_of: dict[tuple[int, ...], str] = {}
-    for k, reg in enumerate(circuit.cregs):
-        lines.append(f"creg c{k}[{reg.size}];")
-        bits = tuple(range(reg.offset, reg.offset + reg.size))
-        register_of[bits] = f"c{k}"
-        for j, bit in enumerate(bits):
-            bit_names[bit] = f"c{k}[{j}]"
-    for op in circuit.operations:
-        lines.append(_operation_line(circuit, op, bit_names, register_of, signatures))
+    writer = CanonicalWriter(circuit)
+    lines = list(writer.header)
+    lines.extend(writer.line(op) for op in circuit.operations)
     return "\n".join(lines) + "\n"
 
 

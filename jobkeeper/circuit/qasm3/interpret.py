@@ -46,6 +46,9 @@ class _Runtime(Exception):
 
 
 class Interpreter:
+    #: where gate calls put their operations (a subclass may record more).
+    sink_type: type[OperationSink] = OperationSink
+
     def __init__(self, file: str | None, bindings: Mapping[str, float]) -> None:
         self.file = file
         self.bindings = bindings
@@ -334,7 +337,7 @@ class Interpreter:
             self.fail(f"register sizes differ in broadcast of '{stmt.name.text}'", stmt.name)
         count = sizes.pop() if sizes else 1
         out: list[Operation] = []
-        sink = OperationSink(out, self.charge)
+        sink = self.sink_type(out, self.charge)
         for i in range(count):
             qubits = tuple(q[i] if is_reg else q[0] for q, is_reg in args)
             if len(set(qubits)) != len(qubits):
@@ -367,7 +370,7 @@ class Interpreter:
             {k: Var("float", None, v, True) for k, v in scope.items()},
         ]
         try:
-            return float(number(self.evaluate(expr)))
+            return self.number_of(expr)
         finally:
             self.scopes = saved
 

@@ -9,12 +9,14 @@ from __future__ import annotations
 
 import math
 import re
-from collections.abc import Mapping
-from dataclasses import replace
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, replace
 from numbers import Real
 
+from jobkeeper.circuit.canonical import canonical_text
 from jobkeeper.circuit.ir import Circuit
 from jobkeeper.circuit.qasm3 import nodes as n
+from jobkeeper.circuit.qasm3.compiled import CompiledTemplate, Unbindable
 from jobkeeper.circuit.qasm3.interpret import Interpreter
 from jobkeeper.circuit.qasm3.syntax import parse_program
 from jobkeeper.exceptions import CircuitError
@@ -33,6 +35,18 @@ def language_version(text: str) -> int:
     at = skipped.end() if skipped else start
     match = _VERSION.match(text, at)
     return 2 if match and match.group(1).startswith("2") else 3
+
+
+@dataclass(frozen=True, slots=True)
+class BoundPoint:
+    """A bound point: the circuit, its canonical text (empty when not asked for), and
+    ``shape``: points of one template with the same shape number have the same
+    operations but for their parameters (None: bound by the interpreter, shape
+    unknown)."""
+
+    circuit: Circuit
+    text: str
+    shape: int | None
 
 
 class Template:
@@ -64,12 +78,48 @@ class Template:
         self.inputs = {
             stmt.name.text: stmt.type.name for stmt in self.program if isinstance(stmt, n.InputDecl)
         }
+        self._compiled = CompiledTemplate(self.program, self.inputs, filename)
 
     def bind(self, values: Mapping[str, float] | None = None) -> Circuit:
         """The circuit with each input set to ``values[name]``. CircuitError (exit 2)
         naming them for inputs without a value, values for names that are no input, and
-        values that are not finite numbers."""
-        values = dict(values or {})
+        values that are not finite numbers.
+
+        Fast after the first point: the program is traced once (its float inputs kept
+        symbolic, :mod:`.compiled`) and each point only evaluates the traced parameters;
+        a program that does not trace, or a point the trace cannot decide, is run by the
+        interpreter. Either way the circuit is the same."""
+        return self.bind_canonical(values, text=False)[0]
+
+    def bind_canonical(
+        self, values: Mapping[str, float] | None = None, *, text: bool = True
+    ) -> tuple[Circuit, str]:
+        """The bound circuit and its canonical text (what :func:`canonical_text` gives;
+        written fast for a traced template: only the lines of operations whose
+        parameters depend on the inputs are formatted per point). With ``text=False``
+        the text is left empty."""
+        point = self._bind(dict(values or {}), text)
+        return point.circuit, point.text
+
+    def bind_many(
+        self, points: Sequence[Mapping[str, float]], *, text: bool = True
+    ) -> list[BoundPoint]:
+        """Each point bound (as :meth:`bind_canonical`), with the structure it took."""
+        return [self._bind(dict(values), text) for values in points]
+
+    def _bind(self, values: dict[str, float], text: bool) -> BoundPoint:
+        self._check(values)
+        if self.fixed is not None:
+            return BoundPoint(self.fixed, canonical_text(self.fixed) if text else "", 0)
+        try:
+            shape = self._compiled.shape(values)
+            circuit = shape.bind(self._compiled.numbers(values), self.source_hash, self.filename)
+        except Unbindable:
+            circuit = self._interpret(values)
+            return BoundPoint(circuit, canonical_text(circuit) if text else "", None)
+        return BoundPoint(circuit, shape.text(circuit) if text else "", shape.number)
+
+    def _check(self, values: Mapping[str, float]) -> None:
         unknown = sorted(set(values) - set(self.inputs))
         if unknown:
             known = ", ".join(sorted(self.inputs)) or "none"
@@ -83,12 +133,14 @@ class Template:
                 f"input(s) without a value: {', '.join(missing)}", file=self.filename
             )
         if self.fixed is not None:
-            return self.fixed
+            return
         for name, value in values.items():
             if isinstance(value, bool) or not isinstance(value, Real) or not math.isfinite(value):
                 raise CircuitError(
                     f"input {name} = {value!r} is not a finite number", file=self.filename
                 )
+
+    def _interpret(self, values: Mapping[str, float]) -> Circuit:
         interpreter = Interpreter(self.filename, values)
         try:
             interpreter.run(self.program)
