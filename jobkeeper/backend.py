@@ -22,13 +22,16 @@ is called as ``factory(name=..., config={...})`` and returns a backend.
 from __future__ import annotations
 
 import time
-from collections.abc import Iterator, Mapping
+from collections.abc import Iterator, Mapping, Sequence
 from contextlib import contextmanager
 from contextvars import ContextVar
 from dataclasses import dataclass, field
-from typing import Any, Literal, Protocol, runtime_checkable
+from typing import TYPE_CHECKING, Any, Literal, Protocol, runtime_checkable
 
 from jobkeeper.circuit.ir import Circuit
+
+if TYPE_CHECKING:
+    from jobkeeper.circuit.qasm3.template import Template
 
 BackendKind = Literal["simulator", "remote"]
 RemoteState = Literal["waiting", "done", "failed", "cancelled"]
@@ -151,6 +154,33 @@ class LocalBackend(Backend, Protocol):
     runs inline."""
 
     def execute(self, task: Task) -> Result: ...
+
+
+@dataclass(frozen=True, slots=True)
+class BatchPoint:
+    """One point of a batch: the values of the template's inputs, the shots, the seed
+    (resolved, as a job's; None lets the backend choose) and the exact flag. With
+    ``circuit_hash`` (the point's job's circuit hash) the backend refuses a point whose
+    bound circuit is another."""
+
+    values: Mapping[str, float]
+    shots: int
+    seed: int | None
+    exact: bool = False
+    circuit_hash: str | None = None
+
+
+@runtime_checkable
+class BatchBackend(LocalBackend, Protocol):
+    """A local backend that runs many points of one template at once (DESIGN §7).
+
+    ``run_batch`` returns one Result per point, in the points' order, each exactly what
+    running that point's bound circuit alone would give for its seed: a point's result
+    never depends on the batch it ran in or its place there. It raises only
+    ``PermanentBackendError`` (naming the point where one is to blame); the caller may
+    then run the points one at a time to find which fail."""
+
+    def run_batch(self, template: Template, points: Sequence[BatchPoint]) -> list[Result]: ...
 
 
 @dataclass(frozen=True)

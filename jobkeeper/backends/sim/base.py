@@ -18,16 +18,18 @@ from __future__ import annotations
 import os
 import secrets
 import time
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 from typing import Any, ClassVar, Generic, Protocol, TypeVar
 
 import numpy as np
 from pydantic import BaseModel, ConfigDict, Field, StrictInt, ValidationError
 
 from jobkeeper._version import __version__
-from jobkeeper.backend import BackendInfo, Polled, Pricing, Result, Started, Task
+from jobkeeper.backend import BackendInfo, BatchPoint, Polled, Pricing, Result, Started, Task
+from jobkeeper.backends.sim.batch import bind_points, run_one_by_one
 from jobkeeper.backends.sim.sampling import BitFormatter, Floats, probabilities_of, sample_counts
 from jobkeeper.circuit.ir import NON_GATE_OPERATIONS, Circuit, Condition
+from jobkeeper.circuit.qasm3.template import Template
 from jobkeeper.exceptions import ConfigError, PermanentBackendError
 from jobkeeper.hashing import digest_of
 
@@ -294,20 +296,34 @@ class Simulator(Generic[ProgramT]):
             probabilities = {}
             for record, probs in ordered:
                 probabilities_of(formatter, record, probs, probabilities)
+        metadata = self.run_metadata(seed, task.shots, len(ordered), program.measures, details)
+        return Result(counts=counts, probabilities=probabilities, metadata=metadata)
+
+    def run_metadata(
+        self, seed: int, shots: int, records: int, measures: bool, details: Mapping[str, Any]
+    ) -> dict[str, Any]:
+        """What a result says about its run (a batch's points say the same)."""
         metadata: dict[str, Any] = {
             "seed": str(seed),
             "method": self.method,
             "kernel_version": self.kernel_version,
             "numpy_version": np.__version__,
-            "shots": task.shots,
-            "classical_records": len(ordered),
-            "measured": program.measures,
+            "shots": shots,
+            "classical_records": records,
+            "measured": measures,
             "sampling": SAMPLING,
             **details,
         }
-        if not program.measures:
+        if not measures:
             metadata["note"] = "the circuit measures nothing: every classical bit reads 0"
-        return Result(counts=counts, probabilities=probabilities, metadata=metadata)
+        return metadata
+
+    # -- batches (jobkeeper.backend.BatchBackend) --------------------------------------------
+
+    def run_batch(self, template: Template, points: Sequence[BatchPoint]) -> list[Result]:
+        """Each point bound (fast, one trace per template) and run as a single job
+        would run it; the state-vector simulator vectorises (see :mod:`.batch`)."""
+        return run_one_by_one(self, bind_points(template, points), points)
 
     # -- the asynchronous side: finished inside start -------------------------------------
 

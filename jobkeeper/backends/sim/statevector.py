@@ -23,12 +23,13 @@ How a task runs:
 from __future__ import annotations
 
 import functools
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 from typing import Any
 
 import numpy as np
 from pydantic import Field, StrictInt
 
+from jobkeeper.backend import BatchPoint, Result
 from jobkeeper.backends.sim import kernels
 from jobkeeper.backends.sim.base import (
     BRANCH_FLOOR,
@@ -37,6 +38,7 @@ from jobkeeper.backends.sim.base import (
     holds,
     parse_options,
 )
+from jobkeeper.backends.sim.batch import run_statevector_batch
 from jobkeeper.backends.sim.fusion import DEFAULT_MAX_WIDTH, Block
 from jobkeeper.backends.sim.program import (
     Conditional,
@@ -48,6 +50,7 @@ from jobkeeper.backends.sim.program import (
 )
 from jobkeeper.backends.sim.sampling import Floats, marginal
 from jobkeeper.circuit.ir import Circuit
+from jobkeeper.circuit.qasm3.template import Template
 from jobkeeper.exceptions import PermanentBackendError
 
 DEFAULT_MAX_QUBITS = 28
@@ -109,6 +112,10 @@ class StatevectorBackend(Simulator[Program]):
             for block in step.blocks:
                 kernels.apply(state, circuit.num_qubits, block.matrix, block.qubits, block.kind)
         return state
+
+    def run_batch(self, template: Template, points: Sequence[BatchPoint]) -> list[Result]:
+        """The points evolved together where the circuit is small (:mod:`.batch`)."""
+        return run_statevector_batch(self, template, points)
 
     def outcome_weights(self, program: Program) -> tuple[dict[int, Floats], dict[str, Any]]:
         """Exact outcome weights per classical record (before the final measurements),
