@@ -28,12 +28,13 @@ so a sweep point and the same operations written with literal values are one job
 
 from __future__ import annotations
 
+import re
 import secrets
-from collections.abc import Mapping
-from dataclasses import dataclass, field
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass, field, replace
 from typing import Any
 
-from jobkeeper.hashing import digest_of
+from jobkeeper.hashing import canonical_json, digest_of, sha256_tag
 from jobkeeper.sweeps.bindings import Bindings, Value
 
 KEY_VERSION = 1
@@ -214,3 +215,34 @@ def bindings_of(document: Any) -> Bindings | None:
 def job_key(spec: JobSpec, *, backend_config_hash: str) -> str:
     """``sha256:<hex>`` of the RFC 8785 canonical JSON of the spec's key document."""
     return digest_of(spec.key_document(backend_config_hash=backend_config_hash))
+
+
+_CIRCUIT_HASH = re.compile(r"sha256:[0-9a-f]{64}")
+_PLACEHOLDER = "jobkeeper:circuit-hash-of-the-point"
+
+
+def job_keys(spec: JobSpec, *, backend_config_hash: str) -> Callable[[str], str]:
+    """``job_key`` of specs that differ from ``spec`` only in their circuit hash (the
+    points of a sweep), given that hash: the key document's canonical JSON is written
+    once around the hash and each key is one SHA-256 (a sweep of a thousand points
+    would otherwise write a thousand documents). Equal to :func:`job_key` of the spec
+    with that circuit hash, always: anything unusual takes :func:`job_key` itself."""
+    document = replace(spec, circuit_hash=_PLACEHOLDER).key_document(
+        backend_config_hash=backend_config_hash
+    )
+    text = canonical_json(document).decode("utf-8")
+    quoted = f'"{_PLACEHOLDER}"'
+    if text.count(quoted) != 1:
+        return lambda digest: job_key(
+            replace(spec, circuit_hash=digest), backend_config_hash=backend_config_hash
+        )
+    head, tail = text.split(quoted)
+
+    def key(digest: str) -> str:
+        if _CIRCUIT_HASH.fullmatch(digest) is None:
+            return job_key(
+                replace(spec, circuit_hash=digest), backend_config_hash=backend_config_hash
+            )
+        return sha256_tag(f'{head}"{digest}"{tail}'.encode("utf-8"))
+
+    return key

@@ -5,13 +5,16 @@ with, resolved once at submission; and the one check of submission options."""
 from __future__ import annotations
 
 import hashlib
+from dataclasses import replace
 
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from jobkeeper import SubmitOptions
 from jobkeeper.exceptions import ConfigError
 from jobkeeper.hashing import canonical_json
-from jobkeeper.spec import JobSpec, job_key, resolve_seed
+from jobkeeper.spec import JobSpec, job_key, job_keys, resolve_seed
 
 CIRCUIT_HASH = "sha256:" + "a" * 64
 
@@ -122,3 +125,28 @@ def test_bad_options_are_refused_with_one_line(fields, message) -> None:
 def test_a_lone_label_is_one_label() -> None:
     assert SubmitOptions.of(labels="fig3").labels == {"fig3"}
     assert SubmitOptions.of(labels=["a", "b", "a"]).labels == {"a", "b"}
+
+
+@settings(max_examples=100, deadline=None)
+@given(
+    digest=st.one_of(
+        st.binary(min_size=32, max_size=32).map(lambda b: "sha256:" + b.hex()),
+        st.text(max_size=20),
+    ),
+    shots=st.integers(0, 10**6),
+    seed=st.one_of(st.none(), st.integers(0, 2**63 - 1)),
+    repeat=st.integers(0, 3),
+    options=st.dictionaries(
+        st.text(max_size=8), st.one_of(st.integers(-5, 5), st.text(max_size=8))
+    ),
+)
+def test_job_keys_of_sweep_points_are_job_key(
+    digest: str, shots: int, seed: int | None, repeat: int, options: dict[str, object]
+) -> None:
+    spec = JobSpec.new(
+        circuit_text="", circuit_hash="sha256:" + "0" * 64, backend="statevector", shots=shots,
+        seed=seed, repeat=repeat, options=options,
+    )  # fmt: skip
+    config = "sha256:" + "ab" * 32
+    fast = job_keys(spec, backend_config_hash=config)
+    assert fast(digest) == job_key(replace(spec, circuit_hash=digest), backend_config_hash=config)
