@@ -243,6 +243,6 @@ def job_keys(spec: JobSpec, *, backend_config_hash: str) -> Callable[[str], str]
             return job_key(
                 replace(spec, circuit_hash=digest), backend_config_hash=backend_config_hash
             )
-        return sha256_tag(f'{head}"{digest}"{tail}'.encode("utf-8"))
+        return sha256_tag(f'{head}"{digest}"{tail}'.encode())
 
     return key

@@ -13,7 +13,8 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from jobkeeper.backend import BatchBackend, BatchPoint, Task
-from jobkeeper.backends.sim.batch import EVOLUTION_VECTORISED, evolve
+from jobkeeper.backends.sim.batch import EVOLUTION_VECTORISED, evolve, evolve_group
+from jobkeeper.backends.sim.batch_points import group_points
 from jobkeeper.backends.sim.densitymatrix import DensityMatrixBackend
 from jobkeeper.backends.sim.statevector import StatevectorBackend
 from jobkeeper.backends.sim.trajectories import TrajectoryBackend
@@ -48,7 +49,8 @@ def test_the_simulators_are_batch_backends() -> None:
 
 def test_states_are_bit_identical_whatever_the_batch() -> None:
     template = Template(PROGRAM)
-    circuits = [template.bind(p.values) for p in _points(300)]
+    points = _points(300)
+    circuits = [template.bind(p.values) for p in points]
     whole = evolve(circuits)
     rng = random.Random(3)
     for size in (1, 2, 7, 64, 299):
@@ -56,6 +58,12 @@ def test_states_are_bit_identical_whatever_the_batch() -> None:
         part = evolve([circuits[i] for i in picked])
         assert part.re.tobytes() == whole.re[picked].tobytes()
         assert part.im.tobytes() == whole.im[picked].tobytes()
+        # The same points kept as traced parameter slots (what run_batch evolves).
+        (group,) = group_points(template, [points[i] for i in picked])
+        assert group.shape is not None
+        traced = evolve_group(group, range(size))
+        assert traced.re.tobytes() == part.re.tobytes()
+        assert traced.im.tobytes() == part.im.tobytes()
 
 
 def test_states_agree_with_the_single_job_simulator() -> None:

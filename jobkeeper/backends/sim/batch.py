@@ -33,6 +33,7 @@ import numpy as np
 
 from jobkeeper.backend import BatchPoint, Result, Task
 from jobkeeper.backends.sim.batch_kernels import States, gate_parts
+from jobkeeper.backends.sim.batch_points import Group, group_points
 from jobkeeper.backends.sim.program import IDENTITY_GATES, Outline, final_measurements, outline
 from jobkeeper.backends.sim.sampling import BitFormatter, draw, probabilities_of
 from jobkeeper.circuit.ir import BARRIER, MEASURE, RESET, Circuit
@@ -92,18 +93,6 @@ def run_one_by_one(
     ]
 
 
-def _shape_key(point: BoundPoint) -> object:
-    if point.shape is not None:
-        return point.shape
-    circuit = point.circuit
-    return (
-        circuit.num_qubits,
-        circuit.num_clbits,
-        tuple((r.size, r.offset) for r in circuit.cregs),
-        tuple((op.name, op.qubits, op.clbits, op.condition) for op in circuit.operations),
-    )
-
-
 def _vectorisable(plan: Outline, circuit: Circuit) -> bool:
     if circuit.num_qubits > VECTOR_QUBITS or circuit.opaque:
         return False
@@ -115,29 +104,26 @@ def run_statevector_batch(
 ) -> list[Result]:
     """The state-vector simulator's batch (see the module docstring)."""
     _check_points(points)
-    bound = bind_points(template, points)
     results: list[Result | None] = [None] * len(points)
-    groups: dict[object, list[int]] = {}
-    for index, one in enumerate(bound):
-        groups.setdefault(_shape_key(one), []).append(index)
-    for members in groups.values():
-        first = bound[members[0]].circuit
+    for group in group_points(template, points):
+        first = group.first
         plan = outline(first)  # validates the shape: the same for every member
+        ks = range(len(group.members))
         if not _vectorisable(plan, first):
-            done = run_one_by_one(
-                simulator, [bound[i] for i in members], [points[i] for i in members]
-            )
-            for i, result in zip(members, done, strict=True):
-                results[i] = result
+            for k in ks:
+                point = points[group.members[k]]
+                task = Task(group.circuit(k), point.shots, seed=point.seed, exact=point.exact)
+                results[group.members[k]] = simulator.execute(task)
             continue
         simulator.check_memory(first.num_qubits)
         keys = _Keys(BitFormatter(first.cregs, first.num_clbits, [c for _, c in plan.final]))
         chunk = max(1, CHUNK_AMPLITUDES >> first.num_qubits)
-        for start in range(0, len(members), chunk):
-            part = members[start : start + chunk]
-            states = evolve([bound[i].circuit for i in part])
+        for start in range(0, len(ks), chunk):
+            part = ks[start : start + chunk]
+            states = evolve_group(group, part)
             probs = states.probabilities([q for q, _ in plan.final])
-            for row, i in enumerate(part):
+            for row, k in enumerate(part):
+                i = group.members[k]
                 results[i] = _sampled(simulator, plan, keys, probs[row], points[i])
     return [r for r in results if r is not None]
 
@@ -145,7 +131,8 @@ def run_statevector_batch(
 class _Keys:
     """Count keys of a shape's outcomes (record 0), each written once by the shape's
     formatter: what :func:`.sampling.counts_of_draws` writes, without writing the same
-    bit string again for every point."""
+    bit string again for every point. (That function turns to a CountTable only past
+    TABLE_FROM = 2^12 distinct outcomes, more than VECTOR_QUBITS qubits can give.)"""
 
     def __init__(self, formatter: BitFormatter):
         self.formatter = formatter
@@ -164,14 +151,18 @@ class _Keys:
 def evolve(circuits: Sequence[Circuit]) -> States:
     """The final states of ``circuits`` (bound points of one shape that only applies
     gates before its final measurements)."""
-    first = circuits[0]
-    states = States(len(circuits), first.num_qubits)
+    group = Group(list(range(len(circuits))), circuits[0], None, circuits=list(circuits))
+    return evolve_group(group, range(len(circuits)))
+
+
+def evolve_group(group: Group, ks: Sequence[int]) -> States:
+    """The final states of the group's points ``ks``."""
+    first = group.first
+    states = States(len(ks), first.num_qubits)
     for position in body_positions(first):
         op = first.operations[position]
-        if op.name in IDENTITY_GATES:
-            continue
-        params = np.array([c.operations[position].params for c in circuits], dtype=np.float64)
-        states.apply(op.qubits, gate_parts(op.name, params.reshape(len(circuits), -1)))
+        if op.name not in IDENTITY_GATES:
+            states.apply(op.qubits, gate_parts(op.name, group.params(position, ks)))
     return states
 
 

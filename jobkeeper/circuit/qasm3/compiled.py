@@ -43,7 +43,7 @@ class Unbindable(Exception):
 
 
 @dataclass(frozen=True, slots=True)
-class _Open:
+class Open:
     """An operation with input-dependent parameters: its index, the operation as traced,
     per parameter the slot of the computed values (None: a constant), and its canonical
     line around the parameters' text (``head`` + ``(a,b)`` + ``tail``)."""
@@ -78,7 +78,7 @@ class Shape:
         ops = list(circuit.operations)
         self.writer = CanonicalWriter(circuit)
         slot_of: dict[str, int] = {}
-        opened: list[_Open] = []
+        opened: list[Open] = []
         for index, op in enumerate(ops):
             params: tuple[object, ...] = op.params
             if not any(isinstance(p, Sym) for p in params):
@@ -88,40 +88,47 @@ class Shape:
                 for p in params
             )
             single = slots[0] if len(slots) == 1 else None
-            opened.append(_Open(index, op, slots, *_split_line(self.writer, op), single))
+            opened.append(Open(index, op, slots, *_split_line(self.writer, op), single))
         self.opened = tuple(opened)
+        #: the open operations by index.
+        self.open_at = {o.index: o for o in opened}
         self.function = _generate(tape, inputs, list(slot_of))
         open_indices = {o.index for o in opened}
         self.lines = [
             "" if index in open_indices else self.writer.line(op) for index, op in enumerate(ops)
         ]
 
-    def bind(
-        self,
-        numbers: Sequence[float],
-        source_hash: str | None = None,
-        source_name: str | None = None,
-    ) -> Circuit:
-        """The circuit bound with ``numbers`` (the symbolic inputs' values, in order)."""
+    def rounded(self, numbers: Sequence[float]) -> list[float]:
+        """The values of the parameter slots for ``numbers`` (the symbolic inputs'
+        values, in order), each rounded as the canonical form rounds parameters."""
         try:
             values, check = self.function(*numbers)
         except (ArithmeticError, ValueError) as exc:
             raise Unbindable from exc
         if not -math.inf < check < math.inf:
             raise Unbindable
-        rounded = [round_param(v) for v in values]
+        return [round_param(v) for v in values]
+
+    def params(self, o: Open, rounded: Sequence[float]) -> tuple[float, ...]:
+        """The parameters of the open operation ``o`` given the slots' values."""
+        if o.single is not None:
+            return (rounded[o.single],)
+        constant = o.op.params
+        return tuple(
+            [constant[k] if slot is None else rounded[slot] for k, slot in enumerate(o.slots)]
+        )
+
+    def bind(
+        self,
+        rounded: Sequence[float],
+        source_hash: str | None = None,
+        source_name: str | None = None,
+    ) -> Circuit:
+        """The circuit whose parameter slots hold ``rounded``."""
         ops = list(self.circuit.operations)
         for o in self.opened:
             op = o.op
-            if o.single is not None:
-                params: tuple[float, ...] = (rounded[o.single],)
-            else:
-                params = tuple(
-                    [
-                        op.params[k] if slot is None else rounded[slot]
-                        for k, slot in enumerate(o.slots)
-                    ]
-                )
+            params = self.params(o, rounded)
             ops[o.index] = Operation(op.name, op.qubits, params, op.clbits, op.condition)
         return Circuit(
             num_qubits=self.circuit.num_qubits,
@@ -133,14 +140,17 @@ class Shape:
             source_name=source_name,
         )
 
-    def text(self, circuit: Circuit) -> str:
-        """The canonical text of a circuit this shape bound (equal to
-        :func:`~jobkeeper.circuit.canonical.canonical_text`): only the open operations'
-        lines are written anew."""
+    def text(self, rounded: Sequence[float]) -> str:
+        """The canonical text of the circuit whose slots hold ``rounded`` (equal to
+        :func:`~jobkeeper.circuit.canonical.canonical_text` of :meth:`bind`'s circuit):
+        each slot written once, only the open operations' lines anew."""
+        written = [format_rounded(v) for v in rounded]
         lines = list(self.lines)
-        ops = circuit.operations
         for o in self.opened:
-            params = ",".join([format_rounded(p) for p in ops[o.index].params])
+            params = ",".join(
+                [format_rounded(o.op.params[k]) if slot is None else written[slot]
+                 for k, slot in enumerate(o.slots)]
+            )  # fmt: skip
             lines[o.index] = f"{o.head}({params}){o.tail}"
         return "\n".join((*self.writer.header, *lines)) + "\n"
 

@@ -16,7 +16,7 @@ from numbers import Real
 from jobkeeper.circuit.canonical import canonical_text
 from jobkeeper.circuit.ir import Circuit
 from jobkeeper.circuit.qasm3 import nodes as n
-from jobkeeper.circuit.qasm3.compiled import CompiledTemplate, Unbindable
+from jobkeeper.circuit.qasm3.compiled import CompiledTemplate, Shape, Unbindable
 from jobkeeper.circuit.qasm3.interpret import Interpreter
 from jobkeeper.circuit.qasm3.syntax import parse_program
 from jobkeeper.exceptions import CircuitError
@@ -111,13 +111,29 @@ class Template:
         self._check(values)
         if self.fixed is not None:
             return BoundPoint(self.fixed, canonical_text(self.fixed) if text else "", 0)
-        try:
-            shape = self._compiled.shape(values)
-            circuit = shape.bind(self._compiled.numbers(values), self.source_hash, self.filename)
-        except Unbindable:
+        traced = self._traced(values)
+        if traced is None:
             circuit = self._interpret(values)
             return BoundPoint(circuit, canonical_text(circuit) if text else "", None)
-        return BoundPoint(circuit, shape.text(circuit) if text else "", shape.number)
+        shape, rounded = traced
+        circuit = shape.bind(rounded, self.source_hash, self.filename)
+        return BoundPoint(circuit, shape.text(rounded) if text else "", shape.number)
+
+    def traced(self, values: Mapping[str, float]) -> tuple[Shape, list[float]] | None:
+        """The traced shape of this point and the values of its parameter slots (the
+        parameters as the canonical form rounds them), for who needs no Circuit (a
+        batch simulates from the slots); None when the interpreter must bind it
+        (:meth:`bind` then does). CircuitError as :meth:`bind` for bad values."""
+        values = dict(values)
+        self._check(values)
+        return None if self.fixed is not None else self._traced(values)
+
+    def _traced(self, values: dict[str, float]) -> tuple[Shape, list[float]] | None:
+        try:
+            shape = self._compiled.shape(values)
+            return shape, shape.rounded(self._compiled.numbers(values))
+        except Unbindable:
+            return None
 
     def _check(self, values: Mapping[str, float]) -> None:
         unknown = sorted(set(values) - set(self.inputs))
