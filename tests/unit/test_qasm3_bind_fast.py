@@ -49,24 +49,26 @@ _ONE_PARAM = ["rx", "ry", "rz", "p", "phase", "u1"]
 _TWO_QUBIT_PARAM = ["crx", "cry", "crz", "cp", "cphase"]
 
 
+#: statement forms: {g1}/{g2} a one-/two-qubit gate taking one angle, {e}/{f} angle
+#: expressions, {a}/{b} two distinct qubits.
+_FORMS = (
+    "{g1}({e}) q[{a}];",
+    "{g2}({e}) q[{a}], q[{b}];",
+    "U({e}, {f}, 0.25) q[{a}];",
+    "inv @ u3({e}, 0.5, {f}) q[{a}];",
+    "ctrl @ rz({e}) q[{a}], q[{b}];",
+    "g({e}) q[{a}], q[{b}];",
+    "for int i in [0:1] {{ rx({e} * i) q[{a}]; }}",
+)
+
+
 @st.composite
 def _statement(draw: st.DrawFn) -> str:
-    kind = draw(st.integers(0, 6))
     a, b = draw(st.lists(st.integers(0, 2), min_size=2, max_size=2, unique=True))
-    e = draw(_expression())
-    if kind == 0:
-        return f"{draw(st.sampled_from(_ONE_PARAM))}({e}) q[{a}];"
-    if kind == 1:
-        return f"{draw(st.sampled_from(_TWO_QUBIT_PARAM))}({e}) q[{a}], q[{b}];"
-    if kind == 2:
-        return f"U({e}, {draw(_expression(1))}, 0.25) q[{a}];"
-    if kind == 3:
-        return f"inv @ u3({e}, 0.5, {draw(_expression(1))}) q[{a}];"
-    if kind == 4:
-        return f"ctrl @ rz({e}) q[{a}], q[{b}];"
-    if kind == 5:
-        return f"g({e}) q[{a}], q[{b}];"
-    return f"for int i in [0:1] {{ rx({e} * i) q[{a}]; }}"
+    return draw(st.sampled_from(_FORMS)).format(
+        g1=draw(st.sampled_from(_ONE_PARAM)), g2=draw(st.sampled_from(_TWO_QUBIT_PARAM)),
+        e=draw(_expression()), f=draw(_expression(1)), a=a, b=b,
+    )  # fmt: skip
 
 
 _GATE = "gate g(t) x, y { ry(t / 2) x; cx x, y; rz(-t) y; }\n"
