@@ -159,3 +159,14 @@ def test_the_interpreter_and_the_trace_refuse_alike() -> None:
     template = Template(H3 + "input float a;\nint k = a;\nqubit q;\nrx(k) q;\n")
     with pytest.raises(CircuitError, match="use a cast"):
         template.bind({"a": 1.5})
+
+
+def test_a_template_pickles_and_traces_again() -> None:
+    # A worker may hand a batch to another process: the template goes with it.
+    import pickle
+
+    template = Template(_program(["rx(theta) q[0];"]))
+    values = {"theta": 0.5, "phi": 0.25}
+    before = template.bind(values)
+    copy = pickle.loads(pickle.dumps(template))
+    assert copy.bind(values) == before

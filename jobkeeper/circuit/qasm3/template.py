@@ -80,6 +80,17 @@ class Template:
         }
         self._compiled = CompiledTemplate(self.program, self.inputs, filename)
 
+    def __getstate__(self) -> dict[str, object]:
+        # The traces hold generated functions, which do not pickle: a copy (a worker
+        # process's) traces again when it first binds.
+        state = dict(self.__dict__)
+        state["_compiled"] = None
+        return state
+
+    def __setstate__(self, state: dict[str, object]) -> None:
+        self.__dict__.update(state)
+        self._compiled = CompiledTemplate(self.program, self.inputs, self.filename)
+
     def bind(self, values: Mapping[str, float] | None = None) -> Circuit:
         """The circuit with each input set to ``values[name]``. CircuitError (exit 2)
         naming them for inputs without a value, values for names that are no input, and
