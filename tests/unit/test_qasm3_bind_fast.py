@@ -170,3 +170,12 @@ def test_a_template_pickles_and_traces_again() -> None:
     before = template.bind(values)
     copy = pickle.loads(pickle.dumps(template))
     assert copy.bind(values) == before
+
+
+def test_deep_expressions_trace_in_linear_time() -> None:
+    # Each level is evaluated once (re-evaluating an operand per level would take 2^40).
+    negated = "-" * 40 + "theta"
+    nested = "sin(" * 40 + "theta" + ")" * 40
+    template = Template(_program([f"rx({negated}) q[0];", f"ry({nested}) q[1];"]))
+    _same(template, {"theta": 0.3, "phi": 0.0})
+    assert template.bind_many([{"theta": 0.3, "phi": 0.0}])[0].shape == 0

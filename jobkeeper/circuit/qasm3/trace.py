@@ -137,10 +137,9 @@ class TracingEvaluator(Evaluator):
         sym = x if isinstance(x, Sym) else y
         return cast(Value, sym._binary(tok.text, y if sym is x else x, swapped=sym is not x))
 
-    def unary(self, expr: n.Unary) -> Value:
-        v = self.eval(expr.operand)
+    def unary_of(self, expr: n.Unary, v: Value) -> Value:
         if not isinstance(v, Sym):
-            return super().unary(expr)
+            return super().unary_of(expr, v)
         if expr.op != "-":
             raise NeedsValue(expr.op)
         return cast(Value, -v)
@@ -159,11 +158,10 @@ class TracingEvaluator(Evaluator):
             raise NeedsValue(spec.name)
         return v
 
-    def call(self, expr: n.Call) -> Value:
+    def call_of(self, expr: n.Call, args: list[Value]) -> Value:
         name = expr.tok.text
-        args = [self.eval(a) for a in expr.args]
         if not _has_sym(*args):
-            return super().call(expr)
+            return super().call_of(expr, args)
         if name == "mod" and len(args) == 2:
             return self.binary(expr.tok._replace(text="%"), args[0], args[1])
         if name not in _FUNCTIONS or len(args) != 1:

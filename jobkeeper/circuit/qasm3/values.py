@@ -132,7 +132,10 @@ class Evaluator:
         return x
 
     def unary(self, expr: n.Unary) -> Value:
-        v = self.eval(expr.operand)
+        return self.unary_of(expr, self.eval(expr.operand))
+
+    def unary_of(self, expr: n.Unary, v: Value) -> Value:
+        """``expr``'s operator applied to its operand's value ``v``."""
         if expr.op == "!":
             return not truthy(v)
         if expr.op == "~":
@@ -247,8 +250,11 @@ class Evaluator:
         self.fail("a negative value cannot be a uint without a width", tok)
 
     def call(self, expr: n.Call) -> Value:
+        return self.call_of(expr, [self.eval(a) for a in expr.args])
+
+    def call_of(self, expr: n.Call, args: list[Value]) -> Value:
+        """The built-in function ``expr`` names, on its arguments' values ``args``."""
         name = expr.tok.text
-        args = [self.eval(a) for a in expr.args]
         if name in _FUNCTIONS or name in ("ceiling", "floor", "popcount"):
             if len(args) != 1:
                 self.fail(f"{name} takes one argument, {len(args)} given", expr.tok)
