@@ -11,6 +11,7 @@
     │   └── PermanentBackendError fail now, with the reason (4xx, unsupported circuit, ...)
     ├── StoreError
     │   ├── StoreUnavailable      the database could not be reached or opened
+    │   │   └── StoreFault        its disk refuses: full, read-only, I/O error, damaged file
     │   ├── JobNotFound           no job matches an id or prefix
     │   ├── AmbiguousJobId        a prefix matches several jobs
     │   └── LeaseLost             a worker's lease was taken over; it must stop
@@ -103,6 +104,15 @@ class StoreError(JobkeeperError):
 
 class StoreUnavailable(StoreError):
     """The database could not be opened or reached."""
+
+    exit_code = 3
+
+
+class StoreFault(StoreUnavailable):
+    """The archive's disk or file refuses the work: the disk is full, the file system is
+    read-only, an I/O error, a damaged database file. Waiting does not help; whoever meets
+    it stops at once (exit 3) and marks no job failed for it: a job in hand is left to its
+    lease and taken up again once the fault is mended."""
 
     exit_code = 3
 

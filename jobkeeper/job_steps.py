@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import asyncio
 import contextlib
+import errno
 import logging
 import time
 from collections.abc import Callable, Sequence
@@ -23,6 +24,7 @@ from jobkeeper.exceptions import (
     JobkeeperError,
     LeaseLost,
     PermanentBackendError,
+    StoreFault,
     StoreUnavailable,
     TransientBackendError,
 )
@@ -61,6 +63,19 @@ class Held:
     tried_in_call: bool = False
 
 
+#: OSError numbers that say the disk, not the job, is at fault: full (ENOSPC, EDQUOT),
+#: read-only (EROFS), an I/O error (EIO).
+_DISK_ERRNOS = frozenset({errno.ENOSPC, errno.EDQUOT, errno.EROFS, errno.EIO})
+
+
+def disk_fault(exc: BaseException) -> StoreFault | None:
+    """A StoreFault for an OSError of the machine's disk met while running a job (where a
+    simulator or the sealer writes a file); None for anything else."""
+    if isinstance(exc, OSError) and exc.errno in _DISK_ERRNOS:
+        return StoreFault(f"the disk refused a write: {exc}; no job was marked failed for it")
+    return None
+
+
 class JobSteps:
     """What the worker does with one claimed job (see the module's docstring)."""
 
@@ -77,6 +92,7 @@ class JobSteps:
     _wake: asyncio.Event
     resolve_backend: Callable[[str], Backend]
     _db: ThreadPoolExecutor
+    note_fault: Callable[[StoreFault], None]
     _backends: dict[str, Backend]
     _local: dict[str, bool]
 
@@ -115,6 +131,10 @@ class JobSteps:
                 await self._start(held, backend)
         except LeaseLost:
             self.stats.lost_leases += 1
+        except StoreFault as exc:
+            # The archive's disk refuses (full, read-only, I/O error): the whole worker
+            # stops; this job is left to its lease like any other in hand.
+            self.note_fault(exc)
         except StoreUnavailable as exc:
             # The archive is out of reach: leave the job as it is. Its lease lapses and it
             # is taken up again (a device sees the same client key); failing it would
@@ -134,6 +154,10 @@ class JobSteps:
             self._local_runs.drop_broken_pool()
             await self._retry(held, exc, None)
         except Exception as exc:  # a bug in a backend must fail its job, not the worker
+            fault = disk_fault(exc)
+            if fault is not None:  # the machine's disk, not the job, is at fault
+                self.note_fault(fault)
+                return
             log.exception("job %s: unexpected error", job.id)
             await self._fail(held, exc)
         finally:
@@ -222,6 +246,9 @@ class JobSteps:
         except LeaseLost:
             self.stats.lost_leases += 1
             return
+        except StoreUnavailable as exc:
+            self._unrecorded(held, exc)
+            return
         if state == JobState.FAILED:
             self.stats.failed += 1
         else:
@@ -237,3 +264,16 @@ class JobSteps:
             self.stats.failed += 1
         except LeaseLost:
             self.stats.lost_leases += 1
+        except StoreUnavailable as exc:
+            self._unrecorded(held, exc)
+
+    def _unrecorded(self, held: Held, exc: StoreUnavailable) -> None:
+        """A retry or failure the archive could not record: the job stays as it was, left
+        to its lease; a fault of the disk stops the worker."""
+        if isinstance(exc, StoreFault):
+            self.note_fault(exc)
+        else:
+            log.warning(
+                "job %s: archive unreachable, left to its lease: %s", held.claim.job.id, exc
+            )
+            self.stats.errors.append(str(exc))

@@ -10,6 +10,9 @@ time, and a busy database must not stall heartbeats). Finished jobs are archived
 batches (:mod:`jobkeeper.group_commit`); local simulations are run by
 :class:`jobkeeper._execution.LocalRunner`.
 
+A store fault (the archive's disk full or read-only, an I/O error, a damaged file) stops
+the worker at once with that error; no job is marked failed for it (see ``note_fault``).
+
 Shutdown: the first SIGTERM/SIGINT stops claiming, lets running work finish for a grace
 period, gives back what is left and exits 0. SIGKILL at any instant loses nothing: leases
 expire and the next worker picks the jobs up; a device sees the same client key again.
@@ -31,7 +34,7 @@ from jobkeeper._execution import LocalRunner, run_coroutine
 from jobkeeper.audit.sealing import Sealer
 from jobkeeper.backend import Backend
 from jobkeeper.batch_steps import BatchSteps
-from jobkeeper.exceptions import JobkeeperError, StoreUnavailable
+from jobkeeper.exceptions import JobkeeperError, StoreFault, StoreUnavailable
 from jobkeeper.group_commit import GroupCommit
 from jobkeeper.job_steps import Held, WorkerStats
 from jobkeeper.queue import (
@@ -129,6 +132,7 @@ class Worker(BatchSteps):
         self._local_runs = LocalRunner(slots, local_executor)
         self._group = GroupCommit(self._commit, lambda: len(self._held))
         self._stopping = asyncio.Event()
+        self._fault: StoreFault | None = None
         self._wake = asyncio.Event()
         self._backends: dict[str, Backend] = {}
         self._local: dict[str, bool] = {}
@@ -171,6 +175,9 @@ class Worker(BatchSteps):
                     claimed = await self._claim_more()
                     drained = once and not claimed and not self._held and await self._drained()
                     unreachable_since = None
+                except StoreFault as exc:
+                    self.note_fault(exc)
+                    break
                 except StoreUnavailable as exc:
                     # A database restart or a network blip: wait and try again, for a while.
                     unreachable_since = unreachable_since or now
@@ -193,7 +200,18 @@ class Worker(BatchSteps):
             if install_signals:
                 for sig in (signal.SIGTERM, signal.SIGINT):
                     loop.remove_signal_handler(sig)
+        if self._fault is not None:
+            raise self._fault
         return self.stats
+
+    def note_fault(self, exc: StoreFault) -> None:
+        """The archive's disk or file refuses the work (full, read-only, I/O error): stop
+        at once and end with this error (exit 3). Jobs in hand are left to their leases,
+        none is marked failed: the next worker takes them up once the fault is mended."""
+        if self._fault is None:
+            log.debug("stopping: %s", exc)
+            self._fault = exc
+        self.request_stop()
 
     def _on_signal(self) -> None:
         if self._stopping.is_set():
@@ -261,7 +279,9 @@ class Worker(BatchSteps):
         pending = [h.task for h in self._held.values() if h.task is not None]
         pending += list(self._batches)
         if pending:
-            _, still = await asyncio.wait(pending, timeout=self.grace)
+            # After a store fault nothing more can be archived: stop now, not after grace.
+            grace = 0.0 if self._fault is not None else self.grace
+            _, still = await asyncio.wait(pending, timeout=grace)
             for task in still:
                 task.cancel()
             if still:

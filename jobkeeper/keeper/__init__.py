@@ -80,9 +80,12 @@ class Keeper(KeepSweeps, KeepProof):
             refuse_lost_archive(keep, location)
         the_store = open_store(location, create=create)
         keeper = cls(path=keep, store=the_store, config=config, keyring=keyring)
-        if keyring.exists():
+        # A read-only keep (a read-only mount, another user's keep) serves every read;
+        # what the archive lacks it cannot be given here, and a write says so (StoreFault).
+        writable = not getattr(the_store, "read_only", False)
+        if keyring.exists() and writable:
             keeper._register_keys()
-        if the_store.get_meta("origin") is None:
+        if writable and the_store.get_meta("origin") is None:
             the_store.ensure_meta("origin", f"jobkeeper/{uuid.uuid4().hex[:16]}")
         return keeper
 

@@ -13,17 +13,21 @@ retry ourselves with small random sleeps, so waiting writers get their turn at r
 from __future__ import annotations
 
 import contextlib
-import random
 import sqlite3
 import threading
-import time
-from collections.abc import Callable, Iterator, Sequence
+from collections.abc import Iterator, Sequence
 from contextlib import contextmanager
 from functools import partial
 from pathlib import Path
-from typing import Any, TypeVar
+from typing import Any
 
-from jobkeeper.exceptions import ConfigError, LeaseLost, StoreError, StoreUnavailable
+from jobkeeper.exceptions import (
+    ConfigError,
+    LeaseLost,
+    StoreError,
+    StoreFault,
+    StoreUnavailable,
+)
 from jobkeeper.queue import JobState
 from jobkeeper.store import (
     BatchIncomplete,
@@ -40,15 +44,19 @@ from jobkeeper.store import (
     sql,
 )
 from jobkeeper.store.reads import StoreReads, claim_filter, claims_of, record_of
+from jobkeeper.store.sqlite_edge import (
+    connect_read_only,
+    disk_refused,
+    full_disk_shm,
+    map_errors,
+    patiently,
+    refuse_emptied,
+    writable,
+)
 from jobkeeper.store.sqlite_schema import check_migrated, sqlite_dialect
 from jobkeeper.store.sweep_records import NewSweep, point_rows, sweep_row
 
-T = TypeVar("T")
 NOW = sql.SQLITE_NOW
-BUSY_DEADLINE_SECONDS = 60.0
-#: SQLite's primary result codes for "another connection holds the lock" (extended codes
-#: such as SQLITE_BUSY_SNAPSHOT carry the primary code in their low byte).
-_BUSY_CODES = frozenset({sqlite3.SQLITE_BUSY, sqlite3.SQLITE_LOCKED})
 
 
 def _q(statement: str, **extra: str) -> str:
@@ -67,64 +75,8 @@ _INSERT_TRY_IN_CALL = _q(sql.INSERT_TRY_IN_CALL)
 _INSERT_SWEEP = _q(sql.INSERT_SWEEP)
 
 
-def is_busy(exc: sqlite3.Error) -> bool:
-    """Whether ``exc`` says the database is locked by another connection (worth waiting
-    for), read from SQLite's result code rather than the wording of its message."""
-    code = getattr(exc, "sqlite_errorcode", None)
-    return isinstance(code, int) and (code & 0xFF) in _BUSY_CODES
-
-
-def patiently(step: Callable[[], T], *, what: str) -> T:
-    """Run ``step``, again after a short random sleep while SQLite reports the database
-    busy, for up to :data:`BUSY_DEADLINE_SECONDS`. The random sleeps are the fairness rule
-    of the module docstring. A busy database past the deadline is StoreUnavailable."""
-    deadline = time.monotonic() + BUSY_DEADLINE_SECONDS
-    while True:
-        try:
-            return step()
-        except sqlite3.Error as exc:
-            if not is_busy(exc):
-                raise
-            if time.monotonic() > deadline:
-                raise StoreUnavailable(
-                    f"{what} stayed locked for {BUSY_DEADLINE_SECONDS:.0f} s"
-                ) from exc
-        time.sleep(random.uniform(0.0005, 0.004))
-
-
-@contextmanager
-def map_errors(what: str) -> Iterator[None]:
-    """The store's edge: a ``sqlite3`` error raised inside becomes one of ours. A database
-    that cannot be opened, read or written (locked, missing, full, not a database) is
-    StoreUnavailable (exit 3); anything else the driver refuses is a StoreError."""
-    try:
-        yield
-    except sqlite3.OperationalError as exc:
-        raise StoreUnavailable(f"{what}: {exc}") from exc
-    except sqlite3.Error as exc:
-        if type(exc) is sqlite3.DatabaseError:  # not a database file, or a damaged one
-            raise StoreUnavailable(f"{what}: {exc}") from exc
-        raise StoreError(f"{what}: {exc}") from exc
-
-
 def _in_list(column: str, values: Sequence[str]) -> tuple[str, list[Any]]:
     return f"{column} IN ({', '.join('?' for _ in values)})", list(values)
-
-
-def _refuse_emptied(path: Path) -> None:
-    """An archive file that exists but holds nothing (truncated to zero, or a crash in the
-    instant between creating it and writing its first page) is never started afresh: a
-    new archive over it would hide that everything it held is gone."""
-    try:
-        empty = path.is_file() and path.stat().st_size == 0
-    except OSError:
-        return  # opening it says what is wrong
-    if empty:
-        raise StoreUnavailable(
-            f"the archive at {path} is an empty file (0 bytes): what it held is gone; restore "
-            "it from a backup (jobkeeper will not start a new archive over it; move the file "
-            "away to start afresh)"
-        )
 
 
 class SqliteStore(StoreReads):
@@ -139,20 +91,51 @@ class SqliteStore(StoreReads):
         self._where = f"the archive at {self.path}"
         if not self.path.exists() and not create:
             raise StoreUnavailable(f"no archive at {self.path} (run 'jobkeeper init' first)")
-        _refuse_emptied(self.path)
+        refuse_emptied(self.path)
+        #: Opened for reading only: the file or its directory cannot be written here (a
+        #: read-only mount, a keep another user owns). Every read works; a write is a
+        #: StoreFault that says so.
+        self.read_only = self.path.exists() and not writable(self.path)
+        self._refusal = (
+            f"cannot write {self._where}: it is read-only here (it can be read: jobs, show, "
+            "counts, verify, bundle, export); no job was marked failed for it"
+        )
+        if not self.read_only:
+            try:
+                self.path.parent.mkdir(parents=True, exist_ok=True)
+            except OSError as exc:
+                raise StoreUnavailable(f"cannot open the archive at {self.path}: {exc}") from exc
+        self._lock = threading.RLock()
         try:
-            self.path.parent.mkdir(parents=True, exist_ok=True)
-        except OSError as exc:
-            raise StoreUnavailable(f"cannot open the archive at {self.path}: {exc}") from exc
-        with map_errors(f"cannot open the archive at {self.path}"):
+            self._conn = self._connect()
+            self._migrate()
+        except StoreFault as fault:
+            if self.read_only or not self.path.exists() or not disk_refused(fault):
+                raise
+            try:
+                self._only_read(fault)
+                self._migrate()
+            except StoreError:
+                raise fault from None
+
+    def _only_read(self, fault: StoreFault) -> None:
+        """A disk too full (or failing) to open the archive for writing may still let it
+        be read: from now on reads are served read-only, and every write meets ``fault``."""
+        with contextlib.suppress(AttributeError, sqlite3.Error):
+            self._conn.close()
+        self.read_only, self._refusal = True, str(fault)
+        self._conn = self._connect()
+
+    def _connect(self) -> sqlite3.Connection:
+        with map_errors(f"cannot open the archive at {self.path}", self.path.parent):
+            if self.read_only:
+                return connect_read_only(self.path)
             conn = sqlite3.connect(
                 self.path, timeout=0.05, isolation_level=None, check_same_thread=False
             )
             for pragma in sql.SQLITE_OPEN:
                 patiently(partial(conn.execute, pragma), what=self._where)
-        self._conn = conn
-        self._lock = threading.RLock()
-        self._migrate()
+            return conn
 
     # -- plumbing -----------------------------------------------------------------------
 
@@ -165,8 +148,10 @@ class SqliteStore(StoreReads):
         ``durable=False`` skips the sync at commit, for writes whose loss on power failure
         only sends a job back to the queue (claims, lease renewals, rescues). In WAL mode
         the next synced commit syncs every earlier frame too, so nothing is reordered."""
-        conn = self._conn
-        with self._lock, map_errors(f"archive error at {self.path}"):
+        with self._lock, map_errors(f"cannot write {self._where}", self.path.parent):
+            if self.read_only:
+                raise StoreFault(self._refusal)
+            conn = self._conn
             if not durable:
                 conn.execute(sql.SQLITE_SYNC_NORMAL)
             try:
@@ -175,22 +160,50 @@ class SqliteStore(StoreReads):
                     yield conn
                     patiently(lambda: conn.execute(sql.SQLITE_COMMIT), what=self._where)
                 except BaseException:
-                    if conn.in_transaction:
-                        conn.execute(sql.SQLITE_ROLLBACK)
+                    self._undo(conn)
                     raise
             finally:
-                if not durable:
+                if not durable and self._conn is conn:
                     conn.execute(sql.SQLITE_SYNC_FULL)
 
+    def _undo(self, conn: sqlite3.Connection) -> None:
+        """Roll back what a failed write began. SQLite may have rolled it back itself (a
+        full disk or an I/O error can end the transaction: sqlite.org/lang_transaction.html),
+        so only a transaction still open is rolled back; and a rollback that fails too must
+        neither hide the first error nor leave a half-open transaction behind for the next
+        write: the connection is then closed (which rolls back) and opened afresh."""
+        if not conn.in_transaction:
+            return
+        try:
+            conn.execute(sql.SQLITE_ROLLBACK)
+        except sqlite3.Error:
+            with contextlib.suppress(sqlite3.Error):
+                conn.close()
+            with contextlib.suppress(StoreError):
+                self._conn = self._connect()
+
     def _read(self, statement: str, params: Sequence[Any] = (), **extra: str) -> list[Any]:
+        try:
+            return self._read_once(statement, params, **extra)
+        except StoreFault as fault:
+            if self.read_only or not full_disk_shm(fault, self.path.parent):
+                raise
+            with self._lock:
+                self._only_read(fault)
+            return self._read_once(statement, params, **extra)
+
+    def _read_once(self, statement: str, params: Sequence[Any], **extra: str) -> list[Any]:
         text = _q(statement, **extra)
-        with self._lock, map_errors(f"archive error at {self.path}"):
+        with self._lock, map_errors(f"archive error at {self.path}", self.path.parent):
             rows: list[Any] = patiently(
                 lambda: self._conn.execute(text, params).fetchall(), what=self._where
             )
             return rows
 
     def _migrate(self) -> None:
+        if self.read_only:
+            self._check_version()
+            return
         with self._write() as conn:
             conn.execute(sql.CREATE_META)
             row = conn.execute(sql.GET_META, ("schema_version",)).fetchone()
@@ -208,6 +221,16 @@ class SqliteStore(StoreReads):
             if version > 0:  # an archive that held rows: check what the steps made of it
                 check_migrated(conn, where=str(self.path), found=version)
             conn.execute(sql.SET_META, ("schema_version", str(sql.SCHEMA_VERSION)))
+
+    def _check_version(self) -> None:
+        """A read-only archive cannot be migrated: it is read as it is, if it is current."""
+        rows = self._read(sql.GET_META, ("schema_version",))
+        version = int(rows[0][0]) if rows else 0
+        if version != sql.SCHEMA_VERSION:
+            raise StoreFault(
+                f"{self._where} is read-only here and has schema version {version}, but this "
+                f"jobkeeper reads {sql.SCHEMA_VERSION}: open it once where it can be written"
+            )
 
     # -- queue ----------------------------------------------------------------------------
 
@@ -443,7 +466,7 @@ class SqliteStore(StoreReads):
         return str(row[0])
 
     def close(self) -> None:
-        with self._lock, map_errors(f"cannot close the archive at {self.path}"):
+        with self._lock, map_errors(f"cannot close the archive at {self.path}", self.path.parent):
             self._conn.close()
 
     def __enter__(self) -> SqliteStore:

@@ -109,6 +109,7 @@ def test_sqlite_waits_on_the_busy_code_not_on_the_message(
     tmp_path: Path, monkeypatch: pytest.MonkeyPatch
 ) -> None:
     from jobkeeper.store import sqlite as sqlite_store
+    from jobkeeper.store import sqlite_edge
 
     path = tmp_path / "archive.db"
     with sqlite_store.SqliteStore(path) as the_store:
@@ -119,11 +120,11 @@ def test_sqlite_waits_on_the_busy_code_not_on_the_message(
             with pytest.raises(sqlite3.OperationalError) as real:
                 other.execute("BEGIN IMMEDIATE")
             # SQLite's C API result code (sqlite.org/rescode.html): SQLITE_BUSY is 5.
-            assert real.value.sqlite_errorcode == 5 and sqlite_store.is_busy(real.value)
+            assert real.value.sqlite_errorcode == 5 and sqlite_edge.is_busy(real.value)
             other.close()
             # A message that merely mentions a lock carries no code: not waited on.
-            assert not sqlite_store.is_busy(sqlite3.OperationalError("database is locked"))
-            monkeypatch.setattr(sqlite_store, "BUSY_DEADLINE_SECONDS", 0.2)
+            assert not sqlite_edge.is_busy(sqlite3.OperationalError("database is locked"))
+            monkeypatch.setattr(sqlite_edge, "BUSY_DEADLINE_SECONDS", 0.2)
             started = time.monotonic()
             with pytest.raises(StoreUnavailable, match="stayed locked"):
                 the_store.enqueue([new_job()])
