@@ -10,6 +10,13 @@ from __future__ import annotations
 
 import asyncio
 import concurrent.futures
+import ctypes
+import multiprocessing
+import os
+import signal
+import sys
+import threading
+import time
 from collections.abc import Coroutine
 from concurrent.futures import Executor, ProcessPoolExecutor, ThreadPoolExecutor
 from typing import Any, Literal, TypeVar
@@ -54,13 +61,51 @@ def run_coroutine(coro: Coroutine[Any, Any, T]) -> T:
         return pool.submit(asyncio.run, coro).result()
 
 
-def one_blas_thread() -> None:
-    """Process-pool initializer: one BLAS thread per worker process. The pool already runs
+def pool_process_setup(parent: int) -> None:
+    """Process-pool initializer. The process ends with its parent (:func:`die_with_parent`)
+    and takes the default action on SIGTERM (a forked child inherits the worker's
+    handler, which only wakes the worker's event loop: the child would ignore SIGTERM);
+    Ctrl-C is the worker's to handle. One BLAS thread per process: the pool already runs
     one simulation per core; BLAS threads on top of that fight for the same cores (small
     matrix products were measured 5-20x slower so on a busy 2-core machine)."""
+    signal.set_wakeup_fd(-1)
+    signal.signal(signal.SIGTERM, signal.SIG_DFL)
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    die_with_parent(parent)
     from threadpoolctl import threadpool_limits
 
     threadpool_limits(limits=1, user_api="blas")
+
+
+#: prctl(2) option: the signal this process gets when its parent dies (linux/prctl.h).
+PR_SET_PDEATHSIG = 1
+#: How often a process without that option looks whether its parent is still there.
+PARENT_WATCH_SECONDS = 0.5
+
+
+def die_with_parent(parent: int) -> None:
+    """End this process when ``parent`` dies, however it dies (SIGKILL included): a pool
+    process left behind would hold the archive open and use memory for nothing. On Linux
+    the kernel sends SIGKILL when the parent ends (prctl PR_SET_PDEATHSIG); elsewhere a
+    daemon thread sees the parent's id change (the process is handed to another parent)
+    and exits. A parent already gone by now is caught by the same check."""
+    armed = False
+    if sys.platform.startswith("linux"):
+        try:
+            libc = ctypes.CDLL(None, use_errno=True)
+            armed = libc.prctl(PR_SET_PDEATHSIG, signal.SIGKILL, 0, 0, 0) == 0
+        except (OSError, AttributeError):
+            armed = False
+    if os.getppid() != parent:
+        os._exit(1)
+    if not armed:
+        threading.Thread(target=_watch_parent, args=(parent,), daemon=True).start()
+
+
+def _watch_parent(parent: int) -> None:
+    while os.getppid() == parent:
+        time.sleep(PARENT_WATCH_SECONDS)
+    os._exit(1)
 
 
 def run_local(backend: LocalBackend, task: Task) -> Result:
@@ -107,7 +152,16 @@ class LocalRunner:
                 self._threads = ThreadPoolExecutor(max_workers=self.slots)
             return self._threads
         if self._pool is None:
-            self._pool = ProcessPoolExecutor(max_workers=self.slots, initializer=one_blas_thread)
+            # The start method is chosen, not left to the Python version's default: a pool
+            # process's parent must be this process for die_with_parent (a fork server in
+            # between would be the parent instead). Fork where it is safe (Linux).
+            method = "fork" if sys.platform.startswith("linux") else "spawn"
+            self._pool = ProcessPoolExecutor(
+                max_workers=self.slots,
+                mp_context=multiprocessing.get_context(method),
+                initializer=pool_process_setup,
+                initargs=(os.getpid(),),
+            )
         return self._pool
 
     def drop_broken_pool(self) -> None:
