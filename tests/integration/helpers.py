@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import os
+import signal
 import subprocess
 import sys
 import time
@@ -54,6 +55,17 @@ def start_worker(
             jobkeeper_cmd("worker", "--keep", str(keep), *args),
             stdout=subprocess.PIPE, stderr=err, cwd=REPO, env={**os.environ},
         )  # fmt: skip
+
+
+def sigkill(worker: subprocess.Popen[bytes]) -> bool:
+    """SIGKILL a worker that is still running and reap it; False if it had ended."""
+    if worker.poll() is not None:
+        return False
+    worker.send_signal(signal.SIGKILL)
+    worker.wait(timeout=30)
+    if worker.stdout is not None:
+        worker.stdout.close()
+    return True
 
 
 def wait_for(predicate, timeout: float, interval: float = 0.05) -> bool:

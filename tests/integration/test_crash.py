@@ -7,7 +7,6 @@ practice.)"""
 from __future__ import annotations
 
 import random
-import signal
 import sqlite3
 import subprocess
 import time
@@ -20,6 +19,7 @@ from jobkeeper.testing import executions, starts
 from tests.integration.helpers import (
     circuit_text,
     jobkeeper_cmd,
+    sigkill,
     start_worker,
     write_recording_keep,
 )
@@ -45,12 +45,8 @@ def test_sigkill_at_random_moments_loses_nothing_and_runs_nothing_twice(tmp_path
     for _ in range(KILLS):
         worker = start_worker(keep, "--in-flight", "8", *FAST_LEASE, stderr_path=log)
         time.sleep(rng.uniform(0.8, 2.0))  # start-up takes most of a second
-        if worker.poll() is not None:
+        if not sigkill(worker):
             break  # it drained everything before the kill
-        worker.send_signal(signal.SIGKILL)
-        worker.wait(timeout=30)
-        if worker.stdout is not None:
-            worker.stdout.close()
         kills += 1
     final = subprocess.run(
         jobkeeper_cmd("worker", "--once", "--keep", str(keep), *FAST_LEASE),

@@ -12,12 +12,13 @@ import random
 import signal
 import subprocess
 import time
+from functools import partial
 from pathlib import Path
 
 import pytest
 
 from jobkeeper import Keeper
-from tests.integration.helpers import jobkeeper_cmd, start_worker, wait_for
+from tests.integration.helpers import jobkeeper_cmd, sigkill, start_worker, wait_for
 
 JOBS = 40
 KILLS = 10
@@ -28,7 +29,7 @@ ORPHAN_DEADLINE = 5.0
 
 def _circuit(index: int) -> str:
     """An invented 16-qubit layered circuit, distinct per index, slow enough to be cut."""
-    lines = ['OPENQASM 2.0;', 'include "qelib1.inc";', f"qreg q[{QUBITS}];", f"creg c[{QUBITS}];"]
+    lines = ["OPENQASM 2.0;", 'include "qelib1.inc";', f"qreg q[{QUBITS}];", f"creg c[{QUBITS}];"]
     for layer in range(24):
         lines += [f"rx({0.001 * index + 0.1 * layer + 0.01 * i!r}) q[{i}];" for i in range(QUBITS)]
         lines += [f"cx q[{i}],q[{i + 1}];" for i in range(QUBITS - 1)]
@@ -53,6 +54,10 @@ def _processes_of(keep: Path) -> list[int]:
     return found
 
 
+def _pool_running(keep: Path, worker: subprocess.Popen[bytes]) -> bool:
+    return len(_processes_of(keep)) >= 3 or worker.poll() is not None
+
+
 @pytest.mark.slow
 @pytest.mark.skipif(not Path("/proc").is_dir(), reason="counts processes through /proc")
 def test_pool_processes_end_with_a_sigkilled_worker(tmp_path: Path) -> None:
@@ -66,14 +71,10 @@ def test_pool_processes_end_with_a_sigkilled_worker(tmp_path: Path) -> None:
     for _ in range(KILLS):  # bounded: ten rounds, each within a few seconds
         worker = start_worker(keep, "--slots", "2", *FAST_LEASE, stderr_path=log)
         # until its pool runs (the worker plus two pool processes), or 20 s at most
-        wait_for(lambda: len(_processes_of(keep)) >= 3 or worker.poll() is not None, 20.0)
+        wait_for(partial(_pool_running, keep, worker), 20.0)
         time.sleep(rng.uniform(0.2, 1.5))
-        if worker.poll() is not None:
+        if not sigkill(worker):
             break  # it drained everything before the kill
-        worker.send_signal(signal.SIGKILL)
-        worker.wait(timeout=30)
-        if worker.stdout is not None:
-            worker.stdout.close()
         kills += 1
         wait_for(lambda: not _processes_of(keep), ORPHAN_DEADLINE)
         left = _processes_of(keep)
