@@ -25,10 +25,11 @@ from jobkeeper.backend import LocalBackend, Result
 from jobkeeper.exceptions import (
     JobkeeperError,
     PermanentBackendError,
+    StoreFault,
     StoreUnavailable,
     TransientBackendError,
 )
-from jobkeeper.job_steps import Held, JobSteps
+from jobkeeper.job_steps import Held, JobSteps, disk_fault
 from jobkeeper.queue import LeasePolicy
 from jobkeeper.store import Attempt, Claim, Store
 
@@ -88,11 +89,17 @@ class BatchSteps(JobSteps):
                 by_backend.setdefault(held.claim.job.spec.backend, []).append(held)
             for name, helds in by_backend.items():
                 await self._batch_on(cast(LocalBackend, self._backend(name)), helds)
+        except StoreFault as exc:
+            self.note_fault(exc)  # the worker stops; the points are left to their leases
         except StoreUnavailable as exc:
             # As for a single job: the points are left to their leases.
             log.warning("batch: archive unreachable, left to the leases: %s", exc)
             self.stats.errors.append(str(exc))
         except Exception as exc:  # a bug must not stop the worker: each point fails alone
+            fault = disk_fault(exc)
+            if fault is not None:  # the machine's disk, not the points, is at fault
+                self.note_fault(fault)
+                return
             log.exception("batch: unexpected error")
             for held in batch:
                 if held.claim.job.id in self._held:
