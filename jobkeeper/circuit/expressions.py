@@ -12,7 +12,7 @@ from __future__ import annotations
 import math
 from collections.abc import Callable, Sequence
 
-from jobkeeper.circuit.lexer import ID, INT, REAL, SYMBOL, TokenStream
+from jobkeeper.circuit.lexer import ID, INT, REAL, SYMBOL, Token, TokenStream
 
 #: Parentheses, unary minus and ``^`` nested deeper than this are refused. Real programs
 #: stay in single digits; the bound keeps recursion far from Python's stack limit.
@@ -147,7 +147,7 @@ class Call(Expr):
             raise ExpressionError(f"{self.name}({value!r}) has no finite real value") from None
 
 
-def _const(expr: Expr, stream: TokenStream, at: int) -> Expr:
+def _const(expr: Expr, stream: TokenStream, at: Token) -> Expr:
     """Fold an expression without parameters now, so that its errors point at it."""
     if isinstance(expr, Num):
         return expr
@@ -156,7 +156,7 @@ def _const(expr: Expr, stream: TokenStream, at: int) -> Expr:
     try:
         return Num(expr.evaluate(()))
     except ExpressionError as exc:
-        stream.fail(str(exc), stream.tokens[at])
+        stream.fail(str(exc), at)
 
 
 def _has_params(expr: Expr) -> bool:
@@ -184,7 +184,7 @@ class ExpressionParser:
         self.depth = 0
 
     def parse(self) -> Expr:
-        start = self.stream.pos
+        start = self.stream.peek()
         return _const(self._sum(), self.stream, start)
 
     def _nest(self) -> None:
@@ -192,7 +192,7 @@ class ExpressionParser:
         if self.depth > MAX_NESTING:
             self.stream.fail(
                 f"expression nested more than {MAX_NESTING} levels deep",
-                self.stream.tokens[self.stream.pos - 1],
+                self.stream.prev or self.stream.peek(),
             )
 
     def _sum(self) -> Expr:

@@ -7,7 +7,8 @@ Columns count characters (code points), starting at 1, as editors show them.
 
 from __future__ import annotations
 
-from collections.abc import Callable
+from collections import deque
+from collections.abc import Callable, Iterable, Iterator
 from typing import NamedTuple, NoReturn
 
 from jobkeeper.exceptions import CircuitError
@@ -67,15 +68,17 @@ ReadToken = Callable[[str, int, int, int, Fail], tuple[Token | None, int]]
 _new = tuple.__new__
 
 
-def scan(text: str, file: str | None, read: ReadToken) -> list[Token]:
-    """The pass both OpenQASM readers share: all tokens of ``text`` followed by one EOF
-    token. Blanks, line ends and ``//`` comments are handled here; ``read`` reads the
-    rest. CircuitError on text that is no token."""
+def scan(text: str, file: str | None, read: ReadToken) -> Iterator[Token]:
+    """The pass both OpenQASM readers share: the tokens of ``text`` one by one as they
+    are read, then one EOF token. Blanks, line ends and ``//`` comments are handled here;
+    ``read`` reads the rest. CircuitError on text that is no token, when it is reached.
+
+    A generator, not a list: the parser holds only the tokens it is looking at, so a
+    large program does not hold all its tokens at once (a 10 MB file makes about three
+    million of them, some hundreds of bytes each)."""
     # A lone CR (old Mac line ends) ends a line too, so that it ends a comment as well.
     if "\r" in text:
         text = text.replace("\r\n", "\n").replace("\r", "\n")
-    tokens: list[Token] = []
-    append = tokens.append
     n = len(text)
     i = 0
     line = 1
@@ -98,15 +101,14 @@ def scan(text: str, file: str | None, read: ReadToken) -> list[Token]:
             continue
         token, end = read(text, i, line, i - line_start + 1, fail)
         if token is not None:
-            append(token)
+            yield token
         else:
             last = text.rfind("\n", i, end)
             if last >= 0:  # line ends inside a block comment still count
                 line += text.count("\n", i, last + 1)
                 line_start = last + 1
         i = end
-    append(Token(EOF, "", line, n - line_start + 1))
-    return tokens
+    yield Token(EOF, "", line, n - line_start + 1)
 
 
 def string_token(text: str, i: int, line: int, col: int, fail: Fail) -> tuple[Token, int]:
@@ -118,8 +120,9 @@ def string_token(text: str, i: int, line: int, col: int, fail: Fail) -> tuple[To
     return _new(Token, (STRING, text[i + 1 : j], line, col)), j + 1
 
 
-def tokenize(text: str, file: str | None) -> list[Token]:
-    """All tokens of ``text`` followed by one EOF token; CircuitError on a bad character."""
+def tokenize(text: str, file: str | None) -> Iterator[Token]:
+    """The tokens of ``text`` followed by one EOF token, as they are read (see
+    :func:`scan`); CircuitError on a bad character."""
     return scan(text, file, _read)
 
 
@@ -173,45 +176,63 @@ def _read(text: str, i: int, line: int, col: int, fail: Fail) -> tuple[Token | N
 
 
 class TokenStream:
-    """A cursor over a token list with the error reporting every parse step needs."""
+    """A cursor over tokens as the lexer reads them, with the error reporting every parse
+    step needs. It holds the current token, the one before it (for errors after a line's
+    last token) and whatever was looked ahead at, nothing more."""
 
-    __slots__ = ("file", "pos", "tokens")
+    __slots__ = ("_ahead", "_tokens", "current", "file", "pos", "prev")
 
-    def __init__(self, tokens: list[Token], file: str | None) -> None:
-        self.tokens = tokens
-        self.pos = 0
+    def __init__(self, tokens: Iterable[Token], file: str | None) -> None:
+        self._tokens = iter(tokens)
+        self._ahead: deque[Token] = deque()
+        self.current: Token = next(self._tokens, _new(Token, (EOF, "", 1, 1)))
+        self.prev: Token | None = None
+        self.pos = 0  # tokens consumed so far
         self.file = file
 
     def peek(self) -> Token:
-        return self.tokens[self.pos]
+        return self.current
+
+    def ahead(self) -> Token:
+        """The token after the current one (EOF at the end)."""
+        if self.current.kind == EOF:
+            return self.current
+        if not self._ahead:
+            self._ahead.append(next(self._tokens))
+        return self._ahead[0]
 
     def peek_is(self, text: str) -> bool:
-        tok = self.tokens[self.pos]
+        tok = self.current
         return tok.text == text and tok.kind in (SYMBOL, ID)
 
+    def _next(self) -> None:
+        self.prev = self.current
+        self.pos += 1
+        self.current = self._ahead.popleft() if self._ahead else next(self._tokens)
+
     def advance(self) -> Token:
-        tok = self.tokens[self.pos]
+        tok = self.current
         if tok.kind != EOF:
-            self.pos += 1
+            self._next()
         return tok
 
     def accept(self, text: str) -> bool:
         if self.peek_is(text):
-            self.pos += 1
+            self._next()
             return True
         return False
 
     def expect(self, text: str) -> Token:
-        tok = self.tokens[self.pos]
+        tok = self.current
         if tok.text == text and tok.kind in (SYMBOL, ID):
-            self.pos += 1
+            self._next()
             return tok
         self.fail_expected(f"'{text}'")
 
     def expect_kind(self, kind: str, what: str) -> Token:
-        tok = self.tokens[self.pos]
+        tok = self.current
         if tok.kind == kind:
-            self.pos += 1
+            self._next()
             return tok
         self.fail_expected(what)
 
@@ -219,16 +240,13 @@ class TokenStream:
         """Report a missing token where it is missing: a forgotten ';' (or anything at the
         end of the input) is reported right after the line's last token, not at the next
         line; a wrong word is reported where it stands."""
-        tok = self.tokens[self.pos]
+        tok = self.current
         message = f"expected {what}, found {tok.describe()}"
         missing_punctuation = what.startswith("'") or tok.kind == EOF
-        if self.pos > 0 and missing_punctuation:
-            prev = self.tokens[self.pos - 1]
-            if prev.line != tok.line:
-                width = len(prev.text) + (2 if prev.kind == STRING else 0)
-                raise CircuitError(
-                    message, file=self.file, line=prev.line, column=prev.column + width
-                )
+        prev = self.prev
+        if prev is not None and missing_punctuation and prev.line != tok.line:
+            width = len(prev.text) + (2 if prev.kind == STRING else 0)
+            raise CircuitError(message, file=self.file, line=prev.line, column=prev.column + width)
         self.fail(message, tok)
 
     def fail(self, message: str, tok: Token) -> NoReturn:

@@ -11,6 +11,7 @@ parser as a timing feature), ``imag`` (``1.5im``), ``hwq`` (``$0``).
 from __future__ import annotations
 
 import unicodedata
+from collections.abc import Iterator
 
 from jobkeeper.circuit.lexer import (
     EOF,
@@ -55,8 +56,9 @@ def _id_char(ch: str) -> bool:
     return ch in _ASCII_ID or ch in _DIGITS or _id_start(ch)
 
 
-def tokenize3(text: str, file: str | None) -> list[Token]:
-    """All tokens of ``text`` and one EOF token; CircuitError on text that is no token."""
+def tokenize3(text: str, file: str | None) -> Iterator[Token]:
+    """The tokens of ``text`` and one EOF token, as they are read; CircuitError on text
+    that is no token, when it is reached."""
     return scan(text, file, _read)
 
 

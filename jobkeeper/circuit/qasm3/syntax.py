@@ -136,7 +136,7 @@ class _Parser(ExpressionParser):
             s.fail("'else' without 'if'", tok)
         if word in MODIFIERS or word == "gphase":
             return self.gate_call()
-        nxt = s.tokens[s.pos + 1]
+        nxt = s.ahead()
         if nxt.kind == SYMBOL and (nxt.text == "[" or nxt.text in _ASSIGN_OPS):
             return self.assignment()
         if nxt.kind == SYMBOL and nxt.text in ("++", "--"):
