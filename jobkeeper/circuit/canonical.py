@@ -15,6 +15,7 @@ present (``3.0``, ``1.5707963268``, ``1.0e-05``): OpenQASM 2.0 reals need the po
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
 
 from jobkeeper.circuit.ir import BARRIER, MEASURE, RESET, Circuit, Operation
 from jobkeeper.circuit.stdgates import STANDARD_GATES
@@ -54,7 +55,7 @@ class CanonicalWriter:
     their registers, so a sweep writes the header once and only the lines whose
     parameters change per point (:mod:`jobkeeper.circuit.qasm3.compiled`)."""
 
-    __slots__ = ("_bit_names", "_circuit", "_register_of", "_signatures", "header")
+    __slots__ = ("_circuit", "_names", "_signatures", "header")
 
     def __init__(self, circuit: Circuit):
         lines = ["OPENQASM 2.0;", 'include "qelib1.inc";']
@@ -70,26 +71,16 @@ class CanonicalWriter:
             lines.append(f"opaque {name}{params} {','.join(f'a{i}' for i in range(n_qubits))};")
         if circuit.num_qubits:
             lines.append(f"qreg q[{circuit.num_qubits}];")
-        bit_names: dict[int, str] = {}
-        register_of: dict[tuple[int, ...], str] = {}
-        for k, reg in enumerate(circuit.cregs):
-            lines.append(f"creg c{k}[{reg.size}];")
-            bits = tuple(range(reg.offset, reg.offset + reg.size))
-            register_of[bits] = f"c{k}"
-            for j, bit in enumerate(bits):
-                bit_names[bit] = f"c{k}[{j}]"
+        lines += [f"creg c{k}[{reg.size}];" for k, reg in enumerate(circuit.cregs)]
         self._circuit = circuit
-        self._bit_names = bit_names
-        self._register_of = register_of
+        self._names = register_names(circuit)
         self._signatures = signatures
         #: the lines before the operations.
         self.header = tuple(lines)
 
     def line(self, op: Operation) -> str:
         """The canonical line of one operation of the circuit."""
-        return _operation_line(
-            self._circuit, op, self._bit_names, self._register_of, self._signatures
-        )
+        return operation_line(self._circuit, op, self._names, self._signatures)
 
 
 def canonical_text(circuit: Circuit) -> str:
@@ -100,22 +91,50 @@ def canonical_text(circuit: Circuit) -> str:
     return "\n".join(lines) + "\n"
 
 
+def register_names(circuit: Circuit) -> tuple[dict[int, str], dict[tuple[int, ...], str]]:
+    """The classical registers named ``c0, c1, ...`` in declaration order: each bit's
+    name (``c1[0]``) and each register's (by its bits)."""
+    bit_names: dict[int, str] = {}
+    register_of: dict[tuple[int, ...], str] = {}
+    for k, reg in enumerate(circuit.cregs):
+        bits = tuple(range(reg.offset, reg.offset + reg.size))
+        register_of[bits] = f"c{k}"
+        bit_names.update({bit: f"c{k}[{j}]" for j, bit in enumerate(bits)})
+    return bit_names, register_of
+
+
 def circuit_hash(circuit: Circuit) -> str:
     """``sha256:`` + hex of the UTF-8 canonical text."""
     return sha256_tag(canonical_text(circuit).encode("utf-8"))
 
 
-def _operation_line(
+@dataclass(frozen=True)
+class Spelling:
+    """How a language writes what OpenQASM 2.0 and 3 share: the separator of operands
+    and parameters, a condition on a whole register, a measurement."""
+
+    comma: str = ","
+    condition: str = "if({register}=={value}) "
+    measure: str = "measure {qubit} -> {bit};"
+
+
+OPENQASM2 = Spelling()
+
+
+def operation_line(
     circuit: Circuit,
     op: Operation,
-    bit_names: dict[int, str],
-    register_of: dict[tuple[int, ...], str],
+    names: tuple[dict[int, str], dict[tuple[int, ...], str]],
     opaque: dict[str, tuple[int, int]],
+    spelling: Spelling = OPENQASM2,
 ) -> str:
+    """One operation as a statement on absolute indices (``names``: those of
+    :func:`register_names`); CircuitError for one that cannot be written."""
+    bit_names, register_of = names
     for qubit in op.qubits:
         if not 0 <= qubit < circuit.num_qubits:
             raise CircuitError(f"operation '{op.name}' uses qubit {qubit} outside the circuit")
-    qubits = ",".join(f"q[{q}]" for q in op.qubits)
+    qubits = spelling.comma.join(f"q[{q}]" for q in op.qubits)
     if op.name == BARRIER:
         if not op.qubits:
             raise CircuitError("a barrier needs at least one qubit")
@@ -123,14 +142,14 @@ def _operation_line(
         return f"barrier {qubits};"
     prefix = ""
     if op.condition is not None:
-        name = register_of.get(op.condition.clbits)
-        if name is None:
+        register = register_of.get(op.condition.clbits)
+        if register is None:
             raise CircuitError("a condition must test one whole classical register")
-        prefix = f"if({name}=={op.condition.value}) "
+        prefix = spelling.condition.format(register=register, value=op.condition.value)
     if op.name == MEASURE:
         if len(op.qubits) != 1 or len(op.clbits) != 1 or op.clbits[0] not in bit_names:
             raise CircuitError("a measurement takes one qubit and one declared bit")
-        return f"{prefix}measure {qubits} -> {bit_names[op.clbits[0]]};"
+        return prefix + spelling.measure.format(qubit=qubits, bit=bit_names[op.clbits[0]])
     if op.name == RESET:
         return f"{prefix}reset {qubits};"
     spec = STANDARD_GATES.get(op.name)
@@ -142,5 +161,5 @@ def _operation_line(
         raise CircuitError(f"operation '{op.name}' is neither a standard gate nor opaque")
     if arity != (len(op.params), len(op.qubits)):
         raise CircuitError(f"operation '{op.name}' has the wrong number of arguments")
-    params = f"({','.join(format_param(p) for p in op.params)})" if op.params else ""
-    return f"{prefix}{op.name}{params} {qubits};"
+    params = spelling.comma.join(format_param(p) for p in op.params)
+    return f"{prefix}{op.name}({params}) {qubits};" if params else f"{prefix}{op.name} {qubits};"

@@ -49,7 +49,8 @@ def loopback_device(
         str,
         typer.Option(
             "--preset",
-            help="API shape: loopback, exchange (OAuth, Locations, linked pages) or ledger.",
+            help="API shape: loopback, exchange (OAuth, Locations, linked pages), ledger or"
+            " relay (OpenQASM 3, whole-path Locations, pages by URL).",
         ),
     ] = "loopback",
     state: Annotated[
@@ -61,7 +62,7 @@ def loopback_device(
     ] = None,
 ) -> None:
     """Run the loopback device: a real HTTP device on this machine for rehearsal."""
-    from jobkeeper.loopback import ALL_FAULTS, KNOWN_FAULTS, serve
+    from jobkeeper.loopback import ALL_FAULTS, KNOWN_FAULTS, PRESETS, serve
 
     kinds = tuple(ALL_FAULTS) if faults is None else tuple(
         k.strip() for k in faults.split(",") if k.strip()
@@ -73,8 +74,8 @@ def loopback_device(
         )
     if not token:
         raise ConfigError("give the device a token: --token or JOBKEEPER_LOOPBACK_TOKEN")
-    if preset not in ("loopback", "exchange", "ledger"):
-        raise ConfigError(f"unknown preset {preset!r}; known: loopback, exchange, ledger")
+    if preset not in PRESETS:
+        raise ConfigError(f"unknown preset {preset!r}; known: {', '.join(PRESETS)}")
     if not 0.0 <= fault_rate <= 1.0:
         raise ConfigError("--fault-rate must be between 0 and 1")
     typer.echo(

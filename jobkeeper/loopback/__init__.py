@@ -15,6 +15,7 @@ from __future__ import annotations
 from jobkeeper.loopback._app import (
     ALL_FAULTS,
     KNOWN_FAULTS,
+    PRESETS,
     DeviceSettings,
     FaultPlan,
     LoopbackApp,
@@ -26,6 +27,7 @@ from jobkeeper.loopback._server import BackgroundDevice, loopback_address, serve
 __all__ = [
     "ALL_FAULTS",
     "KNOWN_FAULTS",
+    "PRESETS",
     "BackgroundDevice",
     "DeviceJob",
     "DeviceSettings",

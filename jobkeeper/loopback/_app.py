@@ -11,11 +11,11 @@ Endpoints (the loopback profile, ``jobkeeper/profiles/loopback.toml``, speaks th
     GET  /stats                   counters (no token, no faults)
     GET  /health                  liveness (no token, no faults)
 
-The ``exchange`` and ``ledger`` presets speak other API shapes instead (``_exchange.py``,
-``_ledger.py``). Faults
-(``_faults.py``) are drawn per ``/v1`` request (``/v2`` and ``/oauth`` in the exchange
-preset) with probability ``rate`` from a seeded generator (which request gets which draw
-depends on arrival order).
+The ``exchange``, ``ledger`` and ``relay`` presets speak other API shapes instead
+(``_exchange.py``, ``_ledger.py``, ``_relay.py``). Faults (``_faults.py``) are drawn per
+``/v1`` request (the preset's own paths in the others, its token endpoint included) with
+probability ``rate`` from a seeded generator (which request gets which draw depends on
+arrival order).
 """
 
 from __future__ import annotations
@@ -50,15 +50,19 @@ from jobkeeper.loopback._faults import (
     huge,
 )
 from jobkeeper.loopback._ledger import ledger_routes
+from jobkeeper.loopback._relay import TOKEN_PATH, relay_routes
 from jobkeeper.loopback._state import DeviceState
 
 __all__ = ["ALL_FAULTS", "KNOWN_FAULTS", "PRESETS", "FaultPlan", "LoopbackApp", "create_app"]
 
-#: the API shapes the device can speak: its own (``loopback``), ``exchange`` and ``ledger``,
-#: each with a shipped profile (``loopback-exchange``, ``loopback-ledger``).
-PRESETS = ("loopback", "exchange", "ledger")
+#: the API shapes the device can speak: its own (``loopback``), ``exchange``, ``ledger`` and
+#: ``relay``, each with a shipped profile (``loopback-exchange``, ...).
+PRESETS = ("loopback", "exchange", "ledger", "relay")
 #: the paths where faults are injected and the credentials checked, per preset.
-_GUARDED = {"loopback": ("/v1/",), "exchange": ("/v2/", "/oauth/"), "ledger": ("/v3/",)}
+_GUARDED = {"loopback": ("/v1/",), "exchange": ("/v2/", "/oauth/"), "ledger": ("/v3/",),
+            "relay": ("/v4/",)}  # fmt: skip
+#: the presets that issue access tokens (OAuth client credentials), and where.
+_TOKEN_PATHS = {"exchange": "/oauth/token", "relay": TOKEN_PATH}
 
 
 def _error(status: int, code: str, message: str, headers: dict[str, str] | None = None) -> Response:
@@ -155,7 +159,7 @@ class LoopbackApp:
         self._expected = f"Bearer {token}".encode()
         self._faults = faults
         self._rng = random.Random(faults.seed)
-        #: the exchange preset's token issuer (its client secret is ``token``)
+        #: the token issuer of the presets with OAuth (their client secret is ``token``)
         self.issuer = TokenIssuer(secret=token, ttl=token_ttl)
         self._routes = _routes(device)
         self._key = token.encode()
@@ -163,6 +167,9 @@ class LoopbackApp:
             self._routes.router.routes[:0] = exchange_routes(device, self.issuer, page_size)
         elif preset == "ledger":
             self._routes.router.routes[:0] = ledger_routes(device, page_size)
+        elif preset == "relay":
+            self._routes.router.routes[:0] = relay_routes(device, self.issuer, page_size)
+        self._token_path = _TOKEN_PATHS.get(preset)
         self._forced: deque[tuple[str, str | None, str | None]] = deque()
         self._echoes: deque[str] = deque()
 
@@ -205,10 +212,8 @@ class LoopbackApp:
         return None
 
     def _authorised(self, scope: Scope) -> bool:
-        if self.preset == "exchange":
-            return str(scope["path"]).startswith("/oauth/") or bearer_valid(
-                self.issuer, scope["headers"]
-            )
+        if self._token_path is not None:
+            return self._asks_token(scope) or bearer_valid(self.issuer, scope["headers"])
         if self.preset == "ledger":
             sent = dict(scope["headers"]).get(b"x-ledger-key", b"")
             return hmac.compare_digest(bytes(sent), self._key)
@@ -216,6 +221,9 @@ class LoopbackApp:
             if name == b"authorization":
                 return hmac.compare_digest(bytes(value), self._expected)
         return False
+
+    def _asks_token(self, scope: Scope) -> bool:
+        return self._token_path is not None and str(scope["path"]) == self._token_path
 
     def _draw(self) -> str | None:
         plan = self._faults
@@ -230,7 +238,7 @@ class LoopbackApp:
         self.device.counters["requests"] += 1
         response: Response | None = None
         length = dict(scope["headers"]).get(b"content-length", b"0")
-        if not self._authorised(scope) and self.preset == "exchange":
+        if not self._authorised(scope) and self._token_path is not None:
             response = token_refused()
         elif not self._authorised(scope):
             response = _error(
@@ -250,8 +258,8 @@ class LoopbackApp:
             await response(scope, receive, send)
             return
         kind = self._take_forced(scope) or self._draw()
-        first_use = self.preset == "exchange" and self.issuer.first_use(scope["headers"])
-        if kind == "expire" and (first_use or str(scope["path"]).startswith("/oauth/")):
+        first_use = self._token_path is not None and self.issuer.first_use(scope["headers"])
+        if kind == "expire" and (first_use or self._asks_token(scope)):
             kind = None  # a token is not revoked on its first use, nor a token request
         await self._serve(scope, receive, send, kind)
 
@@ -334,7 +342,7 @@ def create_app(
 ) -> LoopbackApp:
     """The loopback device as an ASGI application (for uvicorn, or httpx's ASGITransport).
     ``state`` is the SQLite file that keeps its jobs across restarts (None: in memory);
-    ``preset`` the API shape it speaks (PRESETS); in the ``exchange`` preset ``token`` is
+    ``preset`` the API shape it speaks (PRESETS); in the ``exchange`` and ``relay`` presets ``token`` is
     the OAuth client secret, access tokens live ``token_ttl`` seconds and samples come
     ``page_size`` to a page."""
     from jobkeeper.loopback._sim import check_program, simulate

@@ -246,6 +246,11 @@ class LoopbackDevice:
             self._save(job)
         return job
 
+    def note(self, job: DeviceJob, **extra: Any) -> None:
+        """Keep ``extra`` about ``job`` beside its common fields (what a preset records)."""
+        job.extra.update(extra)
+        self._save(job)
+
     def job(self, job_id: str) -> DeviceJob:
         job = self._jobs.get(job_id)
         if job is None:

@@ -21,7 +21,6 @@ from __future__ import annotations
 
 import base64
 import hmac
-import random
 import secrets
 import threading
 import time
@@ -29,14 +28,13 @@ from collections.abc import Callable
 from typing import Any
 from urllib.parse import parse_qsl, unquote_plus
 
-from starlette.concurrency import run_in_threadpool
 from starlette.requests import Request
 from starlette.responses import JSONResponse, Response
 from starlette.routing import Route
 
 from jobkeeper.backends.rest.wire import parse_structured_string
-from jobkeeper.counts import plain_key
-from jobkeeper.loopback._device import LoopbackDevice, Rejection
+from jobkeeper.loopback._device import LoopbackDevice
+from jobkeeper.loopback._outcomes import shot_record, value_of
 
 CLIENT_ID = "loopback-client"
 #: numeric status codes of the exchange preset (an invented scheme).
@@ -102,6 +100,12 @@ def token_refused() -> Response:
     )
 
 
+def idempotency_key(request: Request) -> str | None:
+    """The request's Idempotency-Key, an RFC 8941 String as the IETF draft sends it."""
+    raw_key = request.headers.get("idempotency-key")
+    return parse_structured_string(raw_key) if raw_key is not None else None
+
+
 def _client_of(request: Request, form: dict[str, str]) -> tuple[str, str]:
     header = request.headers.get("authorization", "")
     if header.lower().startswith("basic "):
@@ -121,18 +125,9 @@ async def _form(request: Request) -> dict[str, str]:
     return dict(parse_qsl(body, keep_blank_values=True))
 
 
-def _samples(counts: dict[str, int], seed: int) -> list[str]:
-    # every shot once, in an order of its own (seeded): a device's per-shot record
-    shots = [
-        hex(int(plain_key(key), 2) if key else 0)
-        for key, n in sorted(counts.items())
-        for _ in range(n)
-    ]
-    random.Random(seed).shuffle(shots)
-    return shots
+def token_route(issuer: TokenIssuer, path: str) -> Route:
+    """The token endpoint (RFC 6749 §4.4.2, answers as §5.1 and §5.2), at ``path``."""
 
-
-def exchange_routes(device: LoopbackDevice, issuer: TokenIssuer, page_size: int) -> list[Route]:
     async def token(request: Request) -> Response:
         form = await _form(request)
         if form.get("grant_type") != "client_credentials":
@@ -148,9 +143,12 @@ def exchange_routes(device: LoopbackDevice, issuer: TokenIssuer, page_size: int)
             headers={"Cache-Control": "no-store"},
         )
 
+    return Route(path, token, methods=["POST"])
+
+
+def exchange_routes(device: LoopbackDevice, issuer: TokenIssuer, page_size: int) -> list[Route]:
     async def submit(request: Request) -> Response:
-        raw_key = request.headers.get("idempotency-key")
-        key = parse_structured_string(raw_key) if raw_key is not None else None
+        key = idempotency_key(request)
         form = await _form(request)
         body: dict[str, Any] = {"program": form.get("source"), "exact": False, "seed": None}
         try:
@@ -174,12 +172,9 @@ def exchange_routes(device: LoopbackDevice, issuer: TokenIssuer, page_size: int)
 
     async def samples(request: Request) -> Response:
         run = request.path_params["run"]
-        kind, values = await device.result(run, run_in_threadpool)
-        if kind != "counts":
-            raise Rejection(409, "no-samples", "exact runs have no samples")
-        job = device.job(run)
+        # bit k of the integer is c[k]
+        shots = await shot_record(device, run, lambda bits: hex(value_of(bits)))
         start = int(request.query_params.get("from", "0") or 0)
-        shots = _samples(values, job.seed)
         page = shots[start : start + page_size]
         headers = {}
         if start + page_size < len(shots):
@@ -194,7 +189,7 @@ def exchange_routes(device: LoopbackDevice, issuer: TokenIssuer, page_size: int)
         return JSONResponse({"calibration": device.calibration})
 
     return [
-        Route("/oauth/token", token, methods=["POST"]),
+        token_route(issuer, "/oauth/token"),
         Route("/v2/runs", submit, methods=["POST"]),
         Route("/v2/runs/{run}", status, methods=["GET"]),
         Route("/v2/runs/{run}/samples", samples, methods=["GET"]),

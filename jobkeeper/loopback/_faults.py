@@ -9,8 +9,8 @@ done); ``lost`` (the request is carried out, e.g. the job IS created, then the a
 cut off like ``drop``). Only when asked for by name (``force``, ``--faults``): ``huge``
 (200 with a JSON answer of ``huge_size`` bytes, 200 MiB by default, streamed without a
 length; a hostile device's endless job id; nothing done) and ``expire`` (every access
-token issued so far expires, and the request is refused with 401; the ``exchange``
-preset only).
+token issued so far expires, and the request is refused with 401; the presets with
+OAuth, ``exchange`` and ``relay``, only).
 """
 
 from __future__ import annotations

@@ -17,30 +17,17 @@ it).
 from __future__ import annotations
 
 import json
-import random
 from typing import Any
 
-from starlette.concurrency import run_in_threadpool
 from starlette.requests import Request
 from starlette.responses import JSONResponse, Response
 from starlette.routing import Route
 
-from jobkeeper.counts import plain_key
-from jobkeeper.loopback._device import LoopbackDevice, Rejection
+from jobkeeper.loopback._device import LoopbackDevice
+from jobkeeper.loopback._outcomes import shot_record
 
 WORDS = {"queued": "filed", "running": "working", "complete": "settled",
          "error": "void", "cancelled": "withdrawn"}  # fmt: skip
-
-
-def _shots(counts: dict[str, int], seed: int) -> list[list[int]]:
-    # each shot's classical bits, c[0] first
-    shots = [
-        [int(b) for b in reversed(plain_key(key))]
-        for key, n in sorted(counts.items())
-        for _ in range(n)
-    ]
-    random.Random(seed).shuffle(shots)
-    return shots
 
 
 def ledger_routes(device: LoopbackDevice, page_size: int) -> list[Route]:
@@ -67,12 +54,8 @@ def ledger_routes(device: LoopbackDevice, page_size: int) -> list[Route]:
         return JSONResponse({"ticket": {"word": WORDS[job.state], "reason": job.message}})
 
     async def shots(request: Request) -> Response:
-        ref = request.path_params["ref"]
-        kind, values = await device.result(ref, run_in_threadpool)
-        if kind != "counts":
-            raise Rejection(409, "no-shots", "exact runs have no shots")
-        job = device.job(ref)
-        every = _shots(values, job.seed)
+        # each shot's classical bits, c[0] first
+        every = await shot_record(device, request.path_params["ref"], list)
         pages = max(1, -(-len(every) // page_size))
         number = int(request.query_params.get("page", "1") or 1)
         page = every[(number - 1) * page_size : number * page_size]

@@ -61,11 +61,11 @@ class RunningDevice:
 
     def backend_config(self, **overrides: Any) -> dict[str, Any]:
         """A ``[backends.NAME]`` table for a ``rest`` backend speaking to this device (in
-        the exchange preset the secret is read from ``token_env`` and the client id from
-        CLIENT_ID_ENV, set it to ``CLIENT_ID``)."""
-        if self.app.preset == "exchange":
+        the exchange and relay presets the secret is read from ``token_env`` and the client
+        id from CLIENT_ID_ENV, set it to ``CLIENT_ID``)."""
+        if self.app.preset in ("exchange", "relay"):
             auth = {"client_id_env": CLIENT_ID_ENV, "client_secret_env": self.token_env}
-            return {"adapter": "rest", "profile": "loopback-exchange", "url": self.url,
+            return {"adapter": "rest", "profile": f"loopback-{self.app.preset}", "url": self.url,
                     **auth, **overrides}  # fmt: skip
         if self.app.preset == "ledger":
             return {"adapter": "rest", "profile": "loopback-ledger", "url": self.url,
@@ -94,7 +94,8 @@ def running_device(
     that). ``state`` (a setting): the SQLite file that keeps the device's jobs (give
     the same file and ``port`` to rehearse a restart); ``preset = "exchange"`` speaks the
     ``loopback-exchange`` profile (``token`` is then the client secret; tokens live
-    ``token_ttl`` seconds; samples come ``page_size`` to a page)."""
+    ``token_ttl`` seconds; samples come ``page_size`` to a page), and so on for the
+    other presets (``loopback-ledger``, ``loopback-relay``)."""
     settings.setdefault("queue_delay", 0.05)
     settings.setdefault("slow_delay", 1.0)
     app = create_app(token=token, **settings)

@@ -27,7 +27,9 @@ def test_the_repository_holds_the_shipped_and_example_profiles() -> None:
     names = {path.name for path in repository_profiles()}
     assert {"loopback.toml", "loopback-exchange.toml", "tidewater-ion-shelf.toml",
             "saltmarsh-neutral-grid.toml"} <= names  # fmt: skip
-    assert {"loopback", "loopback-exchange", "loopback-ledger"} <= set(shipped_profiles())
+    assert {"loopback", "loopback-exchange", "loopback-ledger", "loopback-relay"} <= set(
+        shipped_profiles()
+    )
 
 
 @pytest.mark.parametrize("path", repository_profiles(), ids=lambda p: p.name)

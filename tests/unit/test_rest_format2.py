@@ -15,7 +15,7 @@ from jobkeeper.backend import Task
 from jobkeeper.backends.rest.adapter import RestBackend
 from jobkeeper.backends.rest.http import InCallRetry, Timeouts
 from jobkeeper.backends.rest.profile import parse_profile
-from jobkeeper.circuit import parse_qasm
+from jobkeeper.circuit import circuit_hash, parse_qasm
 from jobkeeper.exceptions import PermanentBackendError
 
 KEY = "sha256:" + "cd" * 32
@@ -156,18 +156,31 @@ def test_the_whole_location_path_can_be_the_handle() -> None:
     assert handle.endswith(";job=/api/runs/r-7") and polled.result.counts == {"01|0": 1}
 
 
-def test_a_location_on_another_origin_is_refused() -> None:
+@pytest.mark.parametrize(
+    ("answer", "repeats", "reason"),
+    [
+        (httpx.Response(201, headers={"Location": "https://elsewhere.invalid/r"}), "same",
+         "another origin"),
+        (httpx.Response(200, json={"job": "r-7"}), "existing", "no Content-Location header"),
+    ],
+)  # fmt: skip
+def test_an_answer_that_names_no_job_on_this_device_is_refused(
+    answer: httpx.Response, repeats: str, reason: str
+) -> None:
     device = Device([1])
-    device.submit_answer = httpx.Response(201, headers={"Location": "https://elsewhere.invalid/r"})
-    with pytest.raises(PermanentBackendError, match="another origin"):
-        asyncio.run(_run(device, 1))
+    device.submit_answer = answer
+    with pytest.raises(PermanentBackendError, match=reason):
+        asyncio.run(_run(device, 1, profile(requests__submit__repeats=repeats)))
 
 
-@pytest.mark.parametrize("answer", ["see_other", "conflict"])
+@pytest.mark.parametrize("answer", ["see_other", "conflict", "existing"])
 def test_repeats_take_the_existing_job(answer: str) -> None:
     if answer == "see_other":  # RFC 9110 §15.4.4
         reply = httpx.Response(303, headers={"Location": "/api/runs/r-7"})
         spec = profile(requests__submit__repeats="see_other")
+    elif answer == "existing":  # RFC 9110 §8.7: a POST's 200 names its result's resource
+        reply = httpx.Response(200, headers={"Content-Location": "/api/runs/r-7"})
+        spec = profile(requests__submit__repeats="existing")
     else:  # RFC 9110 §15.5.10, the existing job named in the answer
         reply = httpx.Response(409, json={"existing": {"id": "r-7"}})
         spec = profile(requests__submit__repeats="conflict",
@@ -202,3 +215,19 @@ def test_numbered_pages_and_counts_by_hex_with_c0_left() -> None:
     assert [r.url.params.get("page") for r in device.requests if r.url.path.endswith("shots")] == [
         None, "2",
     ]  # fmt: skip
+
+
+def test_the_program_goes_as_openqasm_3_when_the_profile_says_so() -> None:
+    device = Device([0, 0])
+    asyncio.run(_run(device, 2, profile(requests__submit__program="openqasm3")))
+    sent = dict(parse_qsl(device.requests[1].content.decode()))["src"]
+    assert sent.startswith("OPENQASM 3.0;\n")
+    assert circuit_hash(parse_qasm(sent)) == circuit_hash(parse_qasm(PROGRAM))
+
+
+def test_a_circuit_with_an_opaque_gate_cannot_go_as_openqasm_3() -> None:
+    text = PROGRAM.replace("creg b[1];\n", "creg b[1];\nopaque magic a;\nmagic q[0];\n")
+    rest = backend(Device([0]), profile(requests__submit__program="openqasm3"))
+    job = Task(circuit=parse_qasm(text), shots=1, seed=1, circuit_text=text)
+    with pytest.raises(PermanentBackendError, match="no opaque gates"):
+        asyncio.run(rest.start(job, client_key=KEY))

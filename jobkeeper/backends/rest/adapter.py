@@ -56,7 +56,8 @@ from jobkeeper.backends.rest.redaction import Redactor
 from jobkeeper.backends.rest.results import outcome_from, pick, pick_text
 from jobkeeper.backends.rest.session import DeviceSession, Outgoing
 from jobkeeper.backends.rest.wire import fill_path, fill_template, structured_string
-from jobkeeper.exceptions import PermanentBackendError
+from jobkeeper.circuit.openqasm3 import openqasm3_text
+from jobkeeper.exceptions import CircuitError, PermanentBackendError
 from jobkeeper.hashing import digest_of
 from jobkeeper.probing import ProbeReport
 
@@ -262,6 +263,14 @@ class RestBackend:
                 f"{device.max_shots}"
             )
 
+    def _program(self, task: Task) -> str:
+        if self._profile.requests.submit.program == "openqasm2":
+            return task.circuit_text
+        try:
+            return openqasm3_text(task.circuit)
+        except CircuitError as exc:
+            raise PermanentBackendError(f"{self._name}: {exc}") from None
+
     async def start(self, task: Task, *, client_key: str) -> Started:
         """Submit ``task`` with ``client_key`` as the idempotency key, and return the
         device's job id as the handle. Safe to call again with the same key."""
@@ -270,7 +279,7 @@ class RestBackend:
         calibration = await self.refresh_calibration()
         spec = self._profile.requests.submit
         values = {
-            "circuit": task.circuit_text,
+            "circuit": self._program(task),
             "shots": task.shots,
             "seed": task.seed,
             "exact": task.exact,

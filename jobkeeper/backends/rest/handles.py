@@ -4,7 +4,8 @@ The id is read from the submission's answer as the profile says: at a JSON Point
 from the ``Location`` header of a 201, 202 or 303 answer (RFC 9110 §10.2.2, §15.3.2,
 §15.4.4), resolved against the request's URL and kept as its last path segment or its
 whole path; a device that answers a repeated submission with 409 names the existing job
-in its answer or its ``Location``. A Location on another origin is refused: the device's
+in its answer or its ``Location``, and one that answers it with 200 and the existing job
+names it in its answer or its ``Content-Location`` (RFC 9110 §8.7). A Location on another origin is refused: the device's
 credentials would travel there with every poll.
 
 For format 2 profiles the stored handle also notes the shots asked for and the widths of
@@ -66,20 +67,21 @@ def _same_origin(url: httpx.URL, base: httpx.URL) -> bool:
     return (url.scheme, url.host, url.port) == (base.scheme, base.host, base.port)
 
 
-def from_location(reply: Reply, spec: SubmitSpec, base: str) -> str:
-    """The job id in the answer's ``Location`` header, resolved against the request URL."""
-    value = reply.headers.get("location")
+def from_location(reply: Reply, spec: SubmitSpec, base: str, header: str = "Location") -> str:
+    """The job id in the answer's ``Location`` header (or ``header``), resolved against
+    the request URL."""
+    value = reply.headers.get(header.lower())
     if not value:
         raise PermanentBackendError(
-            f"the device's {reply.status} answer to the submission has no Location header"
+            f"the device's {reply.status} answer to the submission has no {header} header"
         )
     try:
         url = httpx.URL(reply.url).join(value.strip())
     except httpx.InvalidURL:
-        raise PermanentBackendError("the device's Location header is not a URL") from None
+        raise PermanentBackendError(f"the device's {header} header is not a URL") from None
     if not _same_origin(url, httpx.URL(base)):
         raise PermanentBackendError(
-            f"the device's Location points to another origin ({url.scheme}://{url.host}); "
+            f"the device's {header} points to another origin ({url.scheme}://{url.host}); "
             "the job is not followed there"
         )
     path = url.raw_path.decode("ascii").split("?", 1)[0]
@@ -87,7 +89,7 @@ def from_location(reply: Reply, spec: SubmitSpec, base: str) -> str:
         return path
     segments = [segment for segment in path.split("/") if segment]
     if not segments:
-        raise PermanentBackendError(f"the device's Location {path!r} names no job")
+        raise PermanentBackendError(f"the device's {header} {path!r} names no job")
     return unquote(segments[-1])
 
 
@@ -109,6 +111,9 @@ def device_handle(reply: Reply, profile: DeviceProfile, base: str, redactor: Red
             handle = _from_answer(reply.document, spec.conflict_handle, profile, base)
         else:
             handle = from_location(reply, spec, base)
+    elif reply.status == 200 and spec.repeats == "existing" and spec.handle_from == "location":
+        # the existing job, which a 200 answer to a POST names by Content-Location
+        handle = from_location(reply, spec, base, "Content-Location")
     elif reply.status == 303 or spec.handle_from == "location":
         if reply.status not in (201, 202, 303):
             raise TransientBackendError(

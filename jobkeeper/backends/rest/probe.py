@@ -98,7 +98,7 @@ def declared(profile: DeviceProfile) -> dict[str, Any]:
             if profile.auth.kind == "client_credentials"
             else f"token in the {profile.auth.header} header"
         ),
-        "submit": f"{submit.method} {submit.path} ({submit.body_format} body)",
+        "submit": f"{submit.method} {submit.path} ({submit.body_format} body, {submit.program})",
         "handle": handle,
         "repeated_key": submit.repeats,
         "status": f"{requests.status.method} {requests.status.path} at {requests.status.state}",

@@ -154,19 +154,22 @@ class SubmitSpec(RequestSpec):
     303 answer (RFC 9110 §10.2.2), resolved against the request URL: its last path
     segment, or its whole path (``handle_part``). ``repeats`` says how the device answers
     a repeated idempotency key: with the same answer again (``same``), with 303 and the
-    existing job's ``Location`` (``see_other``), or with 409 naming the existing job at
-    ``conflict_handle`` (or in ``Location``) (``conflict``). ``body_format`` sends the body
-    as JSON or form-encoded (``application/x-www-form-urlencoded``). ``program`` is the
-    language of ``{circuit}``."""
+    existing job's ``Location`` (``see_other``), with 409 naming the existing job at
+    ``conflict_handle`` (or in ``Location``) (``conflict``), or with 200 and the existing
+    job (``existing``), named at ``handle`` or, with ``handle_from = "location"``, by the
+    answer's ``Content-Location`` (RFC 9110 §8.7). ``body_format`` sends the body as JSON
+    or form-encoded (``application/x-www-form-urlencoded``). ``program`` is the language
+    of ``{circuit}``: the canonical OpenQASM 2.0 text, or that circuit written as
+    OpenQASM 3 (:mod:`jobkeeper.circuit.openqasm3`)."""
 
     method: HttpMethod = "POST"
     handle: Pointer | None = None
     handle_from: Literal["answer", "location"] = "answer"
     handle_part: Literal["last_segment", "path"] = "last_segment"
-    repeats: Literal["same", "see_other", "conflict"] = "same"
+    repeats: Literal["same", "see_other", "conflict", "existing"] = "same"
     conflict_handle: Pointer | None = None
     body_format: Literal["json", "form"] = "json"
-    program: Literal["openqasm2"] = "openqasm2"
+    program: Literal["openqasm2", "openqasm3"] = "openqasm2"
 
     @model_validator(mode="after")
     def _check_submit(self) -> SubmitSpec:
@@ -278,6 +281,7 @@ def format_2_keys(profile: DeviceProfile) -> list[str]:
         "requests.submit.handle_part": profile.requests.submit.handle_part != "last_segment",
         "requests.submit.repeats": profile.requests.submit.repeats != "same",
         "requests.submit.body_format": profile.requests.submit.body_format != "json",
+        "requests.submit.program": profile.requests.submit.program != "openqasm2",
         "results.samples": profile.results.samples is not None,
         "results.bit_order": profile.results.bit_order != "ours",
         "results.encoding": profile.results.encoding != "bitstrings",
